@@ -1,0 +1,361 @@
+"""Mechanism model: links, joints, couplings, measures; spanning tree and loops; posing.
+
+Home convention (product of exponentials, space form): every link sits in its
+modelled placement at home; every joint's point and axis are given in world
+coordinates at home, where each coordinate equals its ``home`` value.  A link's
+pose is its rigid displacement from home, ``D`` (4x4): a point ``p`` of the link
+at home is at ``D @ p``.  Posing a tree multiplies joint exponentials from ground:
+``D_child = D_parent @ E_joint(q)`` (Lynch & Park, *Modern Robotics*, sec. 4.1).
+
+The joint graph may contain loops.  A spanning tree is grown breadth-first from
+ground; every joint left out of the tree closes one loop.  Loops are solved by
+:mod:`jointwise.solver`.
+
+Units: the public API speaks the file's units (``length_unit``, ``angle_unit``);
+internally angles are radians and lengths stay in the file's length unit.
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import LimitError, SpecError
+from .spec import ANGLE_UNITS, FORMAT
+
+__all__ = ["Link", "Coupling", "Measure", "Loop", "Mechanism", "Pose", "ASSEMBLY_TOLERANCE"]
+
+#: Home placements that miss closure by no more than this are settled by ``pose``:
+#: position error up to this fraction of the mechanism's size (the largest distance
+#: between joint points, at least one length unit), angle error up to this in radians.
+ASSEMBLY_TOLERANCE = 1e-3
+
+
+@dataclass
+class Link:
+    name: str
+    object: str
+
+
+@dataclass
+class Coupling:
+    """``follower = ratio * leader + offset``, in file units."""
+    name: str
+    leader: str
+    follower: str
+    ratio: float
+    offset: float = 0.0
+
+
+@dataclass
+class Measure:
+    """A quantity evaluated at every pose: point, distance, angle or rate."""
+    name: str
+    type: str
+    a: tuple | None = None
+    b: tuple | None = None
+    of: str | None = None
+    per: str | None = None
+
+
+@dataclass
+class Loop:
+    """One independent loop: closed by joint ``name``; ``steps`` walk it from ``root``.
+
+    Each step is ``(joint, sign)``: sign +1 goes parent -> child, -1 child -> parent.
+    The loop is closed when the product of the steps' transforms is the identity.
+    """
+    name: str
+    root: str
+    steps: list
+
+
+@dataclass
+class Pose:
+    """Result of :meth:`Mechanism.pose`.
+
+    ``joints``: coordinate -> value (file units); ``links``: link -> 4x4 displacement
+    from home (world, file length unit); ``residual``: largest loop-closure error
+    (length unit or radian); ``singular``: near a dead point or toggle position.
+    """
+    joints: dict
+    links: dict
+    converged: bool
+    residual: float
+    singular: bool = False
+    q: np.ndarray | None = field(default=None, repr=False)  # internal state, for warm starts
+    notes: list = field(default_factory=list)
+
+    def to_json(self):
+        return {
+            "converged": bool(self.converged),
+            "residual": float(self.residual),
+            "singular": bool(self.singular),
+            "joints": {k: float(v) for k, v in self.joints.items()},
+            "links": {k: np.asarray(v).tolist() for k, v in self.links.items()},
+        }
+
+
+class Mechanism:
+    """A mechanism read from a file (see :func:`jointwise.load`)."""
+
+    def __init__(self, *, name, length_unit, angle_unit, ground, links, joints,
+                 couplings=None, measures=None, source="<data>"):
+        self.name = name
+        self.length_unit = length_unit
+        self.angle_unit = angle_unit
+        self.ground = ground
+        self.links = dict(links)
+        self.joints = dict(joints)
+        self.couplings = dict(couplings or {})
+        self.measures = dict(measures or {})
+        self.source = source
+        self._angle = ANGLE_UNITS[angle_unit]
+
+        # coordinates
+        self.coordinates = []
+        self._kind = []
+        self._slices = {}
+        for j in self.joints.values():
+            start = len(self.coordinates)
+            self.coordinates.extend(j.coordinates)
+            self._kind.extend(j.kinds)
+            self._slices[j.name] = slice(start, len(self.coordinates))
+        self._index = {c: i for i, c in enumerate(self.coordinates)}
+        self._owner = {}
+        for j in self.joints.values():
+            for c in j.coordinates:
+                self._owner[c] = j.name
+        self.home = np.concatenate([j.home for j in self.joints.values()]) if self.joints else np.zeros(0)
+        self._build_tree()
+        self.size = self._size()
+
+        from .solver import Solver  # noqa: E402  (solver imports this module)
+        self.solver = Solver(self)
+
+    # -- structure -------------------------------------------------------------
+    def _build_tree(self):
+        adj = {name: [] for name in self.links}
+        for j in self.joints.values():
+            adj[j.parent].append((j.name, +1, j.child))
+            adj[j.child].append((j.name, -1, j.parent))
+        self.tree_parent = {self.ground: None}  # link -> (joint, sign) from its tree parent
+        self.depth = {self.ground: 0}
+        self.order = [self.ground]
+        used = set()
+        queue = deque([self.ground])
+        while queue:
+            link = queue.popleft()
+            for jname, sign, other in adj[link]:
+                if other in self.tree_parent or jname in used:
+                    continue
+                used.add(jname)
+                self.tree_parent[other] = (jname, sign)
+                self.depth[other] = self.depth[link] + 1
+                self.order.append(other)
+                queue.append(other)
+        loose = [n for n in self.links if n not in self.tree_parent]
+        if loose:
+            raise SpecError(f"links not connected to ground {self.ground!r}: {', '.join(loose)}",
+                            source=self.source, key="joints")
+        self.tree_joints = used
+        self.loops = []
+        for j in self.joints.values():
+            if j.name in used:
+                continue
+            self.loops.append(self._loop_of(j))
+
+    def _path_up(self, link):
+        """Steps from ``link`` up to ground: list of (link, joint, sign)."""
+        out = []
+        while self.tree_parent[link] is not None:
+            jname, sign = self.tree_parent[link]
+            out.append((link, jname, sign))
+            j = self.joints[jname]
+            link = j.parent if sign > 0 else j.child
+        return out
+
+    def _loop_of(self, cut):
+        up_p = self._path_up(cut.parent)
+        up_c = self._path_up(cut.child)
+        anc_p = [cut.parent] + [self._other(jn, s, ln) for ln, jn, s in up_p]
+        anc_c = [cut.child] + [self._other(jn, s, ln) for ln, jn, s in up_c]
+        common = set(anc_p) & set(anc_c)
+        root = next(a for a in anc_p if a in common)
+        down_p = []  # root -> parent, in walking order
+        for ln, jn, s in up_p:
+            if ln == root:
+                break
+            down_p.append((jn, s))
+        down_p.reverse()
+        up = []  # child -> root: reverse of the tree direction
+        for ln, jn, s in up_c:
+            if ln == root:
+                break
+            up.append((jn, -s))
+        return Loop(cut.name, root, down_p + [(cut.name, +1)] + up)
+
+    def _other(self, jname, sign, link):
+        j = self.joints[jname]
+        return j.parent if sign > 0 else j.child
+
+    def _size(self):
+        pts = [j.point for j in self.joints.values()]
+        if len(pts) < 2:
+            return 1.0
+        p = np.array(pts)
+        d = np.linalg.norm(p[:, None, :] - p[None, :, :], axis=-1).max()
+        return float(max(d, 1.0))
+
+    def coordinate_kind(self, name):
+        """``"angle"`` or ``"length"``."""
+        return self._kind[self._require(name)]
+
+    def joint_of(self, coordinate):
+        """Name of the joint owning ``coordinate``."""
+        self._require(coordinate)
+        return self._owner[coordinate]
+
+    @property
+    def driven(self):
+        """Coordinates of joints with ``drive = true``."""
+        return [c for j in self.joints.values() if j.drive for c in j.coordinates]
+
+    def _require(self, name):
+        try:
+            return self._index[name]
+        except KeyError:
+            import difflib
+            close = difflib.get_close_matches(str(name), self.coordinates, n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else f"; coordinates are: {', '.join(self.coordinates)}"
+            raise SpecError(f"no coordinate named {name!r}{hint}", source=self.source) from None
+
+    # -- units -----------------------------------------------------------------
+    def _unit(self, i):
+        return self._angle if self._kind[i] == "angle" else 1.0
+
+    def to_internal(self, name, value):
+        return float(value) * self._unit(self._require(name))
+
+    def to_file(self, name, value):
+        return value / self._unit(self._require(name))
+
+    def _values_out(self, q):
+        scale = np.array([self._unit(i) for i in range(len(q))])
+        return {c: float(v) for c, v in zip(self.coordinates, q / scale)}
+
+    # -- posing ------------------------------------------------------------------
+    def link_poses(self, q):
+        """Displacements from home of every link for internal coordinates ``q``."""
+        out = {self.ground: np.eye(4)}
+        for link in self.order[1:]:
+            jname, sign = self.tree_parent[link]
+            j = self.joints[jname]
+            e = j.transform(q[self._slices[jname]])
+            if sign > 0:
+                out[link] = out[j.parent] @ e
+            else:
+                from .spatial import inverse
+                out[link] = out[j.child] @ inverse(e)
+        return {name: out[name] for name in self.links}
+
+    def _held_from(self, values):
+        held = {}
+        for name, v in (values or {}).items():
+            i = self._require(name)
+            try:
+                fv = float(v)
+            except (TypeError, ValueError):
+                raise SpecError(f"value of {name!r} must be a number, got {v!r}", source=self.source) from None
+            if not math.isfinite(fv):
+                raise SpecError(f"value of {name!r} must be finite, got {v!r}", source=self.source)
+            held[i] = fv * self._unit(i)
+        return held
+
+    def check_limits(self, held):
+        for i, v in held.items():
+            lim = self.joints[self._owner[self.coordinates[i]]].limits[self._local(i)]
+            if lim is not None and not lim[0] - 1e-12 <= v <= lim[1] + 1e-12:
+                c = self.coordinates[i]
+                u = self._unit(i)
+                unit = self.angle_unit if self._kind[i] == "angle" else self.length_unit
+                raise LimitError(f"{c} = {v / u:g} {unit} lies outside its limits "
+                                 f"[{lim[0] / u:g}, {lim[1] / u:g}] {unit}", joint=c)
+
+    def _local(self, i):
+        return i - self._slices[self._owner[self.coordinates[i]]].start
+
+    def pose(self, values=None, start=None):
+        """Pose the mechanism with the given coordinates held (file units).
+
+        Coordinates of joints with ``drive = true`` that are not given are held at their
+        home value, except that giving a passive coordinate of a loop releases the file's
+        drives in that loop group.  Loop coordinates that are not held are solved;
+        others keep their values (home, or those of ``start``).
+
+        Parameters
+        ----------
+        values : dict, optional
+            Coordinate name -> value in file units.
+        start : Pose, optional
+            Previous pose to start from (warm start; stays on its branch).
+
+        Raises
+        ------
+        LimitError
+            A held value lies outside its joint's limits.
+        AssemblyError
+            The loops cannot be closed (attributes ``loop``, ``error``, ``joint``).
+        """
+        held = self._held_from(values)
+        self.check_limits(held)
+        q, info = self.solver.pose(held, None if start is None else start.q)
+        return self._make_pose(q, info)
+
+    def _make_pose(self, q, info):
+        return Pose(joints=self._values_out(q), links=self.link_poses(q),
+                    converged=info["converged"], residual=info["residual"],
+                    singular=info["singular"], q=q, notes=info.get("notes", []))
+
+    def home_closure(self):
+        """Largest loop-closure error of the file as modelled (length unit or radian)."""
+        return self.solver.closure(self.home)[0]
+
+    def mobility(self, q=None):
+        """Kutzbach count and numeric mobility: see :meth:`jointwise.solver.Solver.mobility`."""
+        return self.solver.mobility(self.home if q is None else q)
+
+    # -- export ----------------------------------------------------------------
+    def to_dict(self):
+        """The mechanism-file structure (file units) of this mechanism."""
+        out = {"format": FORMAT, "mechanism": {"length_unit": self.length_unit,
+                                               "angle_unit": self.angle_unit, "ground": self.ground}}
+        if self.name:
+            out["mechanism"]["name"] = self.name
+        out["links"] = {n: ({"object": l.object} if l.object != n else {}) for n, l in self.links.items()}
+        out["joints"] = {n: dict(j.source) for n, j in self.joints.items()}
+        if self.couplings:
+            out["couplings"] = {n: {"leader": c.leader, "follower": c.follower, "ratio": c.ratio,
+                                    "offset": c.offset} for n, c in self.couplings.items()}
+        if self.measures:
+            ms = {}
+            for n, m in self.measures.items():
+                if m.type == "point":
+                    ms[n] = {"type": "point", "link": m.a[0], "at": list(m.a[1])}
+                elif m.type == "distance":
+                    ms[n] = {"type": "distance", "a": {"link": m.a[0], "at": list(m.a[1])},
+                             "b": {"link": m.b[0], "at": list(m.b[1])}}
+                elif m.type == "angle":
+                    ms[n] = {"type": "angle", "a": {"link": m.a[0], "axis": list(m.a[1])},
+                             "b": {"link": m.b[0], "axis": list(m.b[1])}}
+                else:
+                    ms[n] = {"type": "rate", "of": m.of, "per": m.per}
+            out["measures"] = ms
+        return out
+
+    def __repr__(self):
+        return (f"Mechanism({self.name or self.source!r}: {len(self.links)} links, "
+                f"{len(self.joints)} joints, {len(self.loops)} loops)")
+

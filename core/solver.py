@@ -1,0 +1,615 @@
+"""Loop closure: residuals, the analytic Jacobian, Newton steps, continuation, mobility.
+
+Equations
+---------
+For a loop walked as steps ``(joint, sign)`` from its root link, the loop closes when
+
+    F(q) = T_1 T_2 ... T_n = I,    T_k = E_k(q) if sign > 0 else E_k(q)^-1,
+
+with ``E`` the joints' products of exponentials in the root's home-aligned frame.  The
+residual is the twist ``log(F) = (w, v)`` moved to the point where the loop is cut,
+``(w, v + w x p)``, so its parts read as the angular gap (rad) and the positional gap
+(length unit) at the closing joint.  The Jacobian columns are the joint twists
+carried to the root frame by adjoints, ``Ad(T_1 ... T_{k-1} prefix) S`` (with a minus
+sign and the step's own transform included for reversed steps); this is the exact
+derivative of ``dF F^-1`` and equals the derivative of ``log F`` at closure.
+(Lynch & Park, *Modern Robotics*, 2017, sec. 5.1 (space Jacobian) and sec. 7.1 (closed
+chains); Murray, Li & Sastry 1994, sec. 3.2.)
+
+Solving
+-------
+Loops that share no coordinate (couplings join coordinates into one group) are solved
+as independent blocks, so cost grows linearly with their number.  Each block takes
+Gauss-Newton steps of least norm (SVD pseudo-inverse of the Jacobian scaled to
+dimensionless rows and columns), so rank-deficient sets such as a planar four-bar
+modelled in 3D, or redundant constraints, converge and coordinates no constraint
+determines keep their previous values.  A step that raises the residual is halved.
+Free spherical joints move by rotation increments, so they keep three freedoms at
+every orientation.  Held values are reached by continuation: a tangent predictor
+and a Newton corrector over sub-steps of at most ``MAX_STEP`` (dimensionless); a
+corrector that moves much more than the sub-step is treated as a jump to another
+assembly branch and the sub-step is halved.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import spatial
+from .errors import AssemblyError, SpecError
+
+__all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
+
+#: Converged when every loop closes within this (length unit and radian).
+TOLERANCE = 1e-9
+#: A pose is flagged singular when the smallest (generic-rank) singular value of the
+#: dimensionless constraint Jacobian of the solved coordinates falls below this
+#: fraction of the largest.
+SINGULAR_RATIO = 1e-3
+#: Largest continuation sub-step, dimensionless (radian, or length / mechanism size).
+MAX_STEP = 0.1
+MAX_ITER = 30
+
+
+class _Block:
+    """Loops that share coordinates, solved together."""
+
+    def __init__(self, index, loops, joints, groups):
+        self.index = index
+        self.loops = loops          # list of Loop
+        self.joints = joints        # joint names in these loops (ordered)
+        self.groups = groups        # master indices whose group touches these loops
+
+
+class Solver:
+    def __init__(self, mech):
+        self.m = mech
+        self.L = mech.size
+        n = len(mech.coordinates)
+        self.n = n
+        self._couplings()
+        self._blocks()
+        self._generic_rank = {}
+        self._home_q = None
+        self._home_notes = []
+        self.is_length = np.array([k == "length" for k in mech._kind], dtype=bool)
+        # dimensionless scale of each coordinate
+        self.cscale = np.where(self.is_length, 1.0 / self.L, 1.0)
+        self.rscale = np.array([1, 1, 1, 1 / self.L, 1 / self.L, 1 / self.L])
+
+    # -- couplings: affine groups ------------------------------------------------------
+    def _couplings(self):
+        m = self.m
+        n = len(m.coordinates)
+        self.master = np.arange(n)
+        self.alpha = np.ones(n)
+        self.beta = np.zeros(n)
+        adj = {i: [] for i in range(n)}
+        for c in m.couplings.values():
+            li, fi = m._index[c.leader], m._index[c.follower]
+            ul, uf = m._unit(li), m._unit(fi)
+            a = uf * c.ratio / ul
+            b = uf * c.offset
+            adj[li].append((fi, a, b, c.name))            # q_f = a q_l + b
+            adj[fi].append((li, 1 / a, -b / a, c.name))   # q_l = (q_f - b) / a
+        seen = set()
+        for root in range(n):
+            if root in seen or not adj[root]:
+                continue
+            seen.add(root)
+            stack = [root]
+            while stack:
+                i = stack.pop()
+                for k, a, b, cname in adj[i]:
+                    na, nb = a * self.alpha[i], a * self.beta[i] + b
+                    if k in seen:
+                        if abs(na - self.alpha[k]) > 1e-9 * max(1, abs(na)) or abs(nb - self.beta[k]) > 1e-9 * max(1, abs(nb)):
+                            raise SpecError(f"coupling {cname!r} contradicts the other couplings of "
+                                            f"{m.coordinates[k]!r} (they form a loop with another ratio)",
+                                            source=m.source, key=f"couplings.{cname}")
+                        continue
+                    seen.add(k)
+                    self.master[k], self.alpha[k], self.beta[k] = root, na, nb
+                    stack.append(k)
+        self.members = {}
+        for i in range(n):
+            self.members.setdefault(int(self.master[i]), []).append(i)
+
+    def _blocks(self):
+        m = self.m
+        parent = list(range(len(m.loops)))
+
+        def find(x):
+            while parent[x] != x:
+                parent[x] = parent[parent[x]]
+                x = parent[x]
+            return x
+
+        owner = {}
+        for li, loop in enumerate(m.loops):
+            for jname, _ in loop.steps:
+                for i in range(m._slices[jname].start, m._slices[jname].stop):
+                    g = int(self.master[i])
+                    if g in owner:
+                        parent[find(li)] = find(owner[g])
+                    else:
+                        owner[g] = li
+        groups = {}
+        for li in range(len(m.loops)):
+            groups.setdefault(find(li), []).append(li)
+        self.blocks = []
+        self.block_of_master = {}
+        for bi, lis in enumerate(groups.values()):
+            loops = [m.loops[i] for i in lis]
+            joints = []
+            for loop in loops:
+                for jname, _ in loop.steps:
+                    if jname not in joints:
+                        joints.append(jname)
+            masters = sorted({int(self.master[i]) for jn in joints
+                              for i in range(m._slices[jn].start, m._slices[jn].stop)})
+            self.blocks.append(_Block(bi, loops, joints, masters))
+            for g in masters:
+                self.block_of_master[g] = bi
+
+    # -- evaluation --------------------------------------------------------------------
+    def _layout(self, block, held_masters):
+        """Unknown columns of a block: list of ("m", master) or ("s", joint, 0..2)."""
+        m = self.m
+        cols = []
+        rot = set()
+        for jn in block.joints:
+            j = m.joints[jn]
+            if j.type != "spherical":
+                continue
+            idx = range(m._slices[jn].start, m._slices[jn].stop)
+            if all(self.master[i] == i and len(self.members[i]) == 1 and i not in held_masters for i in idx):
+                rot.add(jn)
+        for g in block.groups:
+            if g in held_masters:
+                continue
+            if m._owner[m.coordinates[g]] in rot and len(self.members[g]) == 1:
+                continue
+            cols.append(("m", g))
+        for jn in block.joints:
+            if jn in rot:
+                cols.extend(("s", jn, k) for k in range(3))
+        return cols, rot
+
+    def _joint_data(self, block, q, rot):
+        """Transform and twist columns of each joint of a block."""
+        m = self.m
+        out = {}
+        for jn in block.joints:
+            j = m.joints[jn]
+            e, x = j.partials(q[m._slices[jn]])
+            if jn in rot:
+                x = j.rotation_twists()
+            out[jn] = (e, x)
+        return out
+
+    def _eval(self, block, q, cols, rot, jac=True):
+        """Residual (6 per loop, at the cut), per-loop errors and the Jacobian."""
+        m = self.m
+        data = self._joint_data(block, q, rot)
+        nl = len(block.loops)
+        r = np.zeros(6 * nl)
+        errs = np.zeros(nl)
+        J = np.zeros((6 * nl, len(cols))) if jac else None
+        for li, loop in enumerate(block.loops):
+            a = np.eye(4)
+            site = None
+            rows = {} if jac else None
+            srows = {} if jac else None
+            for jn, sign in loop.steps:
+                e, x = data[jn]
+                if jn == loop.name:
+                    site = a @ np.append(m.joints[jn].point, 1.0)
+                if sign > 0:
+                    ad = spatial.adjoint(a) if jac else None
+                    a = a @ e
+                else:
+                    a = a @ spatial.inverse(e)
+                    ad = -spatial.adjoint(a) if jac else None
+                if not jac:
+                    continue
+                tw = x @ ad.T  # (k, 6): Ad @ x_k for each column
+                if jn in rot:
+                    srows[jn] = srows.get(jn, 0) + tw.T
+                else:
+                    for k, i in enumerate(range(m._slices[jn].start, m._slices[jn].stop)):
+                        rows[i] = rows[i] + tw[k] if i in rows else tw[k]
+            w_r = spatial.log6(a)
+            p = site[:3]
+            w, v = w_r[:3], w_r[3:] + np.cross(w_r[:3], p)
+            r[6 * li:6 * li + 3] = w
+            r[6 * li + 3:6 * li + 6] = v
+            errs[li] = max(np.abs(w).max(), np.abs(v).max())
+            if jac:
+                shift = np.eye(6)
+                shift[3:, :3] = -spatial.hat(p)
+                for ci, c in enumerate(cols):
+                    if c[0] == "m":
+                        col = np.zeros(6)
+                        for i in self.members[c[1]]:
+                            if i in rows:
+                                col = col + self.alpha[i] * rows[i]
+                    else:
+                        if c[1] not in srows:
+                            continue
+                        col = srows[c[1]][:, c[2]]
+                    J[6 * li:6 * li + 6, ci] = shift @ col
+        return r, errs, J
+
+    def _col_scale(self, cols):
+        return np.array([self.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+
+    def _row_scale(self, nl):
+        return np.tile(self.rscale, nl)
+
+    def _apply(self, q, cols, rot, du):
+        """Add a step ``du`` over the unknown columns to state ``q`` (in place)."""
+        m = self.m
+        sph = {}
+        for c, d in zip(cols, du):
+            if c[0] == "m":
+                g = c[1]
+                q[g] += d
+            else:
+                sph.setdefault(c[1], np.zeros(3))[c[2]] = d
+        self._derive(q, [c[1] for c in cols if c[0] == "m"])
+        for jn, d in sph.items():
+            j = m.joints[jn]
+            sl = m._slices[jn]
+            tw = d @ j.rotation_twists()
+            e = spatial.exp6(tw) @ j.transform(q[sl])
+            q[sl] = j.coordinates_from_transform(e)
+
+    def _derive(self, q, masters):
+        for g in masters:
+            for i in self.members[g]:
+                if i != g:
+                    q[i] = self.alpha[i] * q[g] + self.beta[i]
+
+    # -- Newton corrector ---------------------------------------------------------------
+    def _newton(self, block, q, cols, rot):
+        """Close the block's loops from ``q`` (in place).  Returns (ok, err, loop_errs)."""
+        nl = len(block.loops)
+        rs = self._row_scale(nl)
+        cs = self._col_scale(cols)
+        r, errs, J = self._eval(block, q, cols, rot)
+        err = errs.max()
+        best = (err, q.copy(), errs)
+        step_scale = 1.0
+        for _ in range(MAX_ITER):
+            if err <= TOLERANCE:
+                return True, err, errs
+            if not cols:
+                break
+            Js = J * rs[:, None] * cs[None, :]
+            du_s = np.linalg.lstsq(Js, -r * rs, rcond=1e-10)[0]
+            big = np.abs(du_s).max() if du_s.size else 0.0
+            if big > 0.5:
+                du_s *= 0.5 / big
+            q_old = q.copy()
+            accepted = False
+            for _half in range(8):
+                self._apply(q, cols, rot, du_s * cs * step_scale)
+                r2, errs2, J2 = self._eval(block, q, cols, rot)
+                if np.linalg.norm(r2 * rs) < np.linalg.norm(r * rs) or errs2.max() <= TOLERANCE:
+                    accepted = True
+                    break
+                q[:] = q_old
+                step_scale *= 0.5
+            if not accepted:
+                break
+            step_scale = min(1.0, step_scale * 2)
+            r, errs, J = r2, errs2, J2
+            err = errs.max()
+            if err < best[0]:
+                best = (err, q.copy(), errs)
+        if err <= TOLERANCE:
+            return True, err, errs
+        q[:] = best[1]
+        return False, best[0], best[2]
+
+    # -- public ----------------------------------------------------------------------------
+    def closure(self, q):
+        """(largest error, per-loop errors) of state ``q``."""
+        errs = []
+        for b in self.blocks:
+            errs.extend(self._eval(b, q, [], set(), jac=False)[1])
+        return (max(errs) if errs else 0.0), errs
+
+    def home_state(self):
+        """The home state, settled onto closure if within the assembly tolerance."""
+        if self._home_q is not None:
+            return self._home_q.copy()
+        from .mechanism import ASSEMBLY_TOLERANCE
+        m = self.m
+        q = m.home.copy()
+        notes = []
+        for b in self.blocks:
+            cols, rot = self._layout(b, set())
+            r, errs, _ = self._eval(b, q, cols, rot, jac=False)
+            if errs.max() <= TOLERANCE:
+                continue
+            worst = int(np.argmax(errs))
+            rw = r.reshape(-1, 6)[worst]
+            ang, pos = np.abs(rw[:3]).max(), np.abs(rw[3:]).max()
+            loop = b.loops[worst].name
+            if ang > ASSEMBLY_TOLERANCE or pos > ASSEMBLY_TOLERANCE * self.L:
+                raise AssemblyError(
+                    f"loop closed by joint {loop!r} does not close at home: gap {pos:.3g} {m.length_unit}, "
+                    f"{math.degrees(ang):.3g} deg (assembly tolerance {ASSEMBLY_TOLERANCE * self.L:.3g} "
+                    f"{m.length_unit}, {math.degrees(ASSEMBLY_TOLERANCE):.3g} deg)", loop=loop, error=float(errs.max()))
+            drives = {int(self.master[i]) for i, c in enumerate(m.coordinates) if c in m.driven}
+            held = set(drives) & set(b.groups)
+            cols, rot = self._layout(b, held)
+            ok, err, _ = self._newton(b, q, cols, rot)
+            if not ok:
+                raise AssemblyError(f"loop closed by joint {loop!r} could not be settled at home "
+                                    f"(closest error {err:.3g})", loop=loop, error=float(err))
+            notes.append(f"home placement settled: loop closed by joint {loop!r} was off by "
+                         f"{pos:.3g} {m.length_unit} and {math.degrees(ang):.3g} deg")
+        self._home_q = q
+        self._home_notes = notes
+        return q.copy()
+
+    def pose(self, held, q_start=None):
+        """Solve with coordinates ``held`` (index -> internal value).  Returns (q, info)."""
+        m = self.m
+        q = self.home_state() if q_start is None else np.array(q_start, dtype=float)
+        notes = list(self._home_notes) if q_start is None else []
+        explicit = dict(held)
+        # which groups are held: explicit ones, plus the file's drives (released in a block
+        # where a passive coordinate is given)
+        released = set()
+        driven = set(m._index[c] for c in m.driven)
+        for i in explicit:
+            if i not in driven and int(self.master[i]) in self.block_of_master:
+                released.add(self.block_of_master[int(self.master[i])])
+        target = {}
+        source = {}
+        for i, v in explicit.items():
+            self._hold(target, source, i, v)
+        for i in driven:
+            g = int(self.master[i])
+            if i in explicit or g in target:
+                continue
+            if self.block_of_master.get(g) in released:
+                continue
+            self._hold(target, source, i, q[i])
+        # coordinates outside every loop: set directly
+        for g, v in target.items():
+            if g not in self.block_of_master:
+                q[g] = v
+                self._derive(q, [g])
+        singular = False
+        worst = 0.0
+        for b in self.blocks:
+            held_b = {g: target[g] for g in b.groups if g in target}
+            err, sing = self._solve_block(b, q, held_b, source)
+            worst = max(worst, err)
+            singular = singular or sing
+        self._check_passive_limits(q, set(target))
+        return q, {"converged": worst <= TOLERANCE, "residual": float(worst),
+                   "singular": bool(singular), "notes": notes}
+
+    def _hold(self, target, source, i, v):
+        g = int(self.master[i])
+        gv = (v - self.beta[i]) / self.alpha[i]
+        if g in target and abs(target[g] - gv) > 1e-9 * max(1.0, abs(gv)):
+            other = source[g]
+            raise AssemblyError(f"held values of {self.m.coordinates[i]!r} and {self.m.coordinates[other]!r} "
+                                f"contradict their coupling", joint=self.m.coordinates[i], error=abs(target[g] - gv))
+        target[g] = gv
+        source.setdefault(g, i)
+
+    def _solve_block(self, b, q, held_b, source):
+        m = self.m
+        cols, rot = self._layout(b, set(held_b))
+        cs = self._col_scale(cols)
+        rs = self._row_scale(len(b.loops))
+        h0 = {g: q[g] for g in held_b}
+        dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in held_b])
+        span = float(np.abs(dh).max()) if dh.size else 0.0
+        t = 0.0
+        dt = 1.0 if span <= MAX_STEP else MAX_STEP / span
+        last_err = None
+        while True:
+            t1 = min(1.0, t + dt)
+            trial = q.copy()
+            for g in held_b:
+                trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
+            self._derive(trial, list(held_b))
+            # tangent predictor: d(unknown) = -pinv(J_u) J_h d(held)
+            if held_b and cols and t1 > t:
+                hcols = [("m", g) for g in held_b]
+                _, _, Jh = self._eval(b, q, hcols, rot)
+                _, _, Ju = self._eval(b, q, cols, rot)
+                dhv = np.array([trial[g] - q[g] for g in held_b])
+                rhs = -(Jh @ dhv) * rs
+                pred = np.linalg.lstsq(Ju * rs[:, None] * cs[None, :], rhs, rcond=1e-6)[0] * cs
+                self._apply(trial, cols, rot, pred)
+            before = trial.copy()
+            ok, err, errs = self._newton(b, trial, cols, rot)
+            last_err = (err, errs)
+            jump = False
+            if ok and t1 > t:
+                moved = self._dist(before, trial, cols)
+                step = float(np.abs(dh).max()) * (t1 - t) if dh.size else 0.0
+                jump = moved > max(0.5 * step, 1e-4) and dt > 1e-6
+            if ok and not jump:
+                q[:] = trial
+                t = t1
+                if t >= 1.0:
+                    break
+                dt = min(dt * 1.5, MAX_STEP / span if span > MAX_STEP else 1.0)
+                continue
+            dt *= 0.5
+            if dt < 1e-7 or (t1 == t):
+                self._fail(b, q, held_b, source, err, errs, h0)
+        return last_err[0], self._singular(b, q, cols, rot, rs, cs)
+
+    def _dist(self, a, b, cols):
+        d = 0.0
+        for c in cols:
+            if c[0] == "m":
+                d = max(d, abs(a[c[1]] - b[c[1]]) * self.cscale[c[1]])
+        for jn in {c[1] for c in cols if c[0] == "s"}:
+            sl = self.m._slices[jn]
+            j = self.m.joints[jn]
+            rel = j.transform(a[sl])[:3, :3].T @ j.transform(b[sl])[:3, :3]
+            d = max(d, float(np.linalg.norm(spatial.log3(rel))))
+        return d
+
+    def _fail(self, b, q, held_b, source, err, errs, h0):
+        m = self.m
+        worst = int(np.argmax(errs)) if len(errs) else 0
+        loop = b.loops[worst].name
+        moving = [g for g in held_b if abs(held_b[g] - h0[g]) > 0]
+        blame = None
+        if moving:
+            g = max(moving, key=lambda g: abs(held_b[g] - h0[g]) * self.cscale[g])
+            blame = m.coordinates[source.get(g, g)]
+        where = ""
+        if blame is not None:
+            i = m._index[blame]
+            unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+            reached = q[int(self.master[i])] * self.alpha[i] + self.beta[i]
+            where = (f"; the held value of {blame!r} is likely out of reach "
+                     f"(the loop stays closed only up to about {m.to_file(blame, reached):.6g} {unit})")
+        raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
+                            f"(closest closure error reached){where}", loop=loop, error=float(err), joint=blame)
+
+    def _singular(self, b, q, cols, rot, rs, cs):
+        if not cols:
+            return False
+        _, _, J = self._eval(b, q, cols, rot)
+        s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False)
+        if s.size == 0 or s[0] == 0:
+            return False
+        rank = int((s > 1e-9 * s[0]).sum())
+        key = (b.index, tuple(cols))
+        generic = max(self._generic_rank.get(key, 0), rank)
+        self._generic_rank[key] = generic
+        return bool(s[generic - 1] < SINGULAR_RATIO * s[0]) if generic > 0 else False
+
+    def _check_passive_limits(self, q, held_groups):
+        m = self.m
+        for i, c in enumerate(m.coordinates):
+            if int(self.master[i]) in held_groups:
+                continue
+            j = m.joints[m._owner[c]]
+            lim = j.limits[i - m._slices[j.name].start]
+            if lim is None:
+                continue
+            if not lim[0] - 1e-9 <= q[i] <= lim[1] + 1e-9:
+                u = m._unit(i)
+                unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+                from .errors import LimitError
+                raise LimitError(f"infeasible: the closed placement puts {c} at {q[i] / u:.6g} {unit}, "
+                                 f"outside its limits [{lim[0] / u:g}, {lim[1] / u:g}] {unit}", joint=c)
+
+    # -- mobility ----------------------------------------------------------------------
+    def full_jacobian(self, q):
+        """Constraint Jacobian over every coordinate (rows: 6 per loop, then couplings).
+
+        Dimensionless (rows and columns scaled); free spherical joints use rotation
+        increments, which span the same three freedoms without a gimbal lock.
+        """
+        m = self.m
+        rows = []
+        for b in self.blocks:
+            cols, rot = self._layout(b, set())
+            # expand masters to every member coordinate so couplings appear as rows
+            full = []
+            for c in cols:
+                if c[0] == "m":
+                    full.extend(("c", i) for i in self.members[c[1]])
+                else:
+                    full.append(c)
+            nl = len(b.loops)
+            rs = self._row_scale(nl)
+            _, _, J = self._eval_members(b, q, full, rot)
+            block = np.zeros((6 * nl, self.n))
+            for ci, c in enumerate(full):
+                idx = c[1] if c[0] == "c" else m._slices[c[1]].start + c[2]
+                block[:, idx] = J[:, ci] * (self.cscale[idx] if c[0] == "c" else 1.0)
+            rows.append(block * rs[:, None])
+        for c in m.couplings.values():
+            row = np.zeros(self.n)
+            li, fi = m._index[c.leader], m._index[c.follower]
+            a = m._unit(fi) * c.ratio / m._unit(li)
+            row[fi] = 1.0 / self.cscale[fi]
+            row[li] = -a / self.cscale[li]
+            row /= np.abs(row).max()
+            rows.append(row[None, :])
+        return np.vstack(rows) if rows else np.zeros((0, self.n))
+
+    def _eval_members(self, b, q, full, rot):
+        # like _eval, but with one column per coordinate (no coupling elimination)
+        saved = (self.master, self.alpha, self.members)
+        self.master = np.arange(self.n)
+        self.alpha = np.ones(self.n)
+        self.members = {i: [i] for i in range(self.n)}
+        try:
+            cols = [("m", c[1]) if c[0] == "c" else c for c in full]
+            return self._eval(b, q, cols, rot)
+        finally:
+            self.master, self.alpha, self.members = saved
+
+    def mobility(self, q):
+        """Mobility counts at state ``q``.
+
+        Returns a dict: ``kutzbach`` (Grubler-Kutzbach count, planar form when the
+        mechanism is planar, else spatial; each coupling removes one freedom),
+        ``form``, ``numeric`` (coordinates minus the rank of the constraint Jacobian),
+        ``redundant`` (constraint equations of the form minus that rank), ``spatial``.
+
+        The count: M = 6 (n - 1) - sum(6 - f_i) (spatial), M = 3 (n - 1) - sum(3 - f_i)
+        (planar), n links including ground, f_i the freedoms of joint i (Kutzbach 1929;
+        any mechanism text, e.g. Uicker, Pennock & Shigley, *Theory of Machines and
+        Mechanisms*, sec. 1.7).
+        """
+        m = self.m
+        nlinks = len(m.links)
+        fs = [len(j.kinds) for j in m.joints.values()]
+        spatial_k = 6 * (nlinks - 1) - sum(6 - f for f in fs) - len(m.couplings)
+        planar = self._is_planar()
+        form = "planar" if planar else "spatial"
+        if planar:
+            k = 3 * (nlinks - 1) - sum(3 - f for f in fs) - len(m.couplings)
+        else:
+            k = spatial_k
+        J = self.full_jacobian(q)
+        if J.size:
+            s = np.linalg.svd(J, compute_uv=False)
+            rank = int((s > 1e-8 * max(s[0], 1e-300)).sum()) if s.size else 0
+        else:
+            rank = 0
+        per_loop = 3 if planar else 6
+        equations = per_loop * len(m.loops) + len(m.couplings)
+        numeric = self.n - rank
+        return {"kutzbach": int(k), "form": form, "numeric": int(numeric),
+                "redundant": int(equations - rank), "spatial": int(spatial_k)}
+
+    def _is_planar(self):
+        m = self.m
+        js = [j for j in m.joints.values() if j.type != "fixed"]
+        if not js or any(j.type not in ("revolute", "prismatic", "planar") for j in js):
+            return False
+        normals = [j.axis for j in js if j.type in ("revolute", "planar")]
+        slides = [j.axis for j in js if j.type == "prismatic"]
+        if normals:
+            n = normals[0]
+        else:
+            if len(slides) < 2:
+                return True
+            sv = np.linalg.svd(np.array(slides), compute_uv=False)
+            return bool(sv[2] < 1e-9 * sv[0]) if len(slides) >= 3 else True
+        par = all(np.linalg.norm(np.cross(n, a)) < 1e-9 for a in normals)
+        perp = all(abs(np.dot(n, a)) < 1e-9 for a in slides)
+        return par and perp

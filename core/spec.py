@@ -1,0 +1,355 @@
+"""Reading and validating mechanism files (TOML, or the same structure as JSON).
+
+Every problem raises :class:`SpecError` whose message names the file, the key path
+and what is wrong, e.g. ``vise.toml: joints.screw.axis: axis has zero length``.
+Loaders only parse data (``tomllib``, ``json``); nothing in a file is executed.
+"""
+from __future__ import annotations
+
+import difflib
+import json
+import math
+import os
+import tomllib
+
+from .errors import JointwiseError, SpecError
+from .joints import JOINT_TYPES, Joint, lead_from_angle, thread_lead
+
+__all__ = ["load", "loads", "from_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT"]
+
+FORMAT = 1
+#: Length units accepted, with their size in millimetres.
+LENGTH_UNITS = {"mm": 1.0, "cm": 10.0, "m": 1000.0, "in": 25.4}
+#: Angle units accepted, with their size in radians.
+ANGLE_UNITS = {"deg": math.pi / 180, "rad": 1.0}
+
+TOP_KEYS = ("format", "mechanism", "links", "joints", "couplings", "measures")
+MECHANISM_KEYS = ("name", "length_unit", "angle_unit", "ground")
+LINK_KEYS = ("object",)
+JOINT_KEYS = ("type", "parent", "child", "point", "axis", "axis2", "home", "limits", "drive",
+              "lead", "pitch", "starts", "lead_angle", "diameter", "thread", "hand")
+COUPLING_KEYS = ("leader", "follower", "ratio", "offset")
+MEASURE_TYPES = {
+    "point": ("type", "link", "at"),
+    "distance": ("type", "a", "b"),
+    "angle": ("type", "a", "b"),
+    "rate": ("type", "of", "per"),
+}
+
+
+class _Reader:
+    """Typed access to a nested dict, naming the key path in every error."""
+
+    def __init__(self, source):
+        self.source = source
+
+    def fail(self, key, message):
+        raise SpecError(message, source=self.source, key=key)
+
+    def table(self, data, key):
+        if not isinstance(data, dict):
+            self.fail(key, f"expected a table, got {type(data).__name__}")
+        return data
+
+    def keys(self, data, key, allowed):
+        for k in data:
+            if k not in allowed:
+                close = difflib.get_close_matches(str(k), allowed, n=1)
+                hint = f"; did you mean {close[0]!r}?" if close else f"; known keys: {', '.join(allowed)}"
+                self.fail(f"{key}.{k}" if key else str(k), f"unknown key{hint}")
+
+    def number(self, value, key):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            self.fail(key, f"expected a number, got {value!r}")
+        if not math.isfinite(value):
+            self.fail(key, f"number must be finite, got {value!r}")
+        return float(value)
+
+    def vector(self, value, key):
+        if not isinstance(value, (list, tuple)) or len(value) != 3:
+            self.fail(key, f"expected [x, y, z], got {value!r}")
+        return [self.number(v, f"{key}[{i}]") for i, v in enumerate(value)]
+
+    def direction(self, value, key, what="axis"):
+        v = self.vector(value, key)
+        if math.sqrt(sum(c * c for c in v)) < 1e-12:
+            self.fail(key, f"{what} has zero length")
+        return v
+
+    def text(self, value, key):
+        if not isinstance(value, str) or not value:
+            self.fail(key, f"expected a non-empty string, got {value!r}")
+        return value
+
+    def choice(self, value, key, options):
+        if value not in options:
+            close = difflib.get_close_matches(str(value), list(options), n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            self.fail(key, f"{value!r} is not one of {', '.join(options)}{hint}")
+        return value
+
+
+def load(path):
+    """Read a mechanism file (``.toml`` or ``.json``) and return a :class:`Mechanism`."""
+    name = os.path.basename(str(path))
+    try:
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except OSError as exc:
+        raise SpecError(f"cannot read file: {exc.strerror or exc}", source=name) from None
+    return loads(raw, source=name, fmt="json" if name.lower().endswith(".json") else "toml")
+
+
+def loads(text, *, source="<text>", fmt="toml"):
+    """Parse mechanism text (TOML or JSON) and return a :class:`Mechanism`."""
+    if isinstance(text, bytes):
+        try:
+            text = text.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise SpecError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", source=source) from None
+    try:
+        if fmt == "json":
+            data = json.loads(text, parse_constant=lambda c: float(c))
+        else:
+            data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"not valid TOML: {exc}", source=source) from None
+    except json.JSONDecodeError as exc:
+        raise SpecError(f"not valid JSON: {exc.msg} (line {exc.lineno}, column {exc.colno})", source=source) from None
+    return from_dict(data, source=source)
+
+
+def from_dict(data, source="<data>"):
+    """Build a :class:`Mechanism` from the mechanism-file structure held in a dict."""
+    from .mechanism import Coupling, Link, Mechanism, Measure
+
+    r = _Reader(source)
+    r.table(data, "")
+    r.keys(data, "", TOP_KEYS)
+    fmt = data.get("format", FORMAT)
+    if fmt != FORMAT:
+        r.fail("format", f"this jointwise reads format {FORMAT}, got {fmt!r}")
+    mech = r.table(data.get("mechanism", {}), "mechanism")
+    r.keys(mech, "mechanism", MECHANISM_KEYS)
+    lu = r.choice(mech.get("length_unit", "mm"), "mechanism.length_unit", list(LENGTH_UNITS))
+    au = r.choice(mech.get("angle_unit", "deg"), "mechanism.angle_unit", list(ANGLE_UNITS))
+    if "ground" not in mech:
+        r.fail("mechanism.ground", "required key missing (the name of the fixed link)")
+    ground = r.text(mech["ground"], "mechanism.ground")
+    name = mech.get("name", "")
+    if not isinstance(name, str):
+        r.fail("mechanism.name", f"expected text, got {name!r}")
+    deg = ANGLE_UNITS[au]
+    mm = LENGTH_UNITS[lu]
+
+    links = {}
+    for lname, ld in r.table(data.get("links", {}), "links").items():
+        key = f"links.{lname}"
+        ld = r.table(ld, key)
+        r.keys(ld, key, LINK_KEYS)
+        obj = r.text(ld["object"], f"{key}.object") if "object" in ld else lname
+        links[lname] = Link(lname, obj)
+    if not links:
+        r.fail("links", "no links defined")
+    if ground not in links:
+        r.fail("mechanism.ground", f"ground {ground!r} is not a link; links are: {', '.join(links)}")
+
+    joints = {}
+    for jname, jd in r.table(data.get("joints", {}), "joints").items():
+        key = f"joints.{jname}"
+        jd = r.table(jd, key)
+        joints[jname] = _joint(r, key, jname, jd, links, deg, mm)
+
+    coords = {}
+    for j in joints.values():
+        for c, kind in zip(j.coordinates, j.kinds):
+            if c in coords:
+                r.fail(f"joints.{j.name}", f"coordinate name {c!r} clashes with another joint's")
+            coords[c] = kind
+
+    couplings = {}
+    for cname, cd in r.table(data.get("couplings", {}), "couplings").items():
+        key = f"couplings.{cname}"
+        cd = r.table(cd, key)
+        r.keys(cd, key, COUPLING_KEYS)
+        for k in ("leader", "follower", "ratio"):
+            if k not in cd:
+                r.fail(f"{key}.{k}", "required key missing")
+        leader = _coord_ref(r, cd["leader"], f"{key}.leader", coords)
+        follower = _coord_ref(r, cd["follower"], f"{key}.follower", coords)
+        if leader == follower:
+            r.fail(f"{key}.follower", "follower must differ from leader")
+        ratio = r.number(cd["ratio"], f"{key}.ratio")
+        if ratio == 0:
+            r.fail(f"{key}.ratio", "ratio must not be 0 (that would hold the follower, use drive)")
+        offset = r.number(cd.get("offset", 0.0), f"{key}.offset")
+        couplings[cname] = Coupling(cname, leader, follower, ratio, offset)
+
+    measures = {}
+    for mname, md in r.table(data.get("measures", {}), "measures").items():
+        key = f"measures.{mname}"
+        md = r.table(md, key)
+        if "type" not in md:
+            r.fail(f"{key}.type", f"required key missing; one of {', '.join(MEASURE_TYPES)}")
+        mtype = r.choice(md["type"], f"{key}.type", list(MEASURE_TYPES))
+        r.keys(md, key, MEASURE_TYPES[mtype])
+        measures[mname] = _measure(r, key, mname, mtype, md, links, coords, Measure)
+
+    m = Mechanism(name=name, length_unit=lu, angle_unit=au, ground=ground, links=links,
+                  joints=joints, couplings=couplings, measures=measures, source=source)
+    return m
+
+
+def _coord_ref(r, value, key, coords):
+    value = r.text(value, key)
+    if value not in coords:
+        close = difflib.get_close_matches(value, list(coords), n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        r.fail(key, f"no coordinate named {value!r}{hint}")
+    return value
+
+
+def _link_ref(r, value, key, links):
+    value = r.text(value, key)
+    if value not in links:
+        close = difflib.get_close_matches(value, list(links), n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else f"; links are: {', '.join(links)}"
+        r.fail(key, f"no link named {value!r}{hint}")
+    return value
+
+
+def _measure(r, key, name, mtype, md, links, coords, Measure):
+    def end(sub, want):
+        k = f"{key}.{sub}"
+        d = r.table(md.get(sub), k) if sub in md else r.fail(k, "required key missing")
+        r.keys(d, k, ("link", want))
+        if "link" not in d or want not in d:
+            r.fail(k, f"expected {{link = ..., {want} = [x, y, z]}}")
+        link = _link_ref(r, d["link"], f"{k}.link", links)
+        vec = r.direction(d[want], f"{k}.{want}") if want == "axis" else r.vector(d[want], f"{k}.{want}")
+        return link, vec
+
+    for k in MEASURE_TYPES[mtype]:
+        if k not in md:
+            r.fail(f"{key}.{k}", "required key missing")
+    if mtype == "point":
+        link = _link_ref(r, md["link"], f"{key}.link", links)
+        return Measure(name, mtype, a=(link, r.vector(md["at"], f"{key}.at")))
+    if mtype == "distance":
+        return Measure(name, mtype, a=end("a", "at"), b=end("b", "at"))
+    if mtype == "angle":
+        return Measure(name, mtype, a=end("a", "axis"), b=end("b", "axis"))
+    return Measure(name, mtype, of=_coord_ref(r, md["of"], f"{key}.of", coords),
+                   per=_coord_ref(r, md["per"], f"{key}.per", coords))
+
+
+def _joint(r, key, name, jd, links, deg, mm):
+    r.keys(jd, key, JOINT_KEYS)
+    for k in ("type", "parent", "child"):
+        if k not in jd:
+            r.fail(f"{key}.{k}", "required key missing")
+    jtype = r.choice(jd["type"], f"{key}.type", list(JOINT_TYPES))
+    parent = _link_ref(r, jd["parent"], f"{key}.parent", links)
+    child = _link_ref(r, jd["child"], f"{key}.child", links)
+    if parent == child:
+        r.fail(f"{key}.child", f"joint joins link {parent!r} to itself (parent equals child)")
+    kinds = JOINT_TYPES[jtype]
+    n = len(kinds)
+    point = r.vector(jd.get("point", [0, 0, 0]), f"{key}.point")
+    if jtype != "fixed" and "axis" not in jd:
+        r.fail(f"{key}.axis", "required key missing")
+    axis = r.direction(jd.get("axis", [0, 0, 1]), f"{key}.axis")
+    axis2 = None
+    if "axis2" in jd:
+        if jtype not in ("universal", "spherical", "planar"):
+            r.fail(f"{key}.axis2", f"only universal, spherical and planar joints take axis2, not {jtype}")
+        axis2 = r.direction(jd["axis2"], f"{key}.axis2", "axis2")
+    elif jtype == "universal":
+        r.fail(f"{key}.axis2", "required key missing (the cross arm fixed in the child)")
+
+    def to_internal(v, kind):
+        return v * deg if kind == "angle" else v
+
+    # home: a number for one coordinate (or all), or a list with one value per coordinate
+    h = jd.get("home", 0)
+    if isinstance(h, list):
+        if len(h) != n:
+            r.fail(f"{key}.home", f"expected {n} values (one per coordinate), got {len(h)}")
+        home = [to_internal(r.number(v, f"{key}.home[{i}]"), kinds[i]) for i, v in enumerate(h)]
+    else:
+        hv = r.number(h, f"{key}.home")
+        home = [to_internal(hv, k) for k in kinds]
+
+    limits = [None] * n
+    if "limits" in jd:
+        lim = jd["limits"]
+        pairs = lim if (n > 1 and isinstance(lim, list) and lim and isinstance(lim[0], list)) else [lim] * max(n, 1)
+        if n > 1 and len(pairs) != n:
+            r.fail(f"{key}.limits", f"expected {n} pairs [lo, hi], one per coordinate, got {len(pairs)}")
+        for i in range(n):
+            p = pairs[i]
+            k = f"{key}.limits" if n == 1 else f"{key}.limits[{i}]"
+            if not isinstance(p, list) or len(p) != 2:
+                r.fail(k, f"expected [lo, hi], got {p!r}")
+            lo, hi = (r.number(v, k) for v in p)
+            if lo > hi:
+                r.fail(k, f"lower limit {lo:g} is above upper limit {hi:g}")
+            limits[i] = (to_internal(lo, kinds[i]), to_internal(hi, kinds[i]))
+            if not lo - 1e-12 <= home[i] / (deg if kinds[i] == "angle" else 1) <= hi + 1e-12:
+                r.fail(k, f"home value {home[i] / (deg if kinds[i] == 'angle' else 1):g} lies outside the limits [{lo:g}, {hi:g}]")
+    drive = jd.get("drive", False)
+    if not isinstance(drive, bool):
+        r.fail(f"{key}.drive", f"expected true or false, got {drive!r}")
+
+    helical_keys = [k for k in ("lead", "pitch", "starts", "lead_angle", "diameter", "thread", "hand") if k in jd]
+    lead = 0.0
+    if jtype != "helical":
+        if helical_keys:
+            r.fail(f"{key}.{helical_keys[0]}", f"only helical joints take {helical_keys[0]}, not {jtype}")
+    else:
+        lead = _lead(r, key, jd, deg, mm)
+    try:
+        return Joint(name=name, type=jtype, parent=parent, child=child, point=point, axis=axis,
+                     axis2=axis2, home=home, limits=limits, drive=drive, lead=lead, source=dict(jd))
+    except JointwiseError as exc:
+        r.fail(key, str(exc))
+
+
+def _lead(r, key, jd, deg, mm):
+    ways = [w for w in ("lead", "pitch", "lead_angle", "thread") if w in jd]
+    if len(ways) != 1:
+        r.fail(key, "a helical joint needs exactly one of: lead, pitch (with starts), "
+                    f"lead_angle (with diameter), thread; got {', '.join(ways) or 'none'}")
+    way = ways[0]
+    for k, needs in (("starts", "pitch"), ("diameter", "lead_angle")):
+        if k in jd and way != needs and not (k == "diameter" and way == "thread"):
+            r.fail(f"{key}.{k}", f"{k} goes with {needs}, not {way}")
+    if way == "lead":
+        lead = r.number(jd["lead"], f"{key}.lead")
+    elif way == "pitch":
+        pitch = r.number(jd["pitch"], f"{key}.pitch")
+        starts = jd.get("starts", 1)
+        if isinstance(starts, bool) or not isinstance(starts, int) or starts < 1:
+            r.fail(f"{key}.starts", f"expected a whole number >= 1, got {starts!r}")
+        lead = pitch * starts
+    elif way == "lead_angle":
+        if "diameter" not in jd:
+            r.fail(f"{key}.diameter", "lead_angle needs diameter (tan(lead angle) = lead / (pi * diameter))")
+        lam = r.number(jd["lead_angle"], f"{key}.lead_angle") * deg
+        d = r.number(jd["diameter"], f"{key}.diameter")
+        if d <= 0:
+            r.fail(f"{key}.diameter", f"diameter must be positive, got {d:g}")
+        if not 0 <= lam <= math.pi / 2 + 1e-12:
+            r.fail(f"{key}.lead_angle", "lead angle must lie between 0 and 90 degrees")
+        lead = math.inf if abs(lam - math.pi / 2) < 1e-12 else lead_from_angle(lam, d)
+    else:
+        try:
+            t = thread_lead(r.text(jd["thread"], f"{key}.thread"))
+        except JointwiseError as exc:
+            r.fail(f"{key}.thread", str(exc))
+        lead = t["lead"] / mm  # presets are in millimetres
+    if not lead >= 0:
+        r.fail(f"{key}.{way}", "lead must not be negative; use hand = \"left\" for a left-hand thread")
+    hand = jd.get("hand", "right")
+    r.choice(hand, f"{key}.hand", ["right", "left"])
+    return lead if hand == "right" else -lead
