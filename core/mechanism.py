@@ -327,6 +327,22 @@ class Mechanism:
         """Kutzbach count and numeric mobility: see :meth:`jointwise.solver.Solver.mobility`."""
         return self.solver.mobility(self.home if q is None else q)
 
+    # -- sweeps (engine in jointwise.sweep) --------------------------------------------
+    def sweep(self, drive, values, held=None, **options):
+        """Drive one coordinate through ``values``: see :func:`jointwise.sweep.sweep`."""
+        from .sweep import sweep
+        return sweep(self, drive, values, held, **options)
+
+    def sweep_schedule(self, schedule, *args, **options):
+        """Several inputs at once: see :func:`jointwise.sweep.sweep_schedule`."""
+        from .sweep import sweep_schedule
+        return sweep_schedule(self, schedule, *args, **options)
+
+    def follow(self, table, start=None, **options):
+        """Continuation along rows of held values: see :func:`jointwise.sweep.follow`."""
+        from .sweep import follow
+        return follow(self, table, start, **options)
+
     # -- export ----------------------------------------------------------------
     def to_dict(self):
         """The mechanism-file structure (file units) of this mechanism."""

@@ -497,6 +497,42 @@ class Solver:
         self._generic_rank[key] = generic
         return bool(s[generic - 1] < SINGULAR_RATIO * s[0]) if generic > 0 else False
 
+    def tangent(self, q, held, per):
+        """Rates dq/d(per) of every coordinate at state ``q`` (internal units).
+
+        ``held`` are coordinate indices kept fixed, ``per`` the index of the coordinate
+        that moves.  Found from the constraint Jacobian (least-norm solution of
+        J_u du = -J_per), not by finite differences.  Coordinates outside the moving
+        coordinate's loop block have rate 0, except coupled ones.
+        """
+        gper = int(self.master[per])
+        held_m = {int(self.master[i]) for i in held} | {gper}
+        dq = np.zeros(self.n)
+        dq[gper] = 1.0 / self.alpha[per]
+        bi = self.block_of_master.get(gper)
+        if bi is not None:
+            b = self.blocks[bi]
+            cols, _ = self._layout(b, held_m)
+            rot = set()
+            cols = [c for c in cols if c[0] == "m"] + [
+                ("m", i) for jn in b.joints if self.m.joints[jn].type == "spherical"
+                for i in range(self.m._slices[jn].start, self.m._slices[jn].stop)
+                if i not in held_m and ("m", i) not in cols]
+            if cols:
+                rs = self._row_scale(len(b.loops))
+                cs = self._col_scale(cols)
+                _, _, jh = self._eval(b, q, [("m", gper)], rot)
+                _, _, ju = self._eval(b, q, cols, rot)
+                du = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh[:, 0] * dq[gper]) * rs,
+                                     rcond=1e-10)[0] * cs
+                for c, d in zip(cols, du):
+                    dq[c[1]] = d
+        for g in list(np.flatnonzero(dq)):
+            for i in self.members[int(g)]:
+                if i != g:
+                    dq[i] = self.alpha[i] * dq[g]
+        return dq
+
     def _check_passive_limits(self, q, held_groups):
         m = self.m
         for i, c in enumerate(m.coordinates):

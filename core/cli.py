@@ -1,0 +1,252 @@
+"""Command line: ``jointwise check | pose | sweep | range``.
+
+Exit codes: 0 success; 2 bad command line or bad file; 3 cannot assemble, or a value
+outside its limits.  Messages go to stderr, without a traceback.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+
+import numpy as np
+
+from .errors import AssemblyError, JointwiseError, SpecError
+
+EXIT_OK, EXIT_USAGE, EXIT_ASSEMBLY = 0, 2, 3
+
+DESCRIPTION = """\
+Joint-aware posing of mechanical assemblies.
+
+Reads a mechanism file (TOML or JSON: links, joints with their screw axes at home,
+couplings, measures), closes its loops and reports poses, sweeps and reachable
+ranges in the file's own units.  It checks kinematics only: no loads, strength,
+stability or guarding.
+"""
+
+EPILOG = """\
+exit codes: 0 success, 2 bad command line or bad file, 3 cannot assemble or value outside limits
+examples:
+  jointwise check vise.toml
+  jointwise pose vise.toml --set handle=1260 --format json
+  jointwise sweep crank.toml --drive crank --from 0 --to 360 --steps 361 --out crank.csv
+  jointwise range crank.toml --drive rocker --format json
+"""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):
+        self.print_usage(sys.stderr)
+        print(f"jointwise: error: {message}", file=sys.stderr)
+        raise SystemExit(EXIT_USAGE)
+
+
+def _setting(text):
+    if "=" not in text:
+        raise argparse.ArgumentTypeError(f"expected NAME=VALUE, got {text!r}")
+    name, value = text.split("=", 1)
+    try:
+        v = float(value)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"value of {name!r} must be a number, got {value!r}") from None
+    if not math.isfinite(v):
+        raise argparse.ArgumentTypeError(f"value of {name!r} must be finite, got {value!r}")
+    return name.strip(), v
+
+
+def _finite(text):
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not math.isfinite(v):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    return v
+
+
+def _steps(text):
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if v < 2:
+        raise argparse.ArgumentTypeError(f"need at least 2 steps (both ends), got {v}")
+    return v
+
+
+def build_parser():
+    p = _Parser(prog="jointwise", description=DESCRIPTION, epilog=EPILOG,
+                formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    c = sub.add_parser("check", help="validate a mechanism file and report its structure and mobility",
+                       description="Validate FILE and report links, joints, coordinates, loops, drives, "
+                                   "mobility (Kutzbach count and numeric) and the closure error at home.")
+    c.add_argument("file", metavar="FILE")
+    c.add_argument("--format", choices=("text", "json"), default="text")
+
+    s = sub.add_parser("pose", help="pose the mechanism with given coordinate values",
+                       description="Hold the given coordinates (file units), close every loop from home on "
+                                   "the home branch, and print joint values and link displacements "
+                                   "(4x4, row-major, from home, world coordinates).")
+    s.add_argument("file", metavar="FILE")
+    s.add_argument("--set", action="append", default=[], type=_setting, metavar="NAME=VALUE",
+                   help="hold coordinate NAME at VALUE (file units); repeatable")
+    s.add_argument("--format", choices=("text", "json"), default="text")
+
+    w = sub.add_parser("sweep", help="drive one coordinate through a range and tabulate the motion",
+                       description="Drive NAME from A to B in N samples (both ends included), staying on "
+                                   "the home branch; tabulate every coordinate and measure.")
+    w.add_argument("file", metavar="FILE")
+    w.add_argument("--drive", required=True, metavar="NAME", help="the input coordinate")
+    w.add_argument("--from", dest="start", required=True, type=_finite, metavar="A")
+    w.add_argument("--to", dest="end", required=True, type=_finite, metavar="B")
+    w.add_argument("--steps", required=True, type=_steps, metavar="N", help="samples, both ends included")
+    w.add_argument("--set", action="append", default=[], type=_setting, metavar="NAME=VALUE")
+    w.add_argument("--format", choices=("csv", "json"), default="csv")
+    w.add_argument("--out", metavar="PATH", help="write the table here instead of stdout")
+    w.add_argument("--plot", metavar="PNG", help="draw coordinates and measures against the drive (needs the 'plot' extra)")
+
+    r = sub.add_parser("range", help="find the reachable range of a drive from home",
+                       description="Find the interval(s) over which NAME can move from home before the "
+                                   "mechanism locks (dead point) or a joint limit is hit.")
+    r.add_argument("file", metavar="FILE")
+    r.add_argument("--drive", required=True, metavar="NAME")
+    r.add_argument("--set", action="append", default=[], type=_setting, metavar="NAME=VALUE")
+    r.add_argument("--format", choices=("text", "json"), default="text")
+    return p
+
+
+def main(argv=None):
+    args = build_parser().parse_args(argv)
+    try:
+        from .spec import load
+        mech = load(args.file)
+        return COMMANDS[args.command](mech, args)
+    except SpecError as exc:
+        print(f"jointwise: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except AssemblyError as exc:
+        print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
+        return EXIT_ASSEMBLY
+    except JointwiseError as exc:
+        print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except OSError as exc:
+        print(f"jointwise: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+
+
+def _emit(text, path=None):
+    """Write ``text`` to ``path`` atomically (temp file + rename), or to stdout."""
+    if path is None:
+        sys.stdout.write(text)
+        return
+    tmp = f"{path}.tmp-{os.getpid()}"
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def cmd_check(mech, args):
+    info = check_report(mech)
+    if args.format == "json":
+        _emit(json.dumps(info, indent=2) + "\n")
+    else:
+        mob = info["mobility"]
+        lines = [f"{os.path.basename(args.file)}: {mech.name or 'mechanism'}",
+                 f"  links {info['links']}, joints {info['joints']}, coordinates {info['coordinates']}, "
+                 f"loops {info['loops']}",
+                 f"  driven: {', '.join(info['driven']) or 'none'}",
+                 f"  mobility: Kutzbach {mob['kutzbach']} ({mob['form']}), numeric {mob['numeric']}, "
+                 f"redundant constraints {mob['redundant']}",
+                 f"  closure error at home: {info['home_closure']:.3g} ({mech.length_unit} / rad)"]
+        lines += [f"  problem: {p}" for p in info["problems"]] or ["  no problems found"]
+        _emit("\n".join(lines) + "\n")
+    return EXIT_OK
+
+
+def check_report(mech):
+    """The ``check`` report as a dict (the JSON keys of ``jointwise check``)."""
+    from .mechanism import ASSEMBLY_TOLERANCE
+    from .solver import TOLERANCE
+    problems = []
+    closure = float(mech.home_closure())
+    q = mech.home
+    if closure > TOLERANCE:
+        try:
+            q = mech.solver.home_state()
+            problems.append(f"home placement is off closure by {closure:.3g}; within the assembly tolerance, "
+                            f"pose settles it onto the nearest closed placement")
+        except AssemblyError as exc:
+            problems.append(str(exc))
+    mob = mech.mobility(q)
+    if mob["redundant"] > 0:
+        problems.append(f"overconstrained as counted: Kutzbach {mob['kutzbach']} ({mob['form']}), actual "
+                        f"{mob['numeric']}; {mob['redundant']} constraint(s) are redundant because of "
+                        f"special geometry (parallel, coaxial or meeting axes)")
+    if mob["numeric"] <= 0 and mech.loops:
+        problems.append(f"the mechanism cannot move (numeric mobility {mob['numeric']}): it is a structure")
+    loop_coords = {c for lp in mech.loops for jn, _ in lp.steps for c in mech.joints[jn].coordinates}
+    held = [c for c in mech.driven if c in loop_coords]
+    if mech.loops and 0 < mob["numeric"] != len(held) and held:
+        problems.append(f"{len(held)} driven coordinate(s) in loops for {mob['numeric']} freedom(s)")
+    return {
+        "links": len(mech.links),
+        "joints": len(mech.joints),
+        "coordinates": len(mech.coordinates),
+        "loops": len(mech.loops),
+        "driven": mech.driven,
+        "problems": problems,
+        "mobility": {k: mob[k] for k in ("kutzbach", "form", "numeric", "redundant")},
+        "home_closure": closure,
+        "assembly_tolerance": ASSEMBLY_TOLERANCE,
+    }
+
+
+def cmd_pose(mech, args):
+    values = dict(args.set)
+    pose = mech.pose(values)
+    for note in pose.notes:
+        print(f"jointwise: note: {note}", file=sys.stderr)
+    if args.format == "json":
+        _emit(json.dumps(pose.to_json(), indent=2) + "\n")
+    else:
+        lines = [f"converged: {'yes' if pose.converged else 'no'}   residual: {pose.residual:.3g}   "
+                 f"singular: {'yes' if pose.singular else 'no'}", "joints:"]
+        for c, v in pose.joints.items():
+            unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
+            lines.append(f"  {c:<16} {v:14.6f} {unit}")
+        lines.append(f"links (displacement from home; translation in {mech.length_unit}):")
+        for name, mat in pose.links.items():
+            t = mat[:3, 3]
+            from .spatial import log3
+            ang = math.degrees(float(np.linalg.norm(log3(mat[:3, :3]))))
+            lines.append(f"  {name:<16} moved [{t[0]:.6g}, {t[1]:.6g}, {t[2]:.6g}], turned {ang:.6g} deg")
+        _emit("\n".join(lines) + "\n")
+    if not pose.converged:
+        return EXIT_ASSEMBLY
+    return EXIT_OK
+
+
+def cmd_sweep(mech, args):
+    from .report import sweep_command
+    return sweep_command(mech, args, _emit)
+
+
+def cmd_range(mech, args):
+    from .report import range_command
+    return range_command(mech, args, _emit)
+
+
+COMMANDS = {"check": cmd_check, "pose": cmd_pose, "sweep": cmd_sweep, "range": cmd_range}
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
