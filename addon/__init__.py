@@ -1,0 +1,23 @@
+"""Jointwise for Blender: registration only (see properties, scene, operators, panels,
+bake, handlers)."""
+from __future__ import annotations
+
+import bpy
+
+from . import handlers, operators, panels, properties
+
+CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES
+
+
+def register():
+    for cls in CLASSES:
+        bpy.utils.register_class(cls)
+    properties.register_scene_property()
+    handlers.register()
+
+
+def unregister():
+    handlers.unregister()
+    properties.unregister_scene_property()
+    for cls in reversed(CLASSES):
+        bpy.utils.unregister_class(cls)

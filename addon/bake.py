@@ -1,0 +1,428 @@
+"""Bulk keyframes: read the animated joint values, solve every frame, write link keys.
+
+Keys are written through the slotted-action API (action -> slot -> layer -> keyframe
+strip -> channelbag -> F-curves) with ``keyframe_points.add`` + ``foreach_set``,
+never ``keyframe_insert`` per key; this works on Blender 4.4+ and 5.x alike.
+
+Rotation keys follow each object's own ``rotation_mode``: quaternions are made
+continuous by sign (q and -q are the same turn), Euler angles are unwrapped so
+consecutive keys never jump by a full turn (compatible Euler), axis-angle comes from
+the continuous quaternions.
+
+Baked actions carry the custom property ``jointwise_bake``; an action the object had
+before is remembered in ``jointwise_previous`` and put back by ``clear``.
+"""
+from __future__ import annotations
+
+import math
+import re
+
+import bpy
+import numpy as np
+
+from . import scene as sc
+
+_PATH = re.compile(r'^jointwise\.joints\[(?:(\d+)|"((?:[^"\\]|\\.)*)")\]\.(value|angle|length)$')
+TAG = "jointwise_bake"
+PREVIOUS = "jointwise_previous"
+LINEAR = None  # enum value of 'LINEAR' for foreach_set, found once
+
+
+# -- reading F-curves of the scene ----------------------------------------------------------
+
+def action_fcurves(action, slot=None):
+    """All F-curves of ``action`` for ``slot`` (all slots when None); 4.4+ and 5.x."""
+    out = []
+    layers = getattr(action, "layers", None)
+    if layers is not None and len(layers):
+        for layer in layers:
+            for strip in layer.strips:
+                slots = [slot] if slot is not None else list(action.slots)
+                for s in slots:
+                    bag = strip.channelbag(s) if s is not None else None
+                    if bag is not None:
+                        out.extend(bag.fcurves)
+        return out
+    legacy = getattr(action, "fcurves", None)  # 4.x legacy actions
+    return list(legacy) if legacy is not None else []
+
+
+def scene_fcurves(scene):
+    ad = scene.animation_data
+    if ad is None or ad.action is None:
+        return []
+    return action_fcurves(ad.action, getattr(ad, "action_slot", None))
+
+
+def coordinate_fcurves(scene):
+    """{coordinate name: (fcurve, view)} for F-curves on ``jointwise.joints[..]``;
+    ``view`` is value, angle or length (all the same number in host units)."""
+    jw = scene.jointwise
+    out = {}
+    for fc in scene_fcurves(scene):
+        m = _PATH.match(fc.data_path)
+        if not m or fc.mute:
+            continue
+        if m.group(1) is not None:
+            i = int(m.group(1))
+            if i >= len(jw.joints):
+                continue
+            name = jw.joints[i].name
+        else:
+            name = m.group(2).replace('\\"', '"')
+            if name not in jw.joints:
+                continue
+        out.setdefault(name, (fc, m.group(3)))
+    return out
+
+
+# -- solving ---------------------------------------------------------------------------------
+
+def value_table(scene, mech, frames, ramp=None):
+    """Held values per frame {coordinate: array (N,)} in host units.
+
+    ``ramp`` = (coordinate, value_from, value_to): that coordinate goes linearly from
+    ``value_from`` at the first frame to ``value_to`` at the last."""
+    frames = np.asarray(frames, dtype=float)
+    n = len(frames)
+    held = sc.held_values(scene, mech, extra=(ramp[0],) if ramp else ())
+    curves = coordinate_fcurves(scene)
+    table = {}
+    for name, v in held.items():
+        if ramp and name == ramp[0]:
+            t = np.linspace(0.0, 1.0, n) if n > 1 else np.zeros(1)
+            table[name] = ramp[1] + (ramp[2] - ramp[1]) * t
+        elif name in curves:
+            fc = curves[name][0]
+            table[name] = np.array([fc.evaluate(f) for f in frames], dtype=float)
+        else:
+            table[name] = np.full(n, float(v))
+        bad = ~np.isfinite(table[name])
+        if bad.any():
+            raise sc.SceneError(f"coordinate {name!r} is not finite at frame {int(frames[bad][0])}")
+    return table
+
+
+class Solved:
+    """Result of :func:`solve_frames`: links {name: (N, 4, 4)}, joints {name: (N,)}."""
+
+    def __init__(self, frames, links, joints, converged, singular, reasons):
+        self.frames = frames
+        self.links = links
+        self.joints = joints
+        self.converged = converged
+        self.singular = singular
+        self.reasons = reasons
+
+    def first_failure(self):
+        """(frame, reason) of the first frame that must not be baked, else None."""
+        for i, f in enumerate(self.frames):
+            if not self.converged[i]:
+                return int(f), self.reasons.get(i) or "the loops do not close there"
+            if self.singular[i]:
+                return int(f), "dead point: the mechanism is singular there and may change branch"
+        return None
+
+
+def solve_frames(scene, mech, frames, table, progress=None):
+    """Continuation through the frames. Uses ``Mechanism.follow`` when the core has it,
+    else one warm-started ``pose`` per frame."""
+    n = len(frames)
+    start = sc.start_from_scene(scene, mech)
+    follow = getattr(mech, "follow", None)
+    if follow is not None:
+        sw = follow(table, start=start)
+        links = {k: np.asarray(v, dtype=float) for k, v in sw.links.items()}
+        joints = {k: np.asarray(v, dtype=float) for k, v in sw.joints.items()}
+        conv = np.asarray(sw.converged, dtype=bool)
+        sing = np.asarray(getattr(sw, "singular", np.zeros(n, bool)), dtype=bool)
+        if progress:
+            progress(n)
+        return Solved(frames, links, joints, conv, sing, {})
+    err = sc.core().JointwiseError
+    links = {name: np.tile(np.eye(4), (n, 1, 1)) for name in mech.links}
+    joints = {c: np.zeros(n) for c in mech.coordinates}
+    conv = np.zeros(n, bool)
+    sing = np.zeros(n, bool)
+    reasons = {}
+    prev = start
+    for i in range(n):
+        try:
+            pose = mech.pose({k: float(v[i]) for k, v in table.items()}, start=prev)
+        except err as exc:
+            reasons[i] = sc.describe_error(exc)
+            break  # continuation cannot go on past a failed frame
+        conv[i] = pose.converged
+        sing[i] = bool(getattr(pose, "singular", False))
+        for k, m in pose.links.items():
+            links[k][i] = m
+        for k, v in pose.joints.items():
+            joints[k][i] = v
+        if not pose.converged:
+            break
+        prev = pose
+        if progress and i % 25 == 0:
+            progress(i)
+    return Solved(frames, links, joints, conv, sing, reasons)
+
+
+# -- matrices to channels (vectorised) ---------------------------------------------------------
+
+def basis_from_world(objs_worlds, order):
+    """Local basis matrices (N, 4, 4) per object from world matrices, honouring object
+    parenting: ``basis = inv(P @ matrix_parent_inverse) @ W``; a parent that is baked
+    too uses its own per-frame world matrices, any other parent its current one."""
+    out = {}
+    for name in order:
+        obj, w = objs_worlds[name]
+        p = obj.parent
+        if p is None:
+            out[name] = w
+            continue
+        pinv = sc.matrix_host_to_core(obj.matrix_parent_inverse)
+        pw = None
+        for other, (o2, w2) in objs_worlds.items():
+            if o2 == p:
+                pw = w2
+                break
+        if pw is None:
+            pw = sc.matrix_host_to_core(p.matrix_world)
+        out[name] = np.linalg.inv(pw @ pinv) @ w
+    return out
+
+
+def quaternions_from_rotations(r):
+    """Unit quaternions (w, x, y, z), shape (N, 4), of rotation matrices (N, 3, 3)
+    (Shepperd's method: pick the largest of w, x, y, z to divide by)."""
+    r = np.asarray(r, dtype=float)
+    n = r.shape[0]
+    tr = r[:, 0, 0] + r[:, 1, 1] + r[:, 2, 2]
+    cand = np.stack([tr, r[:, 0, 0], r[:, 1, 1], r[:, 2, 2]], axis=1)
+    k = np.argmax(cand, axis=1)
+    q = np.empty((n, 4))
+    i = k == 0
+    s = np.sqrt(np.maximum(1.0 + tr[i], 1e-300)) * 2
+    q[i] = np.stack([0.25 * s, (r[i, 2, 1] - r[i, 1, 2]) / s, (r[i, 0, 2] - r[i, 2, 0]) / s,
+                     (r[i, 1, 0] - r[i, 0, 1]) / s], axis=1)
+    i = k == 1
+    s = np.sqrt(np.maximum(1.0 + r[i, 0, 0] - r[i, 1, 1] - r[i, 2, 2], 1e-300)) * 2
+    q[i] = np.stack([(r[i, 2, 1] - r[i, 1, 2]) / s, 0.25 * s, (r[i, 0, 1] + r[i, 1, 0]) / s,
+                     (r[i, 0, 2] + r[i, 2, 0]) / s], axis=1)
+    i = k == 2
+    s = np.sqrt(np.maximum(1.0 + r[i, 1, 1] - r[i, 0, 0] - r[i, 2, 2], 1e-300)) * 2
+    q[i] = np.stack([(r[i, 0, 2] - r[i, 2, 0]) / s, (r[i, 0, 1] + r[i, 1, 0]) / s, 0.25 * s,
+                     (r[i, 1, 2] + r[i, 2, 1]) / s], axis=1)
+    i = k == 3
+    s = np.sqrt(np.maximum(1.0 + r[i, 2, 2] - r[i, 0, 0] - r[i, 1, 1], 1e-300)) * 2
+    q[i] = np.stack([(r[i, 1, 0] - r[i, 0, 1]) / s, (r[i, 0, 2] + r[i, 2, 0]) / s,
+                     (r[i, 1, 2] + r[i, 2, 1]) / s, 0.25 * s], axis=1)
+    return q / np.linalg.norm(q, axis=1, keepdims=True)
+
+
+def continuous_quaternions(q, previous=None):
+    """Flip signs so that consecutive quaternions have a non-negative dot product."""
+    q = np.array(q, dtype=float)
+    if len(q) == 0:
+        return q
+    d = np.einsum("ij,ij->i", q[1:], q[:-1])
+    flips = np.concatenate([[1.0], np.where(d < 0, -1.0, 1.0)])
+    if previous is not None and float(np.dot(q[0], previous)) < 0:
+        flips[0] = -1.0
+    return q * np.cumprod(flips)[:, None]
+
+
+_AXIS = {"X": 0, "Y": 1, "Z": 2}
+
+
+def eulers_from_rotations(r, order):
+    """Euler angles (N, 3), in the X, Y, Z slots of ``rotation_euler``, for Blender's
+    ``order`` (e.g. 'XYZ': R = Rz @ Ry @ Rx, X applied first)."""
+    i, j, k = (_AXIS[c] for c in order)
+    s = 1.0 if (i, j, k) in ((0, 1, 2), (1, 2, 0), (2, 0, 1)) else -1.0
+    r = np.asarray(r, dtype=float)
+    sb = np.clip(-s * r[:, k, i], -1.0, 1.0)
+    b = np.arcsin(sb)
+    cb = np.sqrt(r[:, k, j] ** 2 + r[:, k, k] ** 2)
+    ok = cb > 1e-9
+    a = np.where(ok, np.arctan2(s * r[:, k, j], r[:, k, k]), np.arctan2(-s * r[:, j, k], r[:, j, j]))
+    c = np.where(ok, np.arctan2(s * r[:, j, i], r[:, i, i]), 0.0)
+    out = np.empty((len(r), 3))
+    out[:, i], out[:, j], out[:, k] = a, b, c
+    return out
+
+
+def continuous_eulers(e, previous=None):
+    """Unwrap each angle so consecutive keys never jump by a full turn."""
+    e = np.asarray(e, dtype=float)
+    if previous is not None and len(e):
+        prev = np.asarray(previous, dtype=float)
+        e = e.copy()
+        e[0] += 2 * math.pi * np.round((prev - e[0]) / (2 * math.pi))
+    return np.unwrap(e, axis=0) if len(e) > 1 else e
+
+
+def channels_for(obj, basis):
+    """{(data_path, index): values (N,)} of location and rotation keys for ``obj``."""
+    loc = basis[:, :3, 3]
+    m3 = basis[:, :3, :3]
+    scale = np.linalg.norm(m3, axis=1)  # column norms
+    rot = m3 / np.where(scale > 0, scale, 1.0)[:, None, :]
+    det = np.linalg.det(rot)
+    rot = rot * np.where(det < 0, -1.0, 1.0)[:, None, None]
+    ch = {("location", i): loc[:, i] for i in range(3)}
+    mode = obj.rotation_mode
+    if mode in ("QUATERNION", "AXIS_ANGLE"):
+        q = quaternions_from_rotations(rot)
+        prev = np.array(obj.rotation_quaternion) if mode == "QUATERNION" else None
+        q = continuous_quaternions(q, prev)
+        if mode == "QUATERNION":
+            for i in range(4):
+                ch[("rotation_quaternion", i)] = q[:, i]
+        else:
+            v = np.linalg.norm(q[:, 1:], axis=1)
+            ang = 2 * np.arctan2(v, q[:, 0])
+            axis = np.where(v[:, None] > 1e-12, q[:, 1:] / np.where(v > 0, v, 1)[:, None], [0, 1.0, 0])
+            ch[("rotation_axis_angle", 0)] = ang
+            for i in range(3):
+                ch[("rotation_axis_angle", i + 1)] = axis[:, i]
+    else:
+        e = continuous_eulers(eulers_from_rotations(rot, mode), np.array(obj.rotation_euler))
+        for i in range(3):
+            ch[("rotation_euler", i)] = e[:, i]
+    return ch
+
+
+# -- writing keys --------------------------------------------------------------------------------
+
+def _linear_value(fc):
+    global LINEAR
+    if LINEAR is None:
+        kp = fc.keyframe_points[0]
+        old = kp.interpolation
+        kp.interpolation = 'LINEAR'
+        buf = [0]
+        fc.keyframe_points.foreach_get("interpolation", buf)
+        LINEAR = buf[0]
+        kp.interpolation = old
+    return LINEAR
+
+
+def new_action(obj):
+    """A fresh tagged action + slot assigned to ``obj`` (remembering a foreign action)."""
+    ad = obj.animation_data or obj.animation_data_create()
+    old = ad.action
+    previous = ""
+    if old is not None:
+        if old.get(TAG):
+            previous = old.get(PREVIOUS, "")
+            ad.action = None
+            if old.users == 0:
+                bpy.data.actions.remove(old)
+        else:
+            previous = old.name
+            ad.action = None
+    action = bpy.data.actions.new(f"{obj.name} motion")
+    action[TAG] = 1
+    action[PREVIOUS] = previous
+    slot = action.slots.new(id_type='OBJECT', name=obj.name)
+    ad.action = action
+    if getattr(ad, "action_slot", None) != slot:
+        ad.action_slot = slot
+    layer = action.layers.new("Layer")
+    strip = layer.strips.new(type='KEYFRAME')
+    bag = strip.channelbag(slot, ensure=True)
+    return action, bag
+
+
+def write_channels(obj, frames, channels):
+    """Write keys for every channel at once: ``keyframe_points.add`` + ``foreach_set``."""
+    action, bag = new_action(obj)
+    n = len(frames)
+    co = np.empty(2 * n, dtype=np.float32)
+    co[0::2] = frames
+    for (path, index), values in channels.items():
+        fc = bag.fcurves.new(path, index=index, group_name="Object Transforms")
+        fc.keyframe_points.add(n)
+        co[1::2] = values
+        fc.keyframe_points.foreach_set("co", co)
+        lin = _linear_value(fc)
+        fc.keyframe_points.foreach_set("interpolation", np.full(n, lin, dtype=np.int32))
+        fc.update()
+    return action
+
+
+def clear(obj):
+    """Remove the baked action of ``obj`` (put back the one it had before). True if any."""
+    ad = obj.animation_data
+    if ad is None or ad.action is None or not ad.action.get(TAG):
+        return False
+    action = ad.action
+    previous = action.get(PREVIOUS, "")
+    ad.action = None
+    if previous and previous in bpy.data.actions:
+        ad.action = bpy.data.actions[previous]
+    if action.users == 0:
+        bpy.data.actions.remove(action)
+    return True
+
+
+def bake(scene, frames, ramp=None, progress=None):
+    """Solve every frame and write keys for every link object; all or nothing.
+
+    Returns (number of objects keyed, solve seconds, write seconds). Raises SceneError
+    with the frame named when a frame cannot be solved (nothing written then)."""
+    import time
+    t0 = time.perf_counter()
+    mech = sc.mechanism_from_scene(scene)
+    table = value_table(scene, mech, frames, ramp)
+    solved = solve_frames(scene, mech, frames, table, progress)
+    fail = solved.first_failure()
+    if fail is not None:
+        raise sc.SceneError(f"frame {fail[0]}: {fail[1]}; no keys were written")
+    t1 = time.perf_counter()
+    worlds = sc.world_matrices(scene, solved.links)
+    channels = prepare_channels(worlds)
+    for name, ch in channels.items():
+        for key, v in ch[1].items():
+            if not np.all(np.isfinite(v)):
+                raise sc.SceneError(f"link {name!r}: non-finite {key[0]} keys; no keys were written")
+    for name, (obj, ch) in channels.items():
+        write_channels(obj, frames, ch)
+    t2 = time.perf_counter()
+    return len(channels), t1 - t0, t2 - t1
+
+
+def prepare_channels(worlds):
+    """{link: (object, channels)} from {link: (object, world (N, 4, 4))}."""
+    bases = basis_from_world(worlds, list(worlds))
+    return {name: (worlds[name][0], channels_for(worlds[name][0], bases[name])) for name in worlds}
+
+
+def remap_coordinate_paths(scene, mapping):
+    """Keep the scene's joint-value animation on the right items when items are removed:
+    ``mapping`` old index -> new index, or None to drop that item's F-curves (data paths
+    address items by index, so they must be rewritten)."""
+    ad = scene.animation_data
+    if ad is None or ad.action is None:
+        return
+    action = ad.action
+    bags = []
+    if getattr(action, "layers", None) is not None and len(action.layers):
+        for layer in action.layers:
+            for strip in layer.strips:
+                for s in action.slots:
+                    bag = strip.channelbag(s)
+                    if bag is not None:
+                        bags.append(bag)
+    elif getattr(action, "fcurves", None) is not None:
+        bags.append(action)
+    for bag in bags:
+        for fc in list(bag.fcurves):
+            m = _PATH.match(fc.data_path)
+            if not m or m.group(1) is None:
+                continue
+            new = mapping.get(int(m.group(1)), int(m.group(1)))
+            if new is None:
+                bag.fcurves.remove(fc)
+            else:
+                fc.data_path = f"jointwise.joints[{new}].{m.group(3)}"

@@ -1,0 +1,151 @@
+"""What jointwise stores in the .blend: one mechanism per scene, ``scene.jointwise``.
+
+Units (host side, everywhere in this package): angles in radians, lengths in
+scene length units (Blender units; ``unit_settings.scale_length`` metres each).
+Angle values show in degrees in the UI through the ``ANGLE`` subtype.
+
+One item of ``joints`` per *coordinate* of the core (a 1-DOF joint's coordinate
+is the joint's name; compound joints have ``NAME.1``, ``NAME.2`` ...), so
+``scene.jointwise.joints[NAME].value`` addresses a coordinate directly. The
+joint-level settings (type, links, marker, helical parameters) are repeated on
+each coordinate item of a compound joint; the first item (``slot == 1``) is the
+one that counts.
+
+``value`` carries no unit subtype (one collection cannot mix angle and length
+subtypes); the panel shows it through the two views ``angle`` and ``length``,
+which read and write ``value``.
+
+Joint frames: a joint's point and axis at home come from its marker empty (Z
+axis = joint axis, X axis = second axis of a universal joint). The marker is
+parented to the joint's parent link object, and its placement is read relative
+to that link: home frame = D_parent^-1 @ marker.matrix_world, where D_parent is
+the parent link's displacement from its stored home. So a marker may be moved or
+turned at any pose and is always understood in the parent link's frame.
+``marker_home`` keeps the marker's home placement from the last set-home, used by
+return-to-home.
+"""
+from __future__ import annotations
+
+import math
+
+import bpy
+from bpy.props import (BoolProperty, CollectionProperty, EnumProperty, FloatProperty,
+                       FloatVectorProperty, IntProperty, PointerProperty, StringProperty)
+
+IDENTITY16 = tuple(float(i == j) for i in range(4) for j in range(4))
+
+JOINT_TYPES = (
+    ("revolute", "Revolute", "Turns about the axis"),
+    ("prismatic", "Prismatic", "Slides along the axis"),
+    ("helical", "Helical", "Turns about the axis and advances by the lead per turn"),
+    ("cylindrical", "Cylindrical", "Turns about and slides along the axis"),
+    ("universal", "Universal", "Two perpendicular turns (marker Z and X)"),
+    ("spherical", "Spherical", "Three turns about the point"),
+    ("planar", "Planar", "Two slides in the plane and a turn about its normal (marker Z)"),
+    ("fixed", "Fixed", "No relative motion"),
+)
+
+
+def _value_update(self, context):
+    from . import handlers
+    handlers.value_changed(self, context)
+
+
+def _get_angle(self):
+    return self.value
+
+
+def _set_angle(self, v):
+    self.value = v
+
+
+class JointwiseCoordinate(bpy.types.PropertyGroup):
+    """One coordinate of a joint (the item name is the coordinate name)."""
+    value: FloatProperty(name="Value", description="Joint value: radians or scene length units",
+                         default=0.0, update=_value_update, options={'ANIMATABLE'}, precision=6)
+    angle: FloatProperty(name="Value", subtype='ANGLE', unit='ROTATION',
+                         get=_get_angle, set=_set_angle, options=set(), precision=3)
+    length: FloatProperty(name="Value", subtype='DISTANCE', unit='LENGTH',
+                          get=_get_angle, set=_set_angle, options=set(), precision=5)
+    kind: EnumProperty(name="Kind", items=(("angle", "Angle", ""), ("length", "Length", "")),
+                       default="angle")
+    home: FloatProperty(name="Home", description="Value at the home configuration", precision=6)
+    drive: BoolProperty(name="Drive", description="Held at its value while the others are solved",
+                        default=False)
+    use_limits: BoolProperty(name="Limits", default=False)
+    limit_min: FloatProperty(name="Min", precision=6)
+    limit_max: FloatProperty(name="Max", precision=6)
+    # joint-level data (the first coordinate of a joint counts)
+    joint: StringProperty(name="Joint", description="Name of the joint this coordinate belongs to")
+    slot: IntProperty(name="Slot", default=1, min=1, description="1-based index within the joint")
+    type: EnumProperty(name="Type", items=JOINT_TYPES, default="revolute")
+    parent: StringProperty(name="Parent link")
+    child: StringProperty(name="Child link")
+    marker: PointerProperty(name="Marker", type=bpy.types.Object,
+                            description="Empty whose Z axis is the joint axis and location the joint point")
+    use_axis2: BoolProperty(name="Second axis", default=False,
+                            description="The marker's X axis is the joint's second axis")
+    marker_home: FloatVectorProperty(name="Marker home", size=16, default=IDENTITY16)
+    lead: FloatProperty(name="Lead", description="Advance per turn (scene length units)",
+                        default=0.0, precision=6)
+    thread: StringProperty(name="Thread", description="Thread preset the lead came from, e.g. Tr16x4")
+    hand: EnumProperty(name="Hand", items=(("right", "Right", ""), ("left", "Left", "")),
+                       default="right")
+
+
+class JointwiseLink(bpy.types.PropertyGroup):
+    """A rigid link bound to a scene object by pointer (renaming the object is harmless)."""
+    object: PointerProperty(name="Object", type=bpy.types.Object)
+    object_name: StringProperty(name="Object name", description="Last bound object name, for messages")
+    home: FloatVectorProperty(name="Home", size=16, default=IDENTITY16,
+                              description="World matrix at home, row-major")
+
+
+class JointwiseCoupling(bpy.types.PropertyGroup):
+    """follower = ratio * leader + offset (host units)."""
+    leader: StringProperty(name="Leader")
+    follower: StringProperty(name="Follower")
+    ratio: FloatProperty(name="Ratio", default=1.0, precision=6)
+    offset: FloatProperty(name="Offset", default=0.0, precision=6)
+
+
+class JointwiseMechanism(bpy.types.PropertyGroup):
+    name_text: StringProperty(name="Mechanism", default="")
+    ground: StringProperty(name="Ground link", default="ground")
+    links: CollectionProperty(type=JointwiseLink)
+    joints: CollectionProperty(type=JointwiseCoordinate)
+    couplings: CollectionProperty(type=JointwiseCoupling)
+    joint_index: IntProperty(name="Active joint", default=0)
+    coupling_index: IntProperty(name="Active coupling", default=0)
+    live: BoolProperty(name="Live posing", default=False,
+                       description="Solve and move the links when a value changes and on every frame")
+    # file units used by export (the units of the file last imported)
+    file_length_unit: EnumProperty(name="File length unit", default="mm",
+                                   items=(("mm", "mm", ""), ("cm", "cm", ""), ("m", "m", ""),
+                                          ("in", "in", "")))
+    file_angle_unit: EnumProperty(name="File angle unit", default="deg",
+                                  items=(("deg", "deg", ""), ("rad", "rad", "")))
+    measures_json: StringProperty(name="Measures", default="",
+                                  description="Measures of the imported file, kept for export (file units)")
+    # status of the last solve
+    converged: BoolProperty(name="Converged", default=True)
+    closure_error: FloatProperty(name="Closure error", default=0.0, precision=9)
+    mobility: IntProperty(name="Mobility", default=-1)
+    singular: BoolProperty(name="Singular", default=False)
+    message: StringProperty(name="Status", default="")
+
+
+CLASSES = (JointwiseCoordinate, JointwiseLink, JointwiseCoupling, JointwiseMechanism)
+
+
+def register_scene_property():
+    bpy.types.Scene.jointwise = PointerProperty(type=JointwiseMechanism)
+
+
+def unregister_scene_property():
+    if hasattr(bpy.types.Scene, "jointwise"):
+        del bpy.types.Scene.jointwise
+
+
+def is_finite(*xs):
+    return all(math.isfinite(x) for x in xs)
