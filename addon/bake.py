@@ -130,8 +130,13 @@ def solve_frames(scene, mech, frames, table, progress=None):
     n = len(frames)
     start = sc.start_from_scene(scene, mech)
     follow = getattr(mech, "follow", None)
+    sw = None
     if follow is not None:
-        sw = follow(table, start=start)
+        try:
+            sw = follow(table, start=start)
+        except (ImportError, NotImplementedError):  # core without sweeps yet: per-frame poses
+            sw = None
+    if sw is not None:
         links = {k: np.asarray(v, dtype=float) for k, v in sw.links.items()}
         joints = {k: np.asarray(v, dtype=float) for k, v in sw.joints.items()}
         conv = np.asarray(sw.converged, dtype=bool)
@@ -297,13 +302,13 @@ def channels_for(obj, basis):
 def _linear_value(fc):
     global LINEAR
     if LINEAR is None:
-        kp = fc.keyframe_points[0]
-        old = kp.interpolation
-        kp.interpolation = 'LINEAR'
-        buf = [0]
-        fc.keyframe_points.foreach_get("interpolation", buf)
-        LINEAR = buf[0]
-        kp.interpolation = old
+        kps = fc.keyframe_points
+        old = kps[0].interpolation
+        kps[0].interpolation = 'LINEAR'
+        buf = np.zeros(len(kps), dtype=np.int32)
+        kps.foreach_get("interpolation", buf)
+        LINEAR = int(buf[0])
+        kps[0].interpolation = old
     return LINEAR
 
 
@@ -340,8 +345,12 @@ def write_channels(obj, frames, channels):
     n = len(frames)
     co = np.empty(2 * n, dtype=np.float32)
     co[0::2] = frames
+    groups = getattr(bag, "groups", None)
+    group = groups.new("Object Transforms") if groups is not None else None
     for (path, index), values in channels.items():
-        fc = bag.fcurves.new(path, index=index, group_name="Object Transforms")
+        fc = bag.fcurves.new(path, index=index)
+        if group is not None:
+            fc.group = group
         fc.keyframe_points.add(n)
         co[1::2] = values
         fc.keyframe_points.foreach_set("co", co)

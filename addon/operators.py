@@ -43,6 +43,15 @@ class _Base:
         self.report({'ERROR'}, message)
         return {'CANCELLED'}
 
+    def execute(self, context):  # noqa: D401
+        """Runs ``run``; an unexpected exception becomes a report, not a traceback."""
+        try:
+            return self.run(context)
+        except Exception as exc:  # last resort: the user sees a message, the console the details
+            import traceback
+            traceback.print_exc()
+            return self.fail(f"{self.bl_label}: unexpected problem ({type(exc).__name__}: {exc})")
+
 
 class JOINTWISE_OT_mechanism_import(_Base, bpy.types.Operator, ImportHelper):
     """Read a mechanism file, bind its links to scene objects and make the joint markers"""
@@ -51,7 +60,7 @@ class JOINTWISE_OT_mechanism_import(_Base, bpy.types.Operator, ImportHelper):
     filename_ext = ".toml"
     filter_glob: StringProperty(default="*.toml;*.json", options={'HIDDEN'})
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         path = self.filepath
         try:
@@ -81,7 +90,7 @@ class JOINTWISE_OT_mechanism_export(_Base, bpy.types.Operator, ExportHelper):
     filename_ext = ".toml"
     filter_glob: StringProperty(default="*.toml", options={'HIDDEN'})
 
-    def execute(self, context):
+    def run(self, context):
         from . import tomlwrite
         try:
             data = sc.export_dict(context.scene)
@@ -108,7 +117,7 @@ class JOINTWISE_OT_bake(_Base, bpy.types.Operator):
         self.frame_end = context.scene.frame_end
         return context.window_manager.invoke_props_dialog(self)
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         if self.frame_end < self.frame_start:
             return self.fail(f"frame range {self.frame_start}..{self.frame_end} is empty")
@@ -142,7 +151,7 @@ class JOINTWISE_OT_bake_clear(_Base, bpy.types.Operator):
     bl_idname = "jointwise.bake_clear"
     bl_label = "Clear Baked Motion"
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         n = 0
         for link in scene.jointwise.links:
@@ -157,7 +166,7 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
     bl_idname = "jointwise.home_set"
     bl_label = "Set Home"
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         if not jw.links:
@@ -196,7 +205,7 @@ class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
     bl_idname = "jointwise.home_restore"
     bl_label = "Return to Home"
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         try:
@@ -214,7 +223,7 @@ class JOINTWISE_OT_pose(_Base, bpy.types.Operator):
     bl_idname = "jointwise.pose"
     bl_label = "Solve Now"
 
-    def execute(self, context):
+    def run(self, context):
         ok, msg = sc.pose_scene(context.scene)
         if not ok:
             return self.fail(msg)
@@ -226,7 +235,7 @@ class JOINTWISE_OT_live_toggle(_Base, bpy.types.Operator):
     bl_idname = "jointwise.live_toggle"
     bl_label = "Live Posing"
 
-    def execute(self, context):
+    def run(self, context):
         jw = context.scene.jointwise
         jw.live = not jw.live
         if jw.live:
@@ -278,7 +287,7 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
     def invoke(self, context, event):
         return context.window_manager.invoke_props_dialog(self)
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         child = context.active_object
@@ -366,7 +375,7 @@ class JOINTWISE_OT_joint_remove(_Base, bpy.types.Operator):
     bl_label = "Remove Joint"
     name: StringProperty(name="Joint", default="")
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         name = self.name
@@ -417,7 +426,7 @@ class JOINTWISE_OT_coupling_add(_Base, bpy.types.Operator):
     def invoke(self, context, event):
         return context.window_manager.invoke_props_dialog(self)
 
-    def execute(self, context):
+    def run(self, context):
         jw = context.scene.jointwise
         for role in ("leader", "follower"):
             v = getattr(self, role)
@@ -439,7 +448,7 @@ class JOINTWISE_OT_coupling_remove(_Base, bpy.types.Operator):
     bl_idname = "jointwise.coupling_remove"
     bl_label = "Remove Coupling"
 
-    def execute(self, context):
+    def run(self, context):
         jw = context.scene.jointwise
         if not 0 <= jw.coupling_index < len(jw.couplings):
             return self.fail("no coupling selected")
