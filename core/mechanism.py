@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import spatial
 from .errors import LimitError, SpecError
 from .spec import ANGLE_UNITS, FORMAT
 
@@ -129,6 +130,7 @@ class Mechanism:
             for c in j.coordinates:
                 self._owner[c] = j.name
         self.home = np.concatenate([j.home for j in self.joints.values()]) if self.joints else np.zeros(0)
+        self._powers = None
         self._build_tree()
         self.size = self._size()
 
@@ -247,18 +249,34 @@ class Mechanism:
         return {c: float(v) for c, v in zip(self.coordinates, q / scale)}
 
     # -- posing ------------------------------------------------------------------
+    def joint_transforms(self, q):
+        """Displacement of each joint's child relative to its parent, for internal ``q``."""
+        if self._powers is None:
+            screws = [p.screw for j in self.joints.values() for p in j.primitives]
+            self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
+        ex = spatial.exp_unit(self._powers, q - self.home) if len(q) else np.zeros((0, 4, 4))
+        out = {}
+        for name, sl in self._slices.items():
+            if sl.stop == sl.start:
+                out[name] = np.eye(4)
+                continue
+            e = ex[sl.start]
+            for k in range(sl.start + 1, sl.stop):
+                e = e @ ex[k]
+            out[name] = e
+        return out
+
     def link_poses(self, q):
         """Displacements from home of every link for internal coordinates ``q``."""
+        es = self.joint_transforms(q)
         out = {self.ground: np.eye(4)}
         for link in self.order[1:]:
             jname, sign = self.tree_parent[link]
             j = self.joints[jname]
-            e = j.transform(q[self._slices[jname]])
             if sign > 0:
-                out[link] = out[j.parent] @ e
+                out[link] = out[j.parent] @ es[jname]
             else:
-                from .spatial import inverse
-                out[link] = out[j.child] @ inverse(e)
+                out[link] = out[j.child] @ spatial.inverse(es[jname])
         return {name: out[name] for name in self.links}
 
     def _held_from(self, values):

@@ -41,6 +41,28 @@ from .errors import AssemblyError, SpecError
 
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
 
+_EYE4 = np.eye(4)
+
+
+def _log6_one(t):
+    """(w, v) of one rigid transform: scalar fast path of :func:`spatial.log6`."""
+    r = t[:3, :3]
+    c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
+    if c > 0.99:  # small angle: series of the general formula, accurate to machine precision
+        skew = np.array([r[2, 1] - r[1, 2], r[0, 2] - r[2, 0], r[1, 0] - r[0, 1]]) / 2.0
+        s = math.sqrt(float(skew @ skew))
+        ang = math.asin(min(1.0, s))
+        w = skew * (ang / s if s > 1e-300 else 1.0)
+        if ang < 1e-4:
+            coef = 1 / 12 + ang * ang / 720
+        else:
+            coef = (1 - (ang / 2) / math.tan(ang / 2)) / (ang * ang)
+        k = spatial.hat(w)
+        v = t[:3, 3] - 0.5 * (k @ t[:3, 3]) + coef * (k @ (k @ t[:3, 3]))
+        return w, v
+    x = spatial.log6(t)
+    return x[:3], x[3:]
+
 #: Converged when every loop closes within this (length unit and radian).
 TOLERANCE = 1e-9
 #: A pose is flagged singular when the smallest (generic-rank) singular value of the
@@ -71,6 +93,11 @@ class Solver:
         self._couplings()
         self._blocks()
         self._generic_rank = {}
+        self._plans = {}
+        self._fast = {}
+        self._layouts = {}
+        self._lastJ = {}
+        self._allcols = {}
         self._home_q = None
         self._home_notes = []
         self.is_length = np.array([k == "length" for k in mech._kind], dtype=bool)
@@ -156,6 +183,13 @@ class Solver:
     # -- evaluation --------------------------------------------------------------------
     def _layout(self, block, held_masters):
         """Unknown columns of a block: list of ("m", master) or ("s", joint, 0..2)."""
+        key = (block.index, frozenset(held_masters), id(self.members))
+        hit = self._layouts.get(key)
+        if hit is None:
+            hit = self._layouts[key] = self._layout_new(block, held_masters)
+        return hit
+
+    def _layout_new(self, block, held_masters):
         m = self.m
         cols = []
         rot = set()
@@ -177,69 +211,122 @@ class Solver:
                 cols.extend(("s", jn, k) for k in range(3))
         return cols, rot
 
-    def _joint_data(self, block, q, rot):
-        """Transform and twist columns of each joint of a block."""
+    def _plan(self, block, cols, rot):
+        """Cached index arrays of a block for one set of unknown columns."""
+        key = (block.index, tuple(cols), frozenset(rot), id(self.members))
+        plan = self._plans.get(key)
+        if plan is not None:
+            return plan
         m = self.m
-        out = {}
+        screws, pidx, phome, joint_prims, slot_of = [], [], [], {}, {}
+        nslot = 0
         for jn in block.joints:
             j = m.joints[jn]
-            e, x = j.partials(q[m._slices[jn]])
-            if jn in rot:
-                x = j.rotation_twists()
-            out[jn] = (e, x)
-        return out
+            sl = m._slices[jn]
+            joint_prims[jn] = (len(pidx), len(pidx) + len(j.primitives))
+            for k, prim in enumerate(j.primitives):
+                screws.append(prim.screw)
+                pidx.append(sl.start + k)
+                phome.append(j.home[k])
+            width = len(j.primitives)
+            slot_of[jn] = (nslot, nslot + width)
+            nslot += width
+        M = np.zeros((nslot, len(cols)))
+        for ci, c in enumerate(cols):
+            if c[0] == "m":
+                for i in self.members[c[1]]:
+                    jn = m._owner[m.coordinates[i]]
+                    if jn in slot_of and jn not in rot:
+                        M[slot_of[jn][0] + i - m._slices[jn].start, ci] += self.alpha[i]
+            else:
+                M[slot_of[c[1]][0] + c[2], ci] = 1.0
+        steps, rowmaps = [], []
+        for loop in block.loops:
+            steps.append([(jn, sign, slot_of[jn], jn == loop.name) for jn, sign in loop.steps])
+            step_of_row, sign_of_row, slot_of_row = [], [], []
+            for k, (jn, sign) in enumerate(loop.steps):
+                s0, s1 = slot_of[jn]
+                for sl in range(s0, s1):
+                    step_of_row.append(k)
+                    sign_of_row.append(float(sign))
+                    slot_of_row.append(sl)
+            sel = np.zeros((len(slot_of_row), nslot))
+            sel[np.arange(len(slot_of_row)), slot_of_row] = 1.0
+            rowmaps.append((np.array(step_of_row, dtype=int), np.array(sign_of_row)[:, None], sel @ M))
+        plan = {
+            "screws": np.array(screws).reshape(-1, 6),
+            "powers": spatial.screw_powers(np.array(screws).reshape(-1, 6)), "pidx": np.array(pidx, dtype=int),
+            "phome": np.array(phome, dtype=float), "joint_prims": joint_prims, "M": M,
+            "nslot": nslot, "steps": steps, "rows": rowmaps,
+            "rot_x": {jn: m.joints[jn].rotation_twists() for jn in rot},
+            "points": {loop.name: np.append(m.joints[loop.name].point, 1.0) for loop in block.loops},
+        }
+        self._plans[key] = plan
+        return plan
 
     def _eval(self, block, q, cols, rot, jac=True):
         """Residual (6 per loop, at the cut), per-loop errors and the Jacobian."""
-        m = self.m
-        data = self._joint_data(block, q, rot)
+        plan = self._fast.get(id(cols))
+        if plan is None or plan["cols"] is not cols or plan["rot"] != rot or plan["block"] != block.index:
+            plan = self._plan(block, cols, rot)
+            plan = dict(plan, cols=cols, rot=set(rot), block=block.index)
+            self._fast[id(cols)] = plan
+        th = q[plan["pidx"]] - plan["phome"]
+        ex = spatial.exp_unit(plan["powers"], th) if th.size else np.zeros((0, 4, 4))
+        screws = plan["screws"]
+        data = {}
+        for jn, (p0, p1) in plan["joint_prims"].items():
+            if p1 - p0 == 1:
+                e, x = ex[p0], screws[p0:p1]
+            elif p1 == p0:
+                e, x = _EYE4, np.zeros((0, 6))
+            else:
+                e = ex[p0]
+                xs = [screws[p0]]
+                for k in range(p0 + 1, p1):
+                    xs.append(spatial.adjoint(e) @ screws[k])
+                    e = e @ ex[k]
+                x = np.array(xs)
+            if jn in rot:
+                x = plan["rot_x"][jn]
+            data[jn] = (e, x)
         nl = len(block.loops)
-        r = np.zeros(6 * nl)
-        errs = np.zeros(nl)
+        r = np.empty(6 * nl)
+        errs = np.empty(nl)
         J = np.zeros((6 * nl, len(cols))) if jac else None
-        for li, loop in enumerate(block.loops):
-            a = np.eye(4)
+        inv_cache = {}
+        for li, steps in enumerate(plan["steps"]):
+            a = _EYE4
             site = None
-            rows = {} if jac else None
-            srows = {} if jac else None
-            for jn, sign in loop.steps:
+            frames = []
+            xs = []
+            for jn, sign, slot, is_cut in steps:
                 e, x = data[jn]
-                if jn == loop.name:
-                    site = a @ np.append(m.joints[jn].point, 1.0)
+                if is_cut:
+                    site = a @ plan["points"][jn]
                 if sign > 0:
-                    ad = spatial.adjoint(a) if jac else None
+                    frames.append(a)
                     a = a @ e
                 else:
-                    a = a @ spatial.inverse(e)
-                    ad = -spatial.adjoint(a) if jac else None
-                if not jac:
-                    continue
-                tw = x @ ad.T  # (k, 6): Ad @ x_k for each column
-                if jn in rot:
-                    srows[jn] = srows.get(jn, 0) + tw.T
-                else:
-                    for k, i in enumerate(range(m._slices[jn].start, m._slices[jn].stop)):
-                        rows[i] = rows[i] + tw[k] if i in rows else tw[k]
-            w_r = spatial.log6(a)
+                    ei = inv_cache.get(jn)
+                    if ei is None:
+                        ei = inv_cache[jn] = spatial.inverse(e)
+                    a = a @ ei
+                    frames.append(a)
+                xs.append(x)
+            w, v = _log6_one(a)
             p = site[:3]
-            w, v = w_r[:3], w_r[3:] + np.cross(w_r[:3], p)
+            v = v + (w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0])
             r[6 * li:6 * li + 3] = w
             r[6 * li + 3:6 * li + 6] = v
             errs[li] = max(np.abs(w).max(), np.abs(v).max())
-            if jac:
-                shift = np.eye(6)
-                shift[3:, :3] = -spatial.hat(p)
-                for ci, c in enumerate(cols):
-                    if c[0] == "m":
-                        col = np.zeros(6)
-                        for i in self.members[c[1]]:
-                            if i in rows:
-                                col = col + self.alpha[i] * rows[i]
-                    else:
-                        if c[1] not in srows:
-                            continue
-                        col = srows[c[1]][:, c[2]]
-                    J[6 * li:6 * li + 6, ci] = shift @ col
+            if jac and cols:
+                step_of_row, sign_of_row, selm = plan["rows"][li]
+                ads = spatial.adjoint(np.array(frames))
+                tw = np.einsum("kij,kj->ki", ads[step_of_row], np.concatenate(xs)) * sign_of_row
+                rows = tw.T @ selm
+                rows[3:] -= spatial.hat(p) @ rows[:3]
+                J[6 * li:6 * li + 6] = rows
         return r, errs, J
 
     def _col_scale(self, cols):
@@ -273,31 +360,40 @@ class Solver:
                     q[i] = self.alpha[i] * q[g] + self.beta[i]
 
     # -- Newton corrector ---------------------------------------------------------------
-    def _newton(self, block, q, cols, rot):
-        """Close the block's loops from ``q`` (in place).  Returns (ok, err, loop_errs)."""
+    def _newton(self, block, q, cols, rot, evaluated=None, nu=None):
+        """Close the block's loops from ``q`` (in place).
+
+        Returns ``(ok, err, loop_errs, J)`` with ``J`` the Jacobian at the final state.
+        Only the first ``nu`` columns (default all) are unknowns; the rest are evaluated
+        along (for the continuation predictor) but not moved.
+        """
         nl = len(block.loops)
         rs = self._row_scale(nl)
+        evalcols = cols
+        if nu is not None:
+            cols = cols[:nu]
         cs = self._col_scale(cols)
-        r, errs, J = self._eval(block, q, cols, rot)
+        r, errs, J = evaluated if evaluated is not None else self._eval(block, q, evalcols, rot)
         err = errs.max()
-        best = (err, q.copy(), errs)
+        best = (err, q.copy(), errs, J)
         step_scale = 1.0
         for _ in range(MAX_ITER):
             if err <= TOLERANCE:
-                return True, err, errs
+                return True, err, errs, J
             if not cols:
                 break
-            Js = J * rs[:, None] * cs[None, :]
+            Js = J[:, :len(cols)] * rs[:, None] * cs[None, :]
             du_s = np.linalg.lstsq(Js, -r * rs, rcond=1e-10)[0]
             big = np.abs(du_s).max() if du_s.size else 0.0
             if big > 0.5:
                 du_s *= 0.5 / big
             q_old = q.copy()
             accepted = False
+            norm0 = np.linalg.norm(r * rs)
             for _half in range(8):
                 self._apply(q, cols, rot, du_s * cs * step_scale)
-                r2, errs2, J2 = self._eval(block, q, cols, rot)
-                if np.linalg.norm(r2 * rs) < np.linalg.norm(r * rs) or errs2.max() <= TOLERANCE:
+                r2, errs2, J2 = self._eval(block, q, evalcols, rot)
+                if errs2.max() <= TOLERANCE or np.linalg.norm(r2 * rs) < norm0:
                     accepted = True
                     break
                 q[:] = q_old
@@ -308,11 +404,11 @@ class Solver:
             r, errs, J = r2, errs2, J2
             err = errs.max()
             if err < best[0]:
-                best = (err, q.copy(), errs)
+                best = (err, q.copy(), errs, J)
         if err <= TOLERANCE:
-            return True, err, errs
+            return True, err, errs, J
         q[:] = best[1]
-        return False, best[0], best[2]
+        return False, best[0], best[2], best[3]
 
     # -- public ----------------------------------------------------------------------------
     def closure(self, q):
@@ -347,7 +443,7 @@ class Solver:
             drives = {int(self.master[i]) for i, c in enumerate(m.coordinates) if c in m.driven}
             held = set(drives) & set(b.groups)
             cols, rot = self._layout(b, held)
-            ok, err, _ = self._newton(b, q, cols, rot)
+            ok, err, _, _ = self._newton(b, q, cols, rot)
             if not ok:
                 raise AssemblyError(f"loop closed by joint {loop!r} could not be settled at home "
                                     f"(closest error {err:.3g})", loop=loop, error=float(err))
@@ -408,50 +504,67 @@ class Solver:
         source.setdefault(g, i)
 
     def _solve_block(self, b, q, held_b, source):
-        m = self.m
         cols, rot = self._layout(b, set(held_b))
         cs = self._col_scale(cols)
         rs = self._row_scale(len(b.loops))
-        h0 = {g: q[g] for g in held_b}
-        dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in held_b])
+        hlist = list(held_b)
+        h0 = {g: q[g] for g in hlist}
+        dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in hlist])
         span = float(np.abs(dh).max()) if dh.size else 0.0
+        if span == 0.0:
+            ok, err, errs, J = self._newton(b, q, cols, rot)
+            if not ok:
+                self._fail(b, q, held_b, source, err, errs, h0)
+            return err, self._singular(b, J, cols, rs, cs)
+        nu = len(cols)
+        akey = (id(cols), tuple(hlist))
+        allcols = self._allcols.get(akey)
+        if allcols is None or allcols[0] is not cols:
+            allcols = self._allcols[akey] = (cols, cols + [("m", g) for g in hlist])
+        allcols = allcols[1]
         t = 0.0
         dt = 1.0 if span <= MAX_STEP else MAX_STEP / span
-        last_err = None
+        J_here = None
         while True:
             t1 = min(1.0, t + dt)
             trial = q.copy()
-            for g in held_b:
+            for g in hlist:
                 trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
-            self._derive(trial, list(held_b))
+            self._derive(trial, hlist)
             # tangent predictor: d(unknown) = -pinv(J_u) J_h d(held)
-            if held_b and cols and t1 > t:
-                hcols = [("m", g) for g in held_b]
-                _, _, Jh = self._eval(b, q, hcols, rot)
-                _, _, Ju = self._eval(b, q, cols, rot)
-                dhv = np.array([trial[g] - q[g] for g in held_b])
-                rhs = -(Jh @ dhv) * rs
-                pred = np.linalg.lstsq(Ju * rs[:, None] * cs[None, :], rhs, rcond=1e-6)[0] * cs
+            if cols:
+                if J_here is None:
+                    cached = self._lastJ.get(b.index)
+                    if cached is not None and cached[0] is allcols and np.array_equal(cached[1], q):
+                        J_here = cached[2]
+                    else:
+                        J_here = self._eval(b, q, allcols, rot)[2]
+                ju, jh = J_here[:, :nu], J_here[:, nu:]
+                dhv = np.array([trial[g] - q[g] for g in hlist])
+                pred = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh @ dhv) * rs,
+                                       rcond=1e-6)[0] * cs
                 self._apply(trial, cols, rot, pred)
             before = trial.copy()
-            ok, err, errs = self._newton(b, trial, cols, rot)
-            last_err = (err, errs)
+            ok, err, errs, Jall = self._newton(b, trial, allcols, rot, nu=nu)
+            J = Jall[:, :nu]
             jump = False
-            if ok and t1 > t:
+            if ok:
                 moved = self._dist(before, trial, cols)
-                step = float(np.abs(dh).max()) * (t1 - t) if dh.size else 0.0
+                step = span * (t1 - t)
                 jump = moved > max(0.5 * step, 1e-4) and dt > 1e-6
             if ok and not jump:
                 q[:] = trial
                 t = t1
+                J_here = Jall
                 if t >= 1.0:
+                    self._lastJ[b.index] = (allcols, q.copy(), Jall)
                     break
                 dt = min(dt * 1.5, MAX_STEP / span if span > MAX_STEP else 1.0)
                 continue
             dt *= 0.5
-            if dt < 1e-7 or (t1 == t):
+            if dt < 1e-7:
                 self._fail(b, q, held_b, source, err, errs, h0)
-        return last_err[0], self._singular(b, q, cols, rot, rs, cs)
+        return err, self._singular(b, J, cols, rs, cs)
 
     def _dist(self, a, b, cols):
         d = 0.0
@@ -484,10 +597,10 @@ class Solver:
         raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
                             f"(closest closure error reached){where}", loop=loop, error=float(err), joint=blame)
 
-    def _singular(self, b, q, cols, rot, rs, cs):
-        if not cols:
+    def _singular(self, b, J, cols, rs, cs):
+        """Near a dead point: the generic-rank singular value of the scaled J_u is tiny."""
+        if not cols or J is None or not J.size:
             return False
-        _, _, J = self._eval(b, q, cols, rot)
         s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False)
         if s.size == 0 or s[0] == 0:
             return False

@@ -29,7 +29,7 @@ from .errors import JointwiseError
 
 __all__ = [
     "hat", "vee", "twist_matrix", "screw_axis", "exp3", "exp6", "log3", "log6",
-    "adjoint", "inverse", "to_homogeneous", "from_homogeneous", "translation",
+    "screw_powers", "exp_unit", "adjoint", "inverse", "to_homogeneous", "from_homogeneous", "translation",
     "SMALL_ANGLE",
 ]
 
@@ -131,6 +131,28 @@ def exp6(s, theta=1.0):
     out[..., :3, 3] = np.einsum("...ij,...j->...i", g, v)
     out[..., 3, 3] = 1.0
     return out
+
+
+def screw_powers(s):
+    """Powers ``([S], [S]^2, [S]^3)`` of unit screws, shape (..., 3, 4, 4), for :func:`exp_unit`."""
+    a1 = twist_matrix(s)
+    a2 = a1 @ a1
+    return np.stack([a1, a2, a2 @ a1], axis=-3)
+
+
+def exp_unit(powers, theta):
+    """exp([S] theta) of unit screws from their :func:`screw_powers`.
+
+    For a unit screw (|w| = 1, or w = 0 and |v| = 1),
+    ``exp([S] t) = I + t [S] + (1 - cos t) [S]^2 + (t - sin t) [S]^3``
+    (ref. 2, proposition 3.25, written with powers of the 4x4 twist matrix).
+    """
+    t = np.asarray(theta, dtype=float)[..., None, None]
+    return (_EYE4 + t * powers[..., 0, :, :] + (1 - np.cos(t)) * powers[..., 1, :, :]
+            + (t - np.sin(t)) * powers[..., 2, :, :])
+
+
+_EYE4 = np.eye(4)
 
 
 def log3(r):
