@@ -43,7 +43,7 @@ def jointwise_frame_change(scene, depsgraph=None):
         return
     from . import scene as sc
     with quiet():
-        sc.pose_scene(scene)
+        sc.pose_scene(scene, restore_values=False)
 
 
 @persistent

@@ -183,7 +183,7 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
             if obj is not None:
                 link.home = sc.matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world))
         for item in jw.joints:
-            item.home = item.value
+            item.home = item.last = item.value
             if item.marker is not None:
                 item.marker_home = sc.matrix_core_to_stored(sc.matrix_host_to_core(item.marker.matrix_world))
         try:
@@ -358,7 +358,7 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
                 it.parent, it.child = parent, childname
                 it.marker = marker
                 it.drive = self.drive
-                it.value = it.home = 0.0
+                it.value = it.home = it.last = 0.0
                 if self.type == "helical":
                     it.lead = 0.1 * max(max(child.dimensions), 1e-3)
                 if marker is not None:

@@ -70,6 +70,8 @@ class JointwiseCoordinate(bpy.types.PropertyGroup):
     kind: EnumProperty(name="Kind", items=(("angle", "Angle", ""), ("length", "Length", "")),
                        default="angle")
     home: FloatProperty(name="Home", description="Value at the home configuration", precision=6)
+    last: FloatProperty(name="Last solved", precision=6, options={'HIDDEN'},
+                        description="Value of the last placement applied to the scene (warm start, undo of a failed change)")
     drive: BoolProperty(name="Drive", description="Held at its value while the others are solved",
                         default=False)
     use_limits: BoolProperty(name="Limits", default=False)

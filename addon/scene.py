@@ -211,12 +211,52 @@ def mechanism_dict_from_scene(scene):
             jd["lead"] = abs(float(first.lead))
             jd["hand"] = first.hand
         data["joints"][joint] = jd
+    snap_lines(data["joints"])
     if jw.couplings:
         data["couplings"] = {c.name: {"leader": c.leader, "follower": c.follower,
                                       "ratio": float(c.ratio), "offset": float(c.offset)}
                              for c in jw.couplings}
     _check_finite(data, "scene mechanism")
     return data
+
+
+SNAP = 1e-5  # relative: well above float32 noise (~1e-7), far below any modelling intent
+
+
+def snap_lines(joints):
+    """Undo float32 noise in joint frames read from markers (in place).
+
+    Axis components below SNAP become 0; axes parallel to an earlier joint's axis within
+    SNAP rad take that axis; points within SNAP x size of an earlier joint's line on a
+    parallel axis move onto that line. Without this, coaxial or parallel joints (a screw
+    and its collar, a slide along a screw) come out a few 1e-7 apart, and such a loop
+    cannot close to the core's tolerance once it has turned a few times."""
+    pts = [np.asarray(j["point"], float) for j in joints.values() if "point" in j]
+    size = max([1.0] + [float(np.linalg.norm(a - b)) for a in pts for b in pts])
+    refs = []  # (axis, point)
+    for j in joints.values():
+        if "axis" not in j:
+            continue
+        for key in ("axis", "axis2"):
+            if key not in j:
+                continue
+            a = np.asarray(j[key], float)
+            a = np.where(np.abs(a) < SNAP, 0.0, a)
+            a = a / np.linalg.norm(a)
+            if key == "axis":
+                p = np.asarray(j["point"], float)
+                p = np.where(np.abs(p) < SNAP * size, 0.0, p)
+                for r, rp in refs:
+                    if np.linalg.norm(np.cross(a, r)) < SNAP:
+                        a = r if a @ r > 0 else -r
+                        off = (p - rp) - r * ((p - rp) @ r)
+                        if np.linalg.norm(off) < SNAP * size:
+                            p = rp + r * ((p - rp) @ r)
+                        break
+                else:
+                    refs.append((a, p))
+                j["point"] = p.tolist()
+            j[key] = a.tolist()
 
 
 def _check_finite(obj, where):
@@ -296,13 +336,13 @@ def held_values(scene, mech, extra=(), values=None):
 
 
 def start_from_scene(scene, mech):
-    """A warm start for ``Mechanism.pose`` from the scene's current values (so the solve
-    stays on the branch the scene is on)."""
+    """A warm start for ``Mechanism.pose`` from the values of the placement the scene
+    shows (``last``: the last solved values), so the solve stays on the scene's branch."""
     jw = scene.jointwise
     q = []
     for c in mech.coordinates:
         item = jw.joints.get(c)
-        q.append(float(item.value) if item is not None else 0.0)
+        q.append(float(item.last) if item is not None else 0.0)
     try:
         Pose = core().Pose
     except AttributeError:
@@ -375,8 +415,11 @@ def write_values(scene, joints):
     with handlers.quiet():
         for name, v in joints.items():
             item = jw.joints.get(name)
-            if item is not None and math.isfinite(v) and abs(item.value - v) > 1e-12 * max(1.0, abs(v)):
+            if item is None or not math.isfinite(v):
+                continue
+            if abs(item.value - v) > 1e-12 * max(1.0, abs(v)):
                 item.value = v
+            item.last = v
 
 
 def set_status(scene, *, converged=True, error=0.0, singular=False, message="", mobility=None):
@@ -406,9 +449,9 @@ def mobility_of(mech, pose=None):
 
 
 def snapshot(scene):
-    """Values and link placements, to put back after a failed solve."""
+    """Values (the last solved ones) and link placements, to put back after a failed solve."""
     jw = scene.jointwise
-    values = {it.name: float(it.value) for it in jw.joints}
+    values = {it.name: float(it.last) for it in jw.joints}
     placements = []
     for link in jw.links:
         obj = link.object
@@ -417,9 +460,10 @@ def snapshot(scene):
     return values, placements
 
 
-def restore(scene, snap):
-    values, placements = snap
-    write_values(scene, values)
+def restore(scene, snap, values=True):
+    old_values, placements = snap
+    if values:
+        write_values(scene, old_values)
     for obj, m in placements:
         obj.matrix_world = m
 
@@ -439,16 +483,17 @@ def solve(scene, extra=(), values=None):
     return mech, pose
 
 
-def pose_scene(scene, extra=(), values=None):
-    """Solve and apply. On failure the scene is left as it was and the status says why.
-    Returns (ok, message)."""
+def pose_scene(scene, extra=(), values=None, restore_values=True):
+    """Solve and apply. On failure the scene is left as it was (values back at the last
+    solved ones unless ``restore_values`` is false, e.g. for animated values) and the
+    status says why. Returns (ok, message)."""
     snap = snapshot(scene)
     try:
         mech, pose = solve(scene, extra, values)
         apply_displacements(scene, pose.links)
         write_values(scene, pose.joints)
     except (SceneError, core().JointwiseError) as exc:
-        restore(scene, snap)
+        restore(scene, snap, restore_values)
         msg = describe_error(exc)
         set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         return False, msg
@@ -580,7 +625,7 @@ def import_mechanism(scene, mech, objects, marker_collection):
     from . import handlers
     with handlers.quiet():
         for item in jw.joints:
-            item.value = item.home
+            item.value = item.last = item.home
     for cname, c in mech.couplings.items():
         cp = jw.couplings.add()
         cp.name = cname
@@ -676,9 +721,9 @@ def _thread_matches(thread, lead_file, unit):
 
 
 def _tidy(v):
-    """Round float32 noise away (9 significant digits)."""
+    """Round float32 noise away (7 significant digits: what a float32 property holds)."""
     v = float(v)
     if not math.isfinite(v):
         raise SceneError(f"refusing to export a non-finite number ({v})")
-    r = float(f"{v:.9g}")
+    r = float(f"{v:.7g}")
     return 0.0 if r == 0 else r
