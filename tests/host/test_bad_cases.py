@@ -1,0 +1,151 @@
+"""What goes wrong must say what and where, and leave the scene as it was."""
+from __future__ import annotations
+
+import math
+
+import bpy
+import numpy as np
+import pytest
+
+import workshop as ws
+
+
+def placements():
+    return {o.name: ws.world(o) for o in bpy.context.scene.objects}
+
+
+def same(a, b, tol=1e-7):
+    return a.keys() == b.keys() and all(np.allclose(a[k], b[k], atol=tol) for k in a)
+
+
+def clamp(tmp_path, **kw):
+    ws.make_clamp_objects(0.001)
+    path = ws.clamp_file(tmp_path, **kw)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    return path
+
+
+def test_import_names_the_missing_object(fresh, tmp_path):
+    ws.make_clamp_objects(0.001)
+    bpy.data.objects.remove(bpy.data.objects["Rocker"])
+    path = ws.clamp_file(tmp_path)
+    with pytest.raises(RuntimeError, match=r"lintel\.toml.*'rocker'.*'Rocker'"):
+        bpy.ops.jointwise.mechanism_import(filepath=str(path))
+    assert len(fresh.jointwise.joints) == 0
+    assert not [o for o in bpy.data.objects if o.get("jointwise_marker")]
+
+
+def test_import_zero_length_axis_in_file(fresh, tmp_path):
+    ws.make_clamp_objects(0.001)
+    before = placements()
+    path = ws.clamp_file(tmp_path, axis_a=(0, 0, 0))
+    with pytest.raises(RuntimeError, match=r"joints\.a\.axis.*zero length"):
+        bpy.ops.jointwise.mechanism_import(filepath=str(path))
+    assert len(fresh.jointwise.joints) == 0
+    assert same(before, placements())
+
+
+def test_import_bad_file_names_file_and_key(fresh, tmp_path):
+    path = tmp_path / "broken.toml"
+    path.write_text('format = 1\n[mechanism]\nground = "base"\n[links.base]\n[joints.x]\ntype = "wobbly"\n')
+    with pytest.raises(RuntimeError, match=r"broken\.toml.*joints\.x"):
+        bpy.ops.jointwise.mechanism_import(filepath=str(path))
+    with pytest.raises(RuntimeError, match=r"cannot import nothing-here\.toml"):
+        bpy.ops.jointwise.mechanism_import(filepath=str(tmp_path / "nothing-here.toml"))
+
+
+def test_deleted_link_object(fresh, tmp_path):
+    clamp(tmp_path)
+    jw = fresh.jointwise
+    bpy.data.objects.remove(bpy.data.objects["Coupler"])
+    before = placements()
+    with pytest.raises(RuntimeError, match=r"link 'coupler'.*missing.*'Coupler'"):
+        bpy.ops.jointwise.pose()
+    jw.live = True
+    jw.joints["a"].value = math.radians(150)
+    assert not jw.converged and "coupler" in jw.message
+    assert jw.joints["a"].value == pytest.approx(math.radians(90), abs=1e-6)
+    assert same(before, placements())
+    with pytest.raises(RuntimeError, match="coupler"):
+        bpy.ops.jointwise.bake(frame_start=1, frame_end=3)
+
+
+def test_marker_scaled_to_zero(fresh, tmp_path):
+    clamp(tmp_path)
+    jw = fresh.jointwise
+    jw.joints["b"].marker.scale = (0, 0, 0)
+    bpy.context.view_layer.update()
+    before = placements()
+    with pytest.raises(RuntimeError, match=r"joint 'b'.*zero length"):
+        bpy.ops.jointwise.pose()
+    jw.live = True
+    jw.joints["a"].value = math.radians(150)
+    assert not jw.converged and "zero length" in jw.message
+    assert same(before, placements())
+
+
+def _rocker_reach(tmp_path):
+    """The first rocker angle (deg, from home, in 1-degree steps) the core refuses."""
+    import jointwise
+    mech = jointwise.load(ws.clamp_file(tmp_path, drive="d"))
+    prev = None
+    for deg in range(0, 181):
+        try:
+            prev = mech.pose({"d": float(deg)}, start=prev)
+        except jointwise.AssemblyError:
+            return deg
+    raise AssertionError("rocker reaches every angle?")
+
+
+def test_unreachable_value_leaves_scene_and_says_why(fresh, tmp_path):
+    reach = _rocker_reach(tmp_path)
+    clamp(tmp_path, drive="d")
+    jw = fresh.jointwise
+    jw.live = True
+    jw.joints["d"].value = math.radians(reach - 5)
+    assert jw.converged, jw.message
+    before = placements()
+    values = {it.name: it.value for it in jw.joints}
+    jw.joints["d"].value = math.radians(reach + 20)
+    assert not jw.converged
+    assert "assemble" in jw.message or "close" in jw.message, jw.message
+    assert same(before, placements())
+    assert {it.name: it.value for it in jw.joints} == pytest.approx(values, abs=1e-7)
+
+
+def test_bake_over_dead_point_writes_nothing_and_names_frame(fresh, tmp_path):
+    reach = _rocker_reach(tmp_path)  # first refused whole degree
+    clamp(tmp_path, drive="d")
+    jw = fresh.jointwise
+    # one degree per frame from home: frame 1 = 0 deg, frame f = f - 1 deg
+    r = bpy.ops.jointwise.bake  # noqa: F841
+    jw.joints["d"].value = 0.0
+    fresh.keyframe_insert('jointwise.joints["d"].value', frame=1)
+    jw.joints["d"].value = math.radians(100)
+    fresh.keyframe_insert('jointwise.joints["d"].value', frame=101)
+    for fc in ws.fcurves_of(fresh):
+        for k in fc.keyframe_points:
+            k.interpolation = 'LINEAR'
+    before = placements()
+    with pytest.raises(RuntimeError, match=r"frame (\d+)") as info:
+        bpy.ops.jointwise.bake(frame_start=1, frame_end=101)
+    import re
+    frame = int(re.search(r"frame (\d+)", str(info.value)).group(1))
+    # the dead point lies between reach - 1 and reach degrees: frames reach .. reach + 1
+    assert reach <= frame <= reach + 1, (frame, reach)
+    assert "no keys were written" in str(info.value)
+    for name in ("Crank", "Coupler", "Rocker"):
+        assert ws.fcurves_of(bpy.data.objects[name]) == []
+    assert same(before, placements())
+    assert f"frame {frame}" in jw.message
+
+
+def test_empty_scene_operators_report(fresh, tmp_path):
+    with pytest.raises(RuntimeError, match="no mechanism"):
+        bpy.ops.jointwise.pose()
+    with pytest.raises(RuntimeError, match="no mechanism"):
+        bpy.ops.jointwise.home_set()
+    with pytest.raises(RuntimeError, match="no mechanism"):
+        bpy.ops.jointwise.bake(frame_start=1, frame_end=2)
+    with pytest.raises(RuntimeError, match="empty"):
+        bpy.ops.jointwise.bake(frame_start=5, frame_end=2)

@@ -1,0 +1,79 @@
+"""The zip and its manifest; registration that leaves nothing behind."""
+from __future__ import annotations
+
+import tomllib
+import zipfile
+
+import bpy
+import pytest
+
+from conftest import MODULE, ROOT
+
+
+def test_zip_contents_and_manifest(extension_zip):
+    with zipfile.ZipFile(extension_zip) as z:
+        names = set(z.namelist())
+        manifest = tomllib.loads(z.read("blender_manifest.toml").decode())
+    with open(ROOT / "pyproject.toml", "rb") as f:
+        version = tomllib.load(f)["project"]["version"]
+    assert extension_zip.name == f"jointwise-{version}.zip"
+    assert {"__init__.py", "properties.py", "scene.py", "operators.py", "panels.py", "bake.py",
+            "handlers.py"} <= names
+    assert "package.py" not in names
+    wheel = f"wheels/jointwise-{version}-py3-none-any.whl"
+    assert wheel in names
+    assert manifest["id"] == "jointwise" and manifest["version"] == version
+    assert manifest["schema_version"] == "1.0.0" and manifest["type"] == "add-on"
+    assert manifest["blender_version_min"] == "4.4.0"
+    assert manifest["license"] == ["SPDX:GPL-3.0-or-later"]
+    assert manifest["wheels"] == [f"./{wheel}"]
+    assert set(manifest["permissions"]) == {"files"} and manifest["permissions"]["files"]
+
+
+def _count(lst, name):
+    return sum(1 for h in lst if getattr(h, "__name__", "") == name)
+
+
+def test_disable_enable_leaves_no_duplicates(installed):
+    import addon_utils
+    h = bpy.app.handlers
+    assert _count(h.frame_change_post, "jointwise_frame_change") == 1
+    assert _count(h.load_post, "jointwise_load_post") == 1
+    bpy.ops.preferences.addon_disable(module=MODULE)
+    assert not addon_utils.check(MODULE)[1]
+    assert _count(h.frame_change_post, "jointwise_frame_change") == 0
+    assert _count(h.load_post, "jointwise_load_post") == 0
+    assert not hasattr(bpy.types.Scene, "jointwise")
+    assert not hasattr(bpy.types, "JOINTWISE_PT_mechanism")
+    for _ in range(2):
+        bpy.ops.preferences.addon_enable(module=MODULE)
+        bpy.ops.preferences.addon_disable(module=MODULE)
+    bpy.ops.preferences.addon_enable(module=MODULE)
+    assert addon_utils.check(MODULE)[1]
+    assert _count(h.frame_change_post, "jointwise_frame_change") == 1
+    assert _count(h.load_post, "jointwise_load_post") == 1
+    assert hasattr(bpy.types.Scene, "jointwise")
+    for cls in ("JOINTWISE_PT_mechanism", "JOINTWISE_PT_joints", "JOINTWISE_UL_joints",
+                "JOINTWISE_OT_bake"):
+        assert hasattr(bpy.types, cls), cls
+    assert hasattr(bpy.ops.jointwise, "mechanism_import")
+
+
+def test_operators_are_undoable(installed):
+    for name in ("mechanism_import", "bake", "bake_clear", "home_set", "home_restore",
+                 "joint_add", "joint_remove", "coupling_add", "live_toggle"):
+        op = getattr(bpy.types, f"JOINTWISE_OT_{name}")
+        assert {"REGISTER", "UNDO"} <= set(op.bl_options), name
+
+
+def test_value_property_units(fresh):
+    jw = fresh.jointwise
+    item = jw.joints.add()
+    item.name = "x"
+    rna = item.bl_rna.properties
+    assert rna["angle"].subtype == "ANGLE" and rna["length"].subtype == "DISTANCE"
+    assert rna["value"].is_animatable
+    item.angle = 1.25
+    assert item.value == pytest.approx(1.25)
+    item.length = 0.5
+    assert item.value == pytest.approx(0.5)

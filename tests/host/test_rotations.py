@@ -1,0 +1,47 @@
+"""Rotation channels of the bake against mathutils (the host's own conversions)."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from mathutils import Euler, Matrix, Quaternion
+
+
+@pytest.fixture
+def bake_module(installed):
+    import importlib
+    return importlib.import_module(installed + ".bake")
+
+
+def random_rotations(n, seed=7):
+    rng = np.random.default_rng(seed)
+    q = rng.normal(size=(n, 4))
+    q /= np.linalg.norm(q, axis=1, keepdims=True)
+    return [np.array(Quaternion(v).to_matrix()) for v in q]
+
+
+@pytest.mark.parametrize("order", ["XYZ", "XZY", "YXZ", "YZX", "ZXY", "ZYX"])
+def test_euler_from_matrix_rebuilds_the_matrix(bake_module, order):
+    rs = random_rotations(50)
+    e = bake_module.eulers_from_rotations(np.array(rs), order)
+    for r, angles in zip(rs, e):
+        back = np.array(Euler(angles, order).to_matrix())
+        assert np.allclose(back, r, atol=2e-6)  # mathutils is float32
+
+
+def test_quaternion_from_matrix_matches_mathutils(bake_module):
+    rs = random_rotations(50, seed=3)
+    q = bake_module.quaternions_from_rotations(np.array(rs))
+    for r, v in zip(rs, q):
+        ref = np.array(Matrix(r.tolist()).to_quaternion())
+        assert np.allclose(v, ref, atol=2e-6) or np.allclose(v, -ref, atol=2e-6)
+
+
+def test_continuity_helpers(bake_module):
+    turns = np.linspace(0, 6 * math.pi, 200)
+    rs = np.array([np.array(Euler((0, 0, t)).to_matrix()) for t in turns])
+    q = bake_module.continuous_quaternions(bake_module.quaternions_from_rotations(rs))
+    assert (np.einsum("ij,ij->i", q[1:], q[:-1]) > 0).all()
+    e = bake_module.continuous_eulers(bake_module.eulers_from_rotations(rs, "XYZ"))
+    assert np.allclose(e[:, 2], turns, atol=1e-9)
