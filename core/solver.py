@@ -69,8 +69,17 @@ TOLERANCE = 1e-9
 #: dimensionless constraint Jacobian of the solved coordinates falls below this
 #: fraction of the largest.
 SINGULAR_RATIO = 1e-3
-#: Largest continuation sub-step, dimensionless (radian, or length / mechanism size).
+#: First continuation sub-step: predicted motion of the solved coordinates,
+#: dimensionless (radian, or length / mechanism size); grows to ``MAX_MOTION``
+#: while the corrector stays small.
 MAX_STEP = 0.1
+MAX_MOTION = 0.3
+#: ... and up to this where the motion is close to linear (screws).
+MAX_LINEAR_MOTION = 2 * math.pi
+#: Largest sub-step of the held coordinates themselves (eight turns).
+MAX_HELD_STEP = 16 * math.pi
+#: A corrector that moves more than half the predicted motion plus this is a jump.
+JUMP_SLACK = 0.01
 MAX_ITER = 30
 
 
@@ -330,7 +339,8 @@ class Solver:
         return r, errs, J
 
     def _col_scale(self, cols):
-        return np.array([self.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+        """Size of one dimensionless unit of each column (length unit = mechanism size)."""
+        return np.array([1.0 / self.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
 
     def _row_scale(self, nl):
         return np.tile(self.rscale, nl)
@@ -522,48 +532,61 @@ class Solver:
         if allcols is None or allcols[0] is not cols:
             allcols = self._allcols[akey] = (cols, cols + [("m", g) for g in hlist])
         allcols = allcols[1]
+        dfull = np.array([held_b[g] - h0[g] for g in hlist])  # held change per unit t
+        held_rate = span  # dimensionless held motion per unit t
         t = 0.0
-        dt = 1.0 if span <= MAX_STEP else MAX_STEP / span
+        limit = MAX_STEP
         J_here = None
-        while True:
-            t1 = min(1.0, t + dt)
-            trial = q.copy()
-            for g in hlist:
-                trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
-            self._derive(trial, hlist)
-            # tangent predictor: d(unknown) = -pinv(J_u) J_h d(held)
+        err, errs, J = 0.0, np.zeros(0), None
+        while t < 1.0:
+            if J_here is None:
+                cached = self._lastJ.get(b.index)
+                if cached is not None and cached[0] is allcols and np.array_equal(cached[1], q):
+                    J_here = cached[2]
+                else:
+                    J_here = self._eval(b, q, allcols, rot)[2]
+            # tangent: d(unknown)/dt = -pinv(J_u) J_h d(held)/dt  (dimensionless columns)
             if cols:
-                if J_here is None:
-                    cached = self._lastJ.get(b.index)
-                    if cached is not None and cached[0] is allcols and np.array_equal(cached[1], q):
-                        J_here = cached[2]
-                    else:
-                        J_here = self._eval(b, q, allcols, rot)[2]
                 ju, jh = J_here[:, :nu], J_here[:, nu:]
-                dhv = np.array([trial[g] - q[g] for g in hlist])
-                pred = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh @ dhv) * rs,
-                                       rcond=1e-6)[0] * cs
-                self._apply(trial, cols, rot, pred)
-            before = trial.copy()
-            ok, err, errs, Jall = self._newton(b, trial, allcols, rot, nu=nu)
-            J = Jall[:, :nu]
-            jump = False
-            if ok:
-                moved = self._dist(before, trial, cols)
-                step = span * (t1 - t)
-                jump = moved > max(0.5 * step, 1e-4) and dt > 1e-6
-            if ok and not jump:
-                q[:] = trial
-                t = t1
-                J_here = Jall
-                if t >= 1.0:
-                    self._lastJ[b.index] = (allcols, q.copy(), Jall)
+                rate = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh @ dfull) * rs, rcond=1e-6)[0]
+                rmax = float(np.abs(rate).max()) if rate.size else 0.0
+            else:
+                rate, rmax = np.zeros(0), 0.0
+            remaining = 1.0 - t
+            dt = remaining
+            if rmax * dt > limit:
+                dt = limit / rmax
+            if held_rate * dt > MAX_HELD_STEP:
+                dt = MAX_HELD_STEP / held_rate
+            while True:
+                t1 = 1.0 if dt >= remaining else t + dt
+                trial = q.copy()
+                for g in hlist:
+                    trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
+                self._derive(trial, hlist)
+                if cols:
+                    self._apply(trial, cols, rot, rate * (t1 - t) * cs)
+                before = trial.copy()
+                ok, err, errs, Jall = self._newton(b, trial, allcols, rot, nu=nu)
+                J = Jall[:, :nu]
+                moved = self._dist(before, trial, cols) if ok else 0.0
+                if ok and moved <= 0.5 * rmax * (t1 - t) + JUMP_SLACK:
                     break
-                dt = min(dt * 1.5, MAX_STEP / span if span > MAX_STEP else 1.0)
-                continue
-            dt *= 0.5
-            if dt < 1e-7:
-                self._fail(b, q, held_b, source, err, errs, h0)
+                dt *= 0.5
+                if dt * max(held_rate, 1e-12) < 1e-9:
+                    self._fail(b, q, held_b, source, err, errs, h0)
+            q[:] = trial
+            pred = rmax * (t1 - t)
+            t = t1
+            J_here = Jall
+            # step control: grow while the corrector stays small against the prediction
+            limit = max(pred, MAX_STEP) if dt < remaining else limit
+            if moved < 0.01 * pred:
+                limit = min(2 * limit, MAX_LINEAR_MOTION)
+            elif moved < 0.1 * pred:
+                limit = min(1.5 * limit, MAX_MOTION)
+        if J_here is not None:
+            self._lastJ[b.index] = (allcols, q.copy(), J_here)
         return err, self._singular(b, J, cols, rs, cs)
 
     def _dist(self, a, b, cols):
@@ -686,7 +709,7 @@ class Solver:
             block = np.zeros((6 * nl, self.n))
             for ci, c in enumerate(full):
                 idx = c[1] if c[0] == "c" else m._slices[c[1]].start + c[2]
-                block[:, idx] = J[:, ci] * (self.cscale[idx] if c[0] == "c" else 1.0)
+                block[:, idx] = J[:, ci] / (self.cscale[idx] if c[0] == "c" else 1.0)
             rows.append(block * rs[:, None])
         for c in m.couplings.values():
             row = np.zeros(self.n)

@@ -1,0 +1,1215 @@
+"""Sweeps: continuation along many held values, vectorised over steps; reachable ranges.
+
+Public functions
+----------------
+``sweep(mech, drive, values, held=None)``
+    Drive one coordinate through ``values`` (file units).  The file's own ``drive = true``
+    flags are released for the run; ``held`` (coordinate -> value) holds others.
+``follow(mech, table, start=None)``
+    Continuation along N rows of held values ``{coordinate: array N}`` with the rules of
+    :meth:`Mechanism.pose` (the file's drives not in the table stay held).  Never raises
+    for a failed row: it is flagged ``converged[i] = False`` and repeats the last good pose.
+``sweep_schedule(mech, schedule, samples)``
+    Several inputs at once, from keys (linear or eased segments) or a CSV table.
+``reach(mech, drive, held=None)``
+    Reachable interval(s) of a drive from home, by bracketing and bisection.
+
+How a sweep is solved
+---------------------
+1. *Anchors*: samples spaced at most ``ANCHOR_STEP`` apart in held motion (dimensionless:
+   radians, or length over the mechanism size) are solved one after another, each started
+   from the previous one with a tangent predictor and Newton corrections (batch of one);
+   an anchor that fails there, or moves more than a predictor should, is handed to
+   :meth:`Solver.pose` (adaptive sub-steps, branch-jump checks) from the previous state.
+2. *Refinement*: points spaced ``REFINE_STEP`` apart are seeded by cubic Hermite
+   interpolation between neighbouring anchors (end slopes from the Jacobian tangent
+   dq/dheld), corrected by batched Gauss-Newton steps over all of them at once, then every
+   remaining sample is seeded from those and corrected the same way.  The batched
+   evaluator stacks the screw exponentials, adjoint products, loop logarithms and
+   Jacobians over steps (``B x 4 x 4`` products; least-norm steps from the normal
+   equations of the dimensionless Jacobian, solved by a Cholesky factorisation vectorised
+   over steps).
+3. *Verification*: a sample counts only if every loop closes within ``TOLERANCE``
+   (1e-9 length unit and radian) and the correction moved it by less than a tenth of
+   the local sample spacing (else it may have jumped branch).  Samples failing either
+   are solved one by one with :meth:`Solver.pose` from the neighbouring good sample.
+   Inside a stretch that cannot be reached, the first failure stops the walk into it;
+   the rest of that stretch is flagged without further attempts.
+4. Every sample gets ``converged`` and ``singular`` flags; a failed sample repeats the
+   last good pose (finite values, never NaN).  A coordinate outside its joint limits
+   makes a sample fail as well (reason "limit of joint X").
+
+Singular flags
+--------------
+A sample is singular when the smallest singular value of the dimensionless reduced
+Jacobian (unknown coordinates, spherical joints by rotation increments) falls below
+``SINGULAR_RATIO`` of the largest, as in the solver.  The cheap certificate
+``det(G) / |G|_F^g`` (``G`` the Gram matrix of the normal equations) bounds that ratio
+from below, so the SVD is only computed where the certificate cannot exclude it.  A dead
+point crossed *between* samples is caught from ``s = sqrt(det G / |G|_F^g)``, which
+behaves like ``|t - t0|`` near a simple singularity: where ``s`` has a local minimum and
+the straight lines through the two samples on each side meet near ``s = 0`` with a
+V-shaped (linear-sided) profile, the minimum sample is flagged.
+"""
+from __future__ import annotations
+
+import csv
+import math
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import spatial
+from .errors import AssemblyError, JointwiseError, LimitError, SpecError
+
+__all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule_csv",
+           "ANCHOR_STEP", "REFINE_STEP"]
+
+#: Largest held motion between anchors solved one after another (dimensionless).
+ANCHOR_STEP = 0.4
+#: Largest held motion between points of the refinement level (dimensionless).
+REFINE_STEP = 0.1
+#: Batched Newton iterations per level.
+BATCH_ITER = 6
+
+
+@dataclass
+class Sweep:
+    """Result of a sweep: per-step arrays in file units.
+
+    ``values``: drive values (N); ``joints``: coordinate -> (N,); ``links``: link -> (N, 4, 4)
+    displacement from home; ``measures``: name -> (N,) or (N, 3) for points;
+    ``converged``, ``singular``: (N,) bool; ``residual``: (N,) largest closure error;
+    ``reasons``: step -> why it failed; ``rates``: name -> (N,) ideal mechanical
+    advantage per rate measure (the inverse speed ratio, frictionless).
+    """
+    drive: str | None
+    values: np.ndarray
+    joints: dict
+    links: dict
+    measures: dict
+    converged: np.ndarray
+    singular: np.ndarray
+    residual: np.ndarray
+    q: np.ndarray = field(repr=False)
+    reasons: dict = field(default_factory=dict)
+    advantage: dict = field(default_factory=dict)
+
+    def __len__(self):
+        return len(self.values)
+
+    def pose(self, i):
+        """The JSON dict of step ``i`` (as ``pose`` JSON, plus ``measures``)."""
+        out = {
+            "converged": bool(self.converged[i]),
+            "residual": float(self.residual[i]),
+            "singular": bool(self.singular[i]),
+            "joints": {k: float(v[i]) for k, v in self.joints.items()},
+            "links": {k: v[i].tolist() for k, v in self.links.items()},
+            "measures": {k: (v[i].tolist() if v.ndim > 1 else float(v[i])) for k, v in self.measures.items()},
+        }
+        return out
+
+
+# ---------------------------------------------------------------------------------------
+# batched evaluation of the loop equations
+# ---------------------------------------------------------------------------------------
+
+class _Prim:
+    __slots__ = ("w", "v", "K", "K2", "Kv", "K2v", "rot", "h")
+
+    def __init__(self, screw, home):
+        self.w = screw[:3].copy()
+        self.v = screw[3:].copy()
+        self.rot = bool(np.linalg.norm(self.w) > 0.5)
+        self.K = spatial.hat(self.w)
+        self.K2 = self.K @ self.K
+        self.Kv = self.K @ self.v
+        self.K2v = self.K2 @ self.v
+        self.h = float(home)
+
+    def exp(self, q):
+        """(R, p) stacks of exp([S](q - h)) for q of shape (B,); unit screws only."""
+        t = q - self.h
+        if not self.rot:
+            B = t.shape[0]
+            return np.broadcast_to(np.eye(3), (B, 3, 3)), t[:, None] * self.v
+        s, c = np.sin(t), 1.0 - np.cos(t)
+        R = np.eye(3) + s[:, None, None] * self.K + c[:, None, None] * self.K2
+        p = t[:, None] * self.v + c[:, None] * self.Kv + (t - s)[:, None] * self.K2v
+        return R, p
+
+
+def _compose(A, B):
+    """(R, p) of A @ B."""
+    ra, pa = A
+    rb, pb = B
+    return ra @ rb, (ra @ pb[:, :, None])[:, :, 0] + pa
+
+
+def _inv(A):
+    r, p = A
+    rt = np.swapaxes(r, 1, 2)
+    return rt, -(rt @ p[:, :, None])[:, :, 0]
+
+
+def _cross(a, b):
+    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
+                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
+                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
+
+
+def _log(R, p):
+    """Twist (w, v) of the rigid motion (R, p), stacked; accurate near the identity."""
+    tr = np.clip((R[:, 0, 0] + R[:, 1, 1] + R[:, 2, 2] - 1.0) / 2.0, -1.0, 1.0)
+    ang = np.arccos(tr)
+    sk = 0.5 * np.stack([R[:, 2, 1] - R[:, 1, 2], R[:, 0, 2] - R[:, 2, 0], R[:, 1, 0] - R[:, 0, 1]], axis=-1)
+    small = ang < 1e-4
+    sa = np.sin(ang)
+    f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(small, 1.0, sa))
+    w = sk * f[:, None]
+    far = ang > 3.0
+    if far.any():  # near pi: the careful logarithm of the core
+        w[far] = spatial.log3(R[far])
+        ang = np.linalg.norm(w, axis=-1)
+        small = ang < 1e-4
+    a_ = np.where(small, 1.0, ang)
+    coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
+    wp = _cross(w, p)
+    v = p - 0.5 * wp + coef[:, None] * _cross(w, wp)
+    return w, v
+
+
+def _ad_apply(R, p, X):
+    """Ad(R, p) applied to twists X: (k, 6) or (B, k, 6) -> (B, k, 6)."""
+    if X.ndim == 2:
+        w = (R @ X[:, :3].T).transpose(0, 2, 1)
+        v = (R @ X[:, 3:].T).transpose(0, 2, 1)
+    else:
+        w = R[:, None] @ X[:, :, :3, None]
+        v = R[:, None] @ X[:, :, 3:, None]
+        w, v = w[..., 0], v[..., 0]
+    v = v + _cross(np.broadcast_to(p[:, None, :], w.shape), w)
+    return np.concatenate([w, v], axis=-1)
+
+
+class _Evaluator:
+    """Loop equations of one solver block, evaluated over stacks of states ``Q`` (B, n)."""
+
+    def __init__(self, mech, block, held_masters):
+        s = mech.solver
+        self.m, self.s, self.block = mech, s, block
+        self.held = sorted(g for g in block.groups if g in held_masters)
+        self.joints = list(block.joints)
+        self.prims = {}
+        self.rotj = set()
+        for jn in self.joints:
+            j = mech.joints[jn]
+            self.prims[jn] = [_Prim(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
+            if j.type == "spherical":
+                idx = range(mech._slices[jn].start, mech._slices[jn].stop)
+                if all(s.master[i] == i and len(s.members[i]) == 1 and i not in held_masters for i in idx):
+                    self.rotj.add(jn)
+        # unknown columns, Newton mode (free spherical joints by rotation increments)
+        self.cols_rot = []
+        for g in block.groups:
+            if g in held_masters:
+                continue
+            if mech._owner[mech.coordinates[g]] in self.rotj:
+                continue
+            self.cols_rot.append(("m", g))
+        for jn in self.joints:
+            if jn in self.rotj:
+                self.cols_rot.extend(("s", jn, k) for k in range(3))
+        # unknown columns, coordinate mode (tangents, rates)
+        self.cols_coord = [("m", g) for g in block.groups if g not in held_masters]
+        self.cols_held = [("m", g) for g in self.held]
+        self.nl = len(block.loops)
+        self.rs = np.tile(s.rscale, self.nl)
+        self.sites = [mech.joints[lp.name].point for lp in block.loops]
+
+    def _cscale(self, cols):
+        return np.array([self.s.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+
+    def _joint(self, jn, Q, rotmode):
+        m = self.m
+        sl = m._slices[jn]
+        prs = self.prims[jn]
+        if not prs:
+            B = Q.shape[0]
+            return (np.broadcast_to(np.eye(3), (B, 3, 3)), np.zeros((B, 3))), np.zeros((0, 6))
+        if len(prs) == 1:
+            T = prs[0].exp(Q[:, sl.start])
+            return T, m.joints[jn].screws
+        if rotmode and jn in self.rotj:
+            T = prs[0].exp(Q[:, sl.start])
+            for k in range(1, len(prs)):
+                T = _compose(T, prs[k].exp(Q[:, sl.start + k]))
+            return T, m.joints[jn].rotation_twists()
+        screws = m.joints[jn].screws
+        T = prs[0].exp(Q[:, sl.start])
+        cols = [np.broadcast_to(screws[0], (Q.shape[0], 6))]
+        for k in range(1, len(prs)):
+            cols.append(_ad_apply(T[0], T[1], screws[k:k + 1])[:, 0])
+            T = _compose(T, prs[k].exp(Q[:, sl.start + k]))
+        return T, np.stack(cols, axis=1)
+
+    def eval(self, Q, cols=None, rotmode=True):
+        """Residual (B, 6 nl), per-step largest loop error (B,), and J (B, 6 nl, len(cols))."""
+        m, s = self.m, self.s
+        B = Q.shape[0]
+        data = {jn: self._joint(jn, Q, rotmode) for jn in self.joints}
+        r = np.zeros((B, 6 * self.nl))
+        J = None if cols is None else np.zeros((B, 6 * self.nl, len(cols)))
+        for li, loop in enumerate(self.block.loops):
+            R = np.broadcast_to(np.eye(3), (B, 3, 3))
+            p = np.zeros((B, 3))
+            site = None
+            rows = {}
+            for jn, sign in loop.steps:
+                T, X = data[jn]
+                if jn == loop.name:
+                    site = (R @ self.sites[li])[:, :] + p
+                if sign > 0:
+                    tw = _ad_apply(R, p, X) if cols is not None and len(X) else None
+                    R, p = _compose((R, p), T)
+                else:
+                    R, p = _compose((R, p), _inv(T))
+                    tw = -_ad_apply(R, p, X) if cols is not None and len(X) else None
+                if tw is None:
+                    continue
+                if rotmode and jn in self.rotj:
+                    for k in range(3):
+                        key = ("s", jn, k)
+                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
+                else:
+                    sl = m._slices[jn]
+                    for k in range(sl.stop - sl.start):
+                        key = ("c", sl.start + k)
+                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
+            w, v = _log(R, p)
+            v = v + _cross(w, site)
+            r[:, 6 * li:6 * li + 3] = w
+            r[:, 6 * li + 3:6 * li + 6] = v
+            if cols is not None:
+                for ci, c in enumerate(cols):
+                    if c[0] == "m":
+                        col = None
+                        for i in s.members[c[1]]:
+                            t = rows.get(("c", i))
+                            if t is not None:
+                                col = s.alpha[i] * t if col is None else col + s.alpha[i] * t
+                        if col is None:
+                            continue
+                    else:
+                        col = rows.get(c)
+                        if col is None:
+                            continue
+                    J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
+                    J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - _cross(site, col[:, :3])
+        rr = np.abs(r).reshape(B, self.nl, 6)
+        errs = rr.max(axis=(1, 2))
+        return r, errs, J
+
+    def apply(self, Q, du, cols):
+        """Add steps du (B, len(cols)) (internal units) to states Q (B, n), in place."""
+        m, s = self.m, self.s
+        sph = {}
+        masters = []
+        for ci, c in enumerate(cols):
+            if c[0] == "m":
+                Q[:, c[1]] += du[:, ci]
+                masters.append(c[1])
+            else:
+                sph.setdefault(c[1], [None] * 3)[c[2]] = du[:, ci]
+        _derive(s, Q, masters)
+        for jn, parts in sph.items():
+            j = m.joints[jn]
+            sl = m._slices[jn]
+            d = np.stack(parts, axis=-1)
+            Rd = spatial.exp3(d)
+            T = self.prims[jn][0].exp(Q[:, sl.start])
+            for k in (1, 2):
+                T = _compose(T, self.prims[jn][k].exp(Q[:, sl.start + k]))
+            Rn = Rd @ T[0]
+            Q[:, sl] = _sph_coords(j, Rn)
+
+
+def _sph_coords(j, R):
+    """Batched :meth:`Joint.coordinates_from_transform` (intrinsic a-b-c turns)."""
+    f = j.frame
+    r = f.T @ R @ f
+    r02 = np.clip(r[:, 0, 2], -1.0, 1.0)
+    d2 = np.arcsin(r02)
+    lock = np.abs(r[:, 0, 2]) >= 1 - 1e-12
+    d1 = np.where(lock, np.arctan2(r[:, 2, 1], r[:, 1, 1]), np.arctan2(-r[:, 1, 2], r[:, 2, 2]))
+    d3 = np.where(lock, 0.0, np.arctan2(-r[:, 0, 1], r[:, 0, 0]))
+    return j.home + np.stack([d1, d2, d3], axis=-1)
+
+
+def _derive(s, Q, masters):
+    for g in masters:
+        for i in s.members[g]:
+            if i != g:
+                Q[:, i] = s.alpha[i] * Q[:, g] + s.beta[i]
+
+
+def _chol_solve(G, b):
+    """Solve G x = b for stacks of symmetric positive (semi)definite G (B, g, g), b (B, g, k).
+
+    Vectorised Cholesky over the stack; returns (x, det(G) / |G|_F^g) where the second is
+    the scale-free certificate used for singular flags."""
+    B, g, _ = G.shape
+    fro = np.sqrt((G * G).sum(axis=(1, 2)))
+    scale = np.maximum(fro, 1e-300)
+    Gs = G / scale[:, None, None]
+    mu = 1e-13
+    L = np.zeros_like(Gs)
+    for i in range(g):
+        for k in range(i + 1):
+            acc = Gs[:, i, k] - (L[:, i, :k] * L[:, k, :k]).sum(axis=1)
+            if i == k:
+                L[:, i, i] = np.sqrt(np.maximum(acc + mu, mu))
+            else:
+                L[:, i, k] = acc / L[:, k, k]
+    diag = np.stack([L[:, i, i] for i in range(g)], axis=1)
+    cert = np.prod(diag * diag, axis=1)
+    y = np.zeros_like(b)
+    bs = b / scale[:, None, None]
+    for i in range(g):
+        y[:, i] = (bs[:, i] - (L[:, i, :i, None] * y[:, :i]).sum(axis=1)) / L[:, i, i, None]
+    x = np.zeros_like(b)
+    for i in reversed(range(g)):
+        x[:, i] = (y[:, i] - (L[:, i + 1:, i, None] * x[:, i + 1:]).sum(axis=1)) / L[:, i, i, None]
+    return x, cert
+
+
+def _least_norm(Js, rhs):
+    """Least-norm / least-squares solutions x of Js x = rhs, stacked (rhs (B, m, k)).
+
+    Normal equations on the smaller side: (J^T J) x = J^T rhs when J has no more columns
+    than rows, else x = J^T (J J^T)^-1 rhs.  Returns (x, certificate)."""
+    B, mrow, ncol = Js.shape
+    Jt = np.swapaxes(Js, 1, 2)
+    if ncol <= mrow:
+        x, cert = _chol_solve(Jt @ Js, Jt @ rhs)
+        return x, cert
+    y, cert = _chol_solve(Js @ Jt, rhs)
+    return Jt @ y, cert
+
+
+# ---------------------------------------------------------------------------------------
+# the continuation engine
+# ---------------------------------------------------------------------------------------
+
+class _Context:
+    """Held set and evaluators for one sweep."""
+
+    def __init__(self, mech, held_masters):
+        self.m = mech
+        self.s = mech.solver
+        self.held_masters = set(held_masters)
+        self.evs = [_Evaluator(mech, b, self.held_masters) for b in self.s.blocks]
+
+
+def _drives_released(mech):
+    """Context manager: the file's ``drive = true`` flags are off inside it."""
+    class _Ctx:
+        def __enter__(self_):
+            mech.solver.home_state()  # home is settled with the file's own drives
+            self_.saved = {n: j.drive for n, j in mech.joints.items()}
+            for j in mech.joints.values():
+                j.drive = False
+
+        def __exit__(self_, *exc):
+            for n, d in self_.saved.items():
+                mech.joints[n].drive = d
+            return False
+    return _Ctx()
+
+
+class _Null:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+
+def _held_set(mech, explicit, release):
+    """Masters held in a run, as Solver.pose would: explicit ones, plus (unless released)
+    the file's drives outside blocks where a passive coordinate is given."""
+    s = mech.solver
+    held = {int(s.master[i]) for i in explicit}
+    if release:
+        return held, []
+    driven = [mech._index[c] for c in mech.driven]
+    released_blocks = set()
+    for i in explicit:
+        if i not in driven and int(s.master[i]) in s.block_of_master:
+            released_blocks.add(s.block_of_master[int(s.master[i])])
+    extra = []
+    for i in driven:
+        g = int(s.master[i])
+        if i in explicit or g in held:
+            continue
+        if s.block_of_master.get(g) in released_blocks:
+            continue
+        held.add(g)
+        extra.append(i)
+    return held, extra
+
+
+def _run(mech, explicit, N, q0, release):
+    """Solve N steps with coordinates ``explicit`` {index: (N,) internal} held.
+
+    Returns (Q (N, n), converged, singular, residual, reasons)."""
+    s = mech.solver
+    n = s.n
+    held_m, extra = _held_set(mech, explicit, release)
+    # targets per master, checking couplings for contradictions
+    target = {}
+    for i, v in list(explicit.items()) + [(i, np.full(N, q0[i])) for i in extra]:
+        g = int(s.master[i])
+        gv = (np.asarray(v, float) - s.beta[i]) / s.alpha[i]
+        if g in target and np.any(np.abs(target[g] - gv) > 1e-9 * np.maximum(1.0, np.abs(gv))):
+            raise JointwiseError(f"held values of {mech.coordinates[i]!r} contradict a coupling "
+                                 f"with another held coordinate")
+        target[g] = gv
+    ctx = _Context(mech, held_m)
+    Q = np.tile(q0, (N, 1))
+    for g, v in target.items():
+        Q[:, g] = v
+    _derive(s, Q, list(target))
+    conv = np.ones(N, bool)
+    resid = np.zeros(N)
+    reasons = {}
+    good = np.ones(N, bool)
+    explicit_rows = explicit
+    for bi, ev in enumerate(ctx.evs):
+        if not ev.cols_rot and not ev.held:
+            # nothing moves in this block: check closure once
+            continue
+        ok, err, rs = _run_block(ctx, ev, Q, target, q0, explicit_rows, release)
+        good &= ok
+        resid = np.maximum(resid, err)
+        reasons.update({k: v for k, v in rs.items() if k not in reasons})
+    # limits of every coordinate
+    lim_bad = np.zeros(N, bool)
+    for i, c in enumerate(mech.coordinates):
+        j = mech.joints[mech._owner[c]]
+        lim = j.limits[i - mech._slices[j.name].start]
+        if lim is None:
+            continue
+        bad = (Q[:, i] < lim[0] - 1e-9) | (Q[:, i] > lim[1] + 1e-9)
+        for k in np.flatnonzero(bad & good & ~lim_bad):
+            reasons[int(k)] = f"limit of joint {j.name}" + (f" ({c})" if c != j.name else "")
+        lim_bad |= bad
+    conv = good & ~lim_bad
+    # singular flags on the solved states
+    sing = np.zeros(N, bool)
+    for ev in ctx.evs:
+        if ev.cols_rot:
+            sing |= _singular_flags(ev, Q, conv)
+    # failed steps repeat the last good pose (or the start)
+    if not conv.all():
+        idx = np.where(conv, np.arange(N), -1)
+        last = np.maximum.accumulate(idx)
+        Qf = Q.copy()
+        for k in np.flatnonzero(~conv):
+            Qf[k] = Q[last[k]] if last[k] >= 0 else q0
+        Q = Qf
+        sing &= conv
+    return Q, conv, sing, resid, reasons, held_m
+
+
+def _dimless_path(ev, Hm):
+    """Cumulative dimensionless held motion along the steps (N,)."""
+    N = Hm.shape[0]
+    if not ev.held:
+        return np.zeros(N)
+    sc = np.array([ev.s.cscale[g] for g in ev.held])
+    d = np.abs(np.diff(Hm * sc, axis=0)).max(axis=1) if N > 1 else np.zeros(0)
+    return np.concatenate([[0.0], np.cumsum(d)])
+
+
+def _tangent(ev, Q):
+    """dq/dheld (B, n_coordcols, n_held) in coordinate mode and the coord columns."""
+    cols = ev.cols_coord + ev.cols_held
+    _, _, J = ev.eval(Q, cols, rotmode=False)
+    nu = len(ev.cols_coord)
+    cs = ev._cscale(cols)
+    Js = J * ev.rs[None, :, None] * cs[None, None, :]
+    Ju, Jh = Js[:, :, :nu], Js[:, :, nu:]
+    if nu == 0:
+        return np.zeros((Q.shape[0], 0, len(ev.held)))
+    x, _ = _least_norm(Ju, -Jh)
+    return x * cs[None, :nu, None] / cs[None, None, nu:]
+
+
+def _newton(ev, Q, idx, iters=BATCH_ITER):
+    """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx."""
+    cols = ev.cols_rot
+    cs = ev._cscale(cols)
+    active = np.arange(len(idx))
+    errs = np.full(len(idx), np.inf)
+    from .solver import TOLERANCE
+    for it in range(iters + 1):
+        rows = idx[active]
+        sub = Q[rows]
+        last = it == iters
+        r, e, J = ev.eval(sub, None if last else cols)
+        errs[active] = e
+        keep = e > TOLERANCE
+        if last or not keep.any() or not cols:
+            break
+        sub_a = sub[keep]
+        Js = J[keep] * ev.rs[None, :, None] * cs[None, None, :]
+        du, _ = _least_norm(Js, -(r[keep] * ev.rs[None, :])[:, :, None])
+        du = du[:, :, 0]
+        big = np.abs(du).max(axis=1)
+        du *= np.minimum(1.0, 0.5 / np.maximum(big, 1e-300))[:, None]
+        ev.apply(sub_a, du * cs[None, :], cols)
+        Q[rows[keep]] = sub_a
+        active = active[keep]
+    return errs
+
+
+def _distance(ev, A, Bq):
+    """Largest dimensionless coordinate difference between state stacks (B,)."""
+    sc = ev.s.cscale
+    idx = sorted({i for g in ev.block.groups for i in ev.s.members[g]})
+    if not idx:
+        return np.zeros(A.shape[0])
+    d = np.abs(A[:, idx] - Bq[:, idx]) * sc[idx]
+    return d.max(axis=1)
+
+
+def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
+    """Seed rows idx (a < idx < b) by cubic Hermite between anchors a, b (arrays)."""
+    u = (path[idx] - path[a]) / np.maximum(path[b] - path[a], 1e-300)
+    u = np.where(path[b] > path[a], u, (idx - a) / np.maximum(b - a, 1))
+    dH = Hm[b] - Hm[a]  # (K, nh)
+    h00 = 2 * u ** 3 - 3 * u ** 2 + 1
+    h10 = u ** 3 - 2 * u ** 2 + u
+    h01 = -2 * u ** 3 + 3 * u ** 2
+    h11 = u ** 3 - u ** 2
+    ci = [c[1] for c in ev.cols_coord]
+    ma = np.einsum("kch,kh->kc", Ta, dH)
+    mb = np.einsum("kch,kh->kc", Tb, dH)
+    qa, qb = Q[a][:, ci], Q[b][:, ci]
+    out = h00[:, None] * qa + h10[:, None] * ma + h01[:, None] * qb + h11[:, None] * mb
+    Q[np.ix_(idx, ci)] = out
+    _derive(ev.s, Q, ci)
+    _derive(ev.s, Q, ev.held)
+
+
+def _run_block(ctx, ev, Q, target, q0, explicit, release):
+    from .solver import TOLERANCE
+    m, s = ctx.m, ctx.s
+    N = Q.shape[0]
+    Hm = np.stack([target[g] for g in ev.held], axis=1) if ev.held else np.zeros((N, 0))
+    path = _dimless_path(ev, Hm)
+    ok = np.zeros(N, bool)
+    err = np.full(N, np.inf)
+    reasons = {}
+    guard = _drives_released(m) if release else _Null()
+
+    def pose_one(i, qstart):
+        held = {k: float(v[i]) for k, v in explicit.items()}
+        try:
+            with guard:
+                qn, info = s.pose(held, qstart)
+        except LimitError as exc:
+            return None, f"limit: {exc}"
+        except JointwiseError as exc:
+            return None, str(exc)
+        if not info["converged"]:
+            return None, f"the loops do not close (residual {info['residual']:.3g})"
+        return qn, None
+
+    # -- 1. anchors, one after another -----------------------------------------------
+    marks = np.arange(0.0, path[-1] + ANCHOR_STEP, ANCHOR_STEP) if N > 1 else np.zeros(1)
+    anchors = np.unique(np.concatenate([[0], np.searchsorted(path, marks, side="left").clip(0, N - 1), [N - 1]]))
+    cols = ev.cols_rot
+    prev_q = q0.copy()
+    prev_T = None
+    prev_i = None
+    for i in anchors:
+        i = int(i)
+        done = False
+        if prev_i is not None and ok[prev_i] and cols:
+            trial = Q[i:i + 1].copy()
+            trial[0, :] = Q[prev_i]
+            for g in ev.held:
+                trial[0, g] = Q[i, g]
+            _derive(s, trial, ev.held)
+            if prev_T is not None and ev.cols_coord:
+                ci = [c[1] for c in ev.cols_coord]
+                trial[0, ci] += prev_T[0] @ (Hm[i] - Hm[prev_i])
+                _derive(s, trial, ci)
+            before = trial.copy()
+            e = _newton(ev, trial, np.array([0]), iters=10)
+            moved = _distance(ev, before, trial)[0]
+            stepd = path[i] - path[prev_i]
+            if e[0] <= TOLERANCE and moved <= max(0.2 * stepd, 1e-4):
+                Q[i] = trial[0]
+                ok[i], err[i] = True, e[0]
+                done = True
+        if not done:
+            start = Q[prev_i] if (prev_i is not None and ok[prev_i]) else prev_q
+            qn, why = pose_one(i, start)
+            if qn is not None:
+                Q[i] = qn
+                ok[i] = True
+                err[i] = ev.eval(Q[i:i + 1])[1][0]
+            else:
+                reasons[i] = why
+        if ok[i]:
+            prev_T = _tangent(ev, Q[i:i + 1])
+            prev_i = i
+            prev_q = Q[i].copy()
+    # tangents at anchors
+    Tmat = {}
+    good_a = anchors[ok[anchors]]
+    if len(good_a) and ev.cols_coord:
+        T = _tangent(ev, Q[good_a])
+        for k, i in enumerate(good_a):
+            Tmat[int(i)] = T[k]
+
+    # -- 2. refinement levels ------------------------------------------------------------
+    known = anchors.copy()
+    for stepsize in (REFINE_STEP, 0.0):
+        if stepsize > 0:
+            marks = np.arange(0.0, path[-1] + stepsize, stepsize)
+            level = np.unique(np.searchsorted(path, marks).clip(0, N - 1))
+        else:
+            level = np.arange(N)
+        isknown = np.zeros(N, bool)
+        isknown[known] = True
+        level = level[~isknown[level]]
+        if not len(level):
+            continue
+        pos = np.searchsorted(known, level)
+        a = known[np.clip(pos - 1, 0, len(known) - 1)]
+        b = known[np.clip(pos, 0, len(known) - 1)]
+        inside = (pos > 0) & (pos < len(known))
+        pair_ok = inside & ok[a] & ok[b]
+        sel = level[pair_ok]
+        if len(sel) and ev.cols_coord:
+            aa, bb = a[pair_ok], b[pair_ok]
+            Ta = np.stack([Tmat[int(i)] for i in aa])
+            Tb = np.stack([Tmat[int(i)] for i in bb])
+            _hermite(ev, Q, Hm, path, aa, bb, sel, Ta, Tb)
+        if len(sel):
+            before = Q[sel].copy()
+            e = _newton(ev, Q, sel)
+            moved = _distance(ev, before, Q[sel])
+            spacing = np.maximum(path[bb] - path[aa], 1e-12) if ev.cols_coord else np.ones(len(sel))
+            good = (e <= TOLERANCE) & (moved <= np.maximum(0.1 * spacing, 1e-6))
+            ok[sel[good]] = True
+            err[sel] = e
+            if stepsize > 0 and good.any() and ev.cols_coord:
+                gs = sel[good]
+                T = _tangent(ev, Q[gs])
+                for k, i in enumerate(gs):
+                    Tmat[int(i)] = T[k]
+            known = np.union1d(known, sel[good])
+        # the rest at this level goes to the sequential fix-up below (only at the end)
+        if stepsize > 0:
+            continue
+
+    # -- 3. sequential fix-up of what is left -------------------------------------------
+    todo = np.flatnonzero(~ok)
+    if len(todo):
+        _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0)
+    bad = ~ok
+    if bad.any():
+        for k in np.flatnonzero(bad):
+            reasons.setdefault(int(k), "the loops do not close there")
+    return ok, np.where(np.isfinite(err), err, 0.0), reasons
+
+
+def _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0):
+    """Solve failed steps one by one, walking outward from good neighbours."""
+    N = Q.shape[0]
+    blocked = np.zeros(N, bool)
+    # runs of consecutive failed steps
+    runs = np.split(todo, np.flatnonzero(np.diff(todo) > 1) + 1)
+    for run in runs:
+        lo, hi = int(run[0]), int(run[-1])
+        left = lo - 1 if lo > 0 and ok[lo - 1] else None
+        right = hi + 1 if hi < N - 1 and ok[hi + 1] else None
+        if left is None and right is None:
+            # no good neighbour: walk from the start state
+            seq, start = range(lo, hi + 1), q0
+            for i in seq:
+                qn, why = pose_one(i, start)
+                if qn is None:
+                    reasons[i] = why
+                    break
+                Q[i], ok[i] = qn, True
+                err[i] = ev.eval(Q[i:i + 1])[1][0]
+                start = qn
+            continue
+        stop_l = hi + 1
+        if left is not None:
+            start = Q[left]
+            for i in range(lo, hi + 1):
+                qn, why = pose_one(i, start)
+                if qn is None:
+                    reasons[i] = why
+                    stop_l = i
+                    break
+                Q[i], ok[i] = qn, True
+                err[i] = ev.eval(Q[i:i + 1])[1][0]
+                start = qn
+        if right is not None:
+            start = Q[right]
+            for i in range(hi, stop_l - 1 if left is not None else lo - 1, -1):
+                if ok[i]:
+                    break
+                qn, why = pose_one(i, start)
+                if qn is None:
+                    reasons.setdefault(i, why)
+                    break
+                Q[i], ok[i] = qn, True
+                err[i] = ev.eval(Q[i:i + 1])[1][0]
+                start = qn
+
+
+def _singular_flags(ev, Q, conv):
+    from .solver import SINGULAR_RATIO
+    N = Q.shape[0]
+    cols = ev.cols_rot
+    cs = ev._cscale(cols)
+    _, _, J = ev.eval(Q, cols)
+    Js = J * ev.rs[None, :, None] * cs[None, None, :]
+    B, mr, nc = Js.shape
+    Jt = np.swapaxes(Js, 1, 2)
+    G = Jt @ Js if nc <= mr else Js @ Jt
+    g = G.shape[1]
+    fro = np.sqrt((G * G).sum(axis=(1, 2)))
+    _, cert = _chol_solve(G, np.zeros((B, g, 1)))
+    flag = np.zeros(N, bool)
+    maybe = cert < SINGULAR_RATIO ** 2
+    if maybe.any():
+        sv = np.linalg.svd(Js[maybe], compute_uv=False)
+        top = sv[:, :1]
+        rank = int((sv > 1e-9 * np.maximum(top, 1e-300)).sum(axis=1).max())
+        hr = ev.s._generic_rank.get(("sweep", ev.block.index), 0)
+        rank = max(rank, hr, 1)
+        ev.s._generic_rank[("sweep", ev.block.index)] = rank
+        ratio = sv[:, rank - 1] / np.maximum(sv[:, 0], 1e-300)
+        flag[np.flatnonzero(maybe)] = ratio < SINGULAR_RATIO
+        full_rank = rank == min(mr, nc)
+    else:
+        full_rank = True
+    # dead points crossed between samples: V-shaped minimum of sqrt(certificate)
+    if full_rank and N >= 5:
+        sq = np.sqrt(np.maximum(cert, 0.0))
+        i = np.arange(2, N - 2)
+        c = sq[i]
+        lmin = (c <= sq[i - 1]) & (c <= sq[i + 1]) & conv[i] & conv[i - 1] & conv[i + 1] \
+            & conv[i - 2] & conv[i + 2]
+        for k in i[lmin]:
+            y = sq[k - 2:k + 3]
+            sl, sr = y[1] - y[0], y[4] - y[3]  # slopes of the outer secants
+            if not (sl < 0 < sr):
+                continue
+            # lines through (k-2, y0), (k-1, y1) and (k+1, y3), (k+2, y4)
+            t = ((y[3] - 3 * sr) - (y[1] + sl)) / (sl - sr) if sl != sr else 0.0
+            ymeet = y[1] + sl * (t + 1)
+            inner_l, inner_r = y[2] - y[1], y[3] - y[2]
+            linear = abs(inner_l) <= 1.5 * abs(sl) + 1e-300 and abs(inner_r) <= 1.5 * abs(sr) + 1e-300
+            scale = max(y[0], y[4])
+            if linear and -1.0 <= t <= 1.0 and abs(ymeet) <= 0.05 * scale and y[2] < 0.5 * scale:
+                flag[k] = True
+    return flag
+
+
+# ---------------------------------------------------------------------------------------
+# public API
+# ---------------------------------------------------------------------------------------
+
+def _start_q(mech, start):
+    if start is None:
+        return mech.solver.home_state()
+    q = getattr(start, "q", start)
+    q = np.asarray(q, float)
+    if q.shape != (mech.solver.n,) or not np.all(np.isfinite(q)):
+        return mech.solver.home_state()
+    return q.copy()
+
+
+def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
+    from .measures import evaluate
+    from .mechanism import Mechanism  # noqa: F401
+    N = Q.shape[0]
+    scale = np.array([mech._unit(i) for i in range(mech.solver.n)])
+    joints = {c: Q[:, i] / scale[i] for i, c in enumerate(mech.coordinates)}
+    links = link_poses(mech, Q)
+    meas, adv = evaluate(mech, Q, links, held_m)
+    resid = np.where(np.isfinite(resid), resid, 0.0)
+    return Sweep(drive=drive, values=np.asarray(values, float), joints=joints, links=links,
+                 measures=meas, converged=conv, singular=sing, residual=resid, q=Q,
+                 reasons=reasons, advantage=adv)
+
+
+def link_poses(mech, Q):
+    """Displacements from home of every link, stacked over states Q (N, n): link -> (N, 4, 4)."""
+    N = Q.shape[0]
+    prims = {}
+    out = {mech.ground: (np.broadcast_to(np.eye(3), (N, 3, 3)), np.zeros((N, 3)))}
+    for link in mech.order[1:]:
+        jname, sign = mech.tree_parent[link]
+        j = mech.joints[jname]
+        sl = mech._slices[jname]
+        T = (np.broadcast_to(np.eye(3), (N, 3, 3)), np.zeros((N, 3)))
+        for k, (pr, h) in enumerate(zip(j.primitives, j.home)):
+            T = _compose(T, _Prim(pr.screw, h).exp(Q[:, sl.start + k]))
+        if sign > 0:
+            out[link] = _compose(out[j.parent], T)
+        else:
+            out[link] = _compose(out[j.child], _inv(T))
+    res = {}
+    for name in mech.links:
+        R, p = out[name]
+        M = np.zeros((N, 4, 4))
+        M[:, :3, :3] = R
+        M[:, :3, 3] = p
+        M[:, 3, 3] = 1.0
+        res[name] = M
+    return res
+
+
+def _as_rows(mech, table, N=None):
+    explicit = {}
+    for name, vals in table.items():
+        i = mech._require(name)
+        a = np.atleast_1d(np.asarray(vals, dtype=float))
+        if a.ndim != 1:
+            raise SpecError(f"values of {name!r} must be one-dimensional", source=mech.source)
+        if N is None:
+            N = len(a)
+        if len(a) == 1 and N > 1:
+            a = np.full(N, a[0])
+        if len(a) != N:
+            raise SpecError(f"values of {name!r}: expected {N} rows, got {len(a)}", source=mech.source)
+        if not np.all(np.isfinite(a)):
+            k = int(np.flatnonzero(~np.isfinite(a))[0])
+            raise SpecError(f"values of {name!r} must be finite (row {k} is {a[k]!r})", source=mech.source)
+        explicit[i] = a * mech._unit(i)
+    return explicit, (N or 0)
+
+
+def sweep(mech, drive, values, held=None, *, start=None):
+    """Drive coordinate ``drive`` through ``values`` (file units), on the start branch.
+
+    The file's ``drive = true`` flags are released for the run; ``held`` (coordinate ->
+    value, file units) holds other coordinates.  ``start`` (a Pose or state) defaults to
+    home.  Returns a :class:`Sweep`; never NaN, failed steps are flagged.
+    """
+    values = np.atleast_1d(np.asarray(values, dtype=float))
+    if values.ndim != 1 or len(values) == 0:
+        raise JointwiseError("values must be a non-empty one-dimensional sequence")
+    mech._require(drive)
+    table = {drive: values}
+    for k, v in (held or {}).items():
+        if k == drive:
+            raise JointwiseError(f"{drive!r} is the drive; it cannot also be held")
+        table[k] = np.full(len(values), float(v))
+    explicit, N = _as_rows(mech, table)
+    q0 = _start_q(mech, start)
+    Q, conv, sing, resid, reasons, held_m = _run(mech, explicit, N, q0, release=True)
+    return _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m)
+
+
+def follow(mech, table, start=None):
+    """Continuation along N rows of held values ``{coordinate: array N}`` (file units).
+
+    Same holding rules as :meth:`Mechanism.pose` at every row.  Never raises for a failed
+    row: it is flagged (``converged[i] = False``) and repeats the last good pose; the
+    continuation carries on from the last good state.  Bad arguments (unknown
+    coordinate, rows of unequal length, non-finite values) raise ``SpecError``.
+    """
+    explicit, N = _as_rows(mech, table)
+    if N == 0:
+        raise JointwiseError("follow needs at least one row")
+    q0 = _start_q(mech, start)
+    try:
+        Q, conv, sing, resid, reasons, held_m = _run(mech, explicit, N, q0, release=False)
+    except JointwiseError as exc:  # e.g. held values contradicting a coupling
+        Q = np.tile(q0, (N, 1))
+        held_m = set()
+        conv = np.zeros(N, bool)
+        sing = np.zeros(N, bool)
+        resid = np.zeros(N)
+        reasons = {i: str(exc) for i in range(N)}
+    first = next(iter(table)) if table else None
+    vals = np.asarray(table[first], float) if first else np.arange(N, dtype=float)
+    return _finish(mech, first, vals, Q, conv, sing, resid, reasons, held_m)
+
+
+# ---------------------------------------------------------------------------------------
+# schedules
+# ---------------------------------------------------------------------------------------
+
+def _ease(u):
+    return u * u * (3 - 2 * u)
+
+
+def _keys_values(name, keys, t, ease_default):
+    """Values at parameters t from keys: [(param, value[, "linear"|"eased"]), ...] or dicts."""
+    pts = []
+    for k, key in enumerate(keys):
+        if isinstance(key, dict):
+            try:
+                pts.append((float(key["at"]), float(key["value"]), key.get("ease", ease_default)))
+            except (KeyError, TypeError, ValueError):
+                raise JointwiseError(f"schedule {name!r} key {k}: expected {{at = ..., value = ..., "
+                                     f"ease = 'linear'|'eased'}}, got {key!r}") from None
+        else:
+            try:
+                seq = list(key)
+                pts.append((float(seq[0]), float(seq[1]), seq[2] if len(seq) > 2 else ease_default))
+            except (TypeError, ValueError, IndexError):
+                raise JointwiseError(f"schedule {name!r} key {k}: expected (parameter, value[, ease]), "
+                                     f"got {key!r}") from None
+    if not pts:
+        raise JointwiseError(f"schedule {name!r} has no keys")
+    for k, (a, v, e) in enumerate(pts):
+        if not (math.isfinite(a) and math.isfinite(v)):
+            raise JointwiseError(f"schedule {name!r} key {k}: parameter and value must be finite")
+        if e not in ("linear", "eased"):
+            raise JointwiseError(f"schedule {name!r} key {k}: ease must be 'linear' or 'eased', got {e!r}")
+        if k and a <= pts[k - 1][0]:
+            raise JointwiseError(f"schedule {name!r} key {k}: parameters must increase "
+                                 f"({a:g} after {pts[k - 1][0]:g})")
+    at = np.array([p[0] for p in pts])
+    val = np.array([p[1] for p in pts])
+    out = np.interp(t, at, val)
+    if len(pts) > 1:
+        seg = np.clip(np.searchsorted(at, t, side="right") - 1, 0, len(pts) - 2)
+        u = np.clip((t - at[seg]) / (at[seg + 1] - at[seg]), 0.0, 1.0)
+        eased = np.array([pts[s_ + 1][2] == "eased" for s_ in range(len(pts) - 1)])[seg]
+        w = np.where(eased, _ease(u), u)
+        out = val[seg] + w * (val[seg + 1] - val[seg])
+        out = np.where(t <= at[0], val[0], np.where(t >= at[-1], val[-1], out))
+    return out
+
+
+def read_schedule_csv(path):
+    """Read a CSV table of held values: a header of coordinate names (an optional first
+    column named ``step`` or ``t`` is the parameter), then one row per sample.
+
+    Returns (parameter array or None, {coordinate: array}).  Errors name the file, the
+    row (1-based, the header is row 1) and the column."""
+    name = os.path.basename(str(path))
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+    except OSError as exc:
+        raise SpecError(f"cannot read schedule table: {exc.strerror or exc}", source=name) from None
+    except (UnicodeDecodeError, csv.Error) as exc:
+        raise SpecError(f"not a readable CSV table: {exc}", source=name) from None
+    if not rows:
+        raise SpecError("schedule table is empty (expected a header of coordinate names)", source=name)
+    header = [h.strip() for h in rows[0]]
+    for c, h in enumerate(header):
+        if not h:
+            raise SpecError(f"row 1, column {c + 1}: empty column name", source=name)
+        if h in header[:c]:
+            raise SpecError(f"row 1, column {c + 1}: column {h!r} appears twice", source=name)
+    data = {h: [] for h in header}
+    for r, row in enumerate(rows[1:], start=2):
+        if not row or all(not x.strip() for x in row):
+            continue
+        if len(row) != len(header):
+            raise SpecError(f"row {r}: expected {len(header)} values, got {len(row)}", source=name)
+        for c, (h, x) in enumerate(zip(header, row)):
+            try:
+                v = float(x)
+            except ValueError:
+                raise SpecError(f"row {r}, column {c + 1} ({h}): expected a number, got {x!r}",
+                                source=name) from None
+            if not math.isfinite(v):
+                raise SpecError(f"row {r}, column {c + 1} ({h}): value must be finite, got {x!r}",
+                                source=name)
+            data[h].append(v)
+    if not data[header[0]]:
+        raise SpecError("schedule table has a header but no rows", source=name)
+    param = None
+    if header[0] in ("step", "t"):
+        param = np.array(data.pop(header[0]))
+    return param, {k: np.array(v) for k, v in data.items()}
+
+
+def sweep_schedule(mech, schedule, samples=None, *, start=None, ease="linear", release=True):
+    """Several inputs at once.
+
+    ``schedule`` is either a path to a CSV table (see :func:`read_schedule_csv`; one row per
+    sample, ``samples`` ignored) or a dict ``{coordinate: keys}`` where ``keys`` is a list of
+    ``(parameter, value)`` or ``(parameter, value, "linear"|"eased")`` or
+    ``{at, value, ease}``; a key's ease shapes the segment that ends at it ("eased" is
+    smoothstep 3u^2 - 2u^3, zero speed at both ends).  ``samples`` is the number of
+    samples spread evenly over the keys' parameter span (both ends), or an array of
+    parameters.  The scheduled coordinates are the inputs: the file's drives are
+    released (``release=True``), as with ``--drive``.
+    """
+    if isinstance(schedule, (str, os.PathLike)):
+        param, table = read_schedule_csv(schedule)
+        if param is None:
+            n = len(next(iter(table.values())))
+            param = np.arange(n, dtype=float)
+    else:
+        if not isinstance(schedule, dict) or not schedule:
+            raise JointwiseError("schedule must be a CSV path or a non-empty dict {coordinate: keys}")
+        ats = []
+        for name, keys in schedule.items():
+            mech._require(name)
+            for key in keys:
+                try:
+                    ats.append(float(key["at"] if isinstance(key, dict) else key[0]))
+                except (KeyError, TypeError, ValueError, IndexError):
+                    raise JointwiseError(f"schedule {name!r}: bad key {key!r}") from None
+        if samples is None:
+            raise JointwiseError("sweep_schedule with keys needs samples (a count or an array)")
+        if np.ndim(samples) == 0:
+            ns = int(samples)
+            if ns < 1:
+                raise JointwiseError(f"samples must be at least 1, got {samples!r}")
+            param = np.linspace(min(ats), max(ats), ns)
+        else:
+            param = np.asarray(samples, dtype=float)
+        table = {name: _keys_values(name, keys, param, ease) for name, keys in schedule.items()}
+    for name in table:
+        mech._require(name)
+    explicit, N = _as_rows(mech, table)
+    q0 = _start_q(mech, start)
+    Q, conv, sing, resid, reasons, held_m = _run(mech, explicit, N, q0, release=release)
+    first = next(iter(table))
+    sw = _finish(mech, first, param, Q, conv, sing, resid, reasons, held_m)
+    sw.schedule = table
+    return sw
+
+
+# ---------------------------------------------------------------------------------------
+# reachable range
+# ---------------------------------------------------------------------------------------
+
+def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_travel=None):
+    """Reachable interval(s) of ``drive`` from home, file units.
+
+    Steps out from home both ways (steps of ``step`` file units, default 2 deg or 1/50 of
+    the mechanism size) with warm-started solves, then bisects each bracket to ``tol`` of
+    the drive's unit.  Returns ``{"drive", "intervals": [[lo, hi]], "reasons": [[why_lo,
+    why_hi]]}``.  Reasons: ``"dead point"`` (no closed placement beyond: the mechanism
+    locks, its Jacobian becomes singular there), ``"limit of joint X"`` (the drive's own or
+    a passive joint's limit), ``"turns fully"`` (an angle drive that comes back to its home
+    placement after one turn: reported as [home - 180 deg, home + 180 deg] in file units,
+    both ends open), ``"no end found within N turns"`` / ``"... within L <unit>"`` (the
+    search stopped).  The file's drives are released, ``held`` holds others.
+    """
+    s = mech.solver
+    di = mech._require(drive)
+    unit = mech._unit(di)
+    is_angle = mech._kind[di] == "angle"
+    heldv = {}
+    for k, v in (held or {}).items():
+        if k == drive:
+            raise JointwiseError(f"{drive!r} is the drive; it cannot also be held")
+        heldv[mech._require(k)] = float(v) * mech._unit(mech._require(k))
+    mech.check_limits(heldv)
+    with _drives_released(mech):
+        q_home = s.home_state()
+        if heldv:
+            q_home, info = s.pose(heldv, q_home)
+    home = q_home[di] / unit
+    if step is None:
+        step = 2.0 * (math.pi / 180) / unit if is_angle else mech.size / 50.0
+    full = 2 * math.pi / unit if is_angle else None
+    if max_travel is None:
+        max_travel = max_turns * full if is_angle else 20.0 * mech.size
+    j = mech.joints[mech._owner[drive]]
+    lim = j.limits[di - mech._slices[j.name].start]
+
+    def solve(value, qstart):
+        h = dict(heldv)
+        h[di] = value * unit
+        if lim is not None and not (lim[0] - 1e-12 <= value * unit <= lim[1] + 1e-12):
+            return None, f"limit of joint {j.name}"
+        try:
+            with _drives_released(mech):
+                q, info = s.pose(h, qstart)
+        except LimitError as exc:
+            jn = mech._owner.get(exc.joint, exc.joint) if exc.joint else "?"
+            return None, f"limit of joint {jn}"
+        except JointwiseError:
+            return None, "dead point"
+        if not info["converged"]:
+            return None, "dead point"
+        return q, None
+
+    def walk(direction):
+        q = q_home.copy()
+        v = home
+        travelled = 0.0
+        checked = False
+        while True:
+            nv = v + direction * step
+            at_turn = False
+            if is_angle and not checked and travelled + step >= full:
+                nv = home + direction * full
+                at_turn = checked = True
+            if lim is not None:
+                edge = (lim[1] if direction > 0 else lim[0]) / unit
+                if direction * (nv - edge) > 0:
+                    nv = edge
+                    if abs(nv - v) <= tol:
+                        return v, f"limit of joint {j.name}", False
+            qn, why = solve(nv, q)
+            if qn is None:
+                good, bad, qg = v, nv, q
+                while abs(bad - good) > tol:
+                    mid = 0.5 * (good + bad)
+                    qm, w2 = solve(mid, qg)
+                    if qm is None:
+                        bad, why = mid, w2
+                    else:
+                        good, qg = mid, qm
+                return good, why, False
+            travelled += abs(nv - v)
+            q, v = qn, nv
+            if at_turn:
+                if _same_placement(mech, q, q_home):
+                    return v, "turns fully", True
+            if travelled >= max_travel:
+                u = mech.angle_unit if is_angle else mech.length_unit
+                what = (f"{max_travel * unit / (2 * math.pi):g} turns" if is_angle
+                        else f"{max_travel:g} {u}")
+                return v, f"no end found within {what}", False
+
+    hi, why_hi, turns = walk(+1)
+    if turns:
+        half = math.pi / unit
+        return {"drive": drive, "intervals": [[home - half, home + half]],
+                "reasons": [["turns fully", "turns fully"]]}
+    lo, why_lo, turns = walk(-1)
+    if turns:
+        half = math.pi / unit
+        return {"drive": drive, "intervals": [[home - half, home + half]],
+                "reasons": [["turns fully", "turns fully"]]}
+    return {"drive": drive, "intervals": [[float(lo), float(hi)]], "reasons": [[why_lo, why_hi]]}
+
+
+def _same_placement(mech, qa, qb):
+    la = link_poses(mech, qa[None, :])
+    lb = link_poses(mech, qb[None, :])
+    tol = 1e-6
+    for k in la:
+        d = la[k][0] - lb[k][0]
+        if np.abs(d[:3, :3]).max() > tol or np.abs(d[:3, 3]).max() > tol * mech.size:
+            return False
+    return True
