@@ -86,7 +86,6 @@ class JOINTWISE_OT_mechanism_export(_Base, bpy.types.Operator, ExportHelper):
     """Write the scene's mechanism as a mechanism file (TOML)"""
     bl_idname = "jointwise.mechanism_export"
     bl_label = "Export Mechanism"
-    bl_options = {'REGISTER'}
     filename_ext = ".toml"
     filter_glob: StringProperty(default="*.toml", options={'HIDDEN'})
 

@@ -560,6 +560,7 @@ def import_mechanism(scene, mech, objects, marker_collection):
         if j.type == "helical" and not math.isfinite(float(j.lead)):
             raise SceneError(f"{mech.source}: joints.{jname}: a lead angle of 90 degrees is a "
                              f"pure slide; model it as a prismatic joint")
+    old_names = [it.name for it in jw.joints]
     remove_markers(scene)
     jw.links.clear()
     jw.joints.clear()
@@ -634,6 +635,10 @@ def import_mechanism(scene, mech, objects, marker_collection):
         ll = value_factor_file_to_host(scene, mech.coordinate_kind(c.leader), mech.length_unit, mech.angle_unit)
         cp.ratio = float(c.ratio) * fl / ll
         cp.offset = float(c.offset) * fl
+    # animation of joint values addresses items by index: keep it on the same names
+    from . import bake
+    new_index = {it.name: i for i, it in enumerate(jw.joints)}
+    bake.remap_coordinate_paths(scene, {i: new_index.get(n) for i, n in enumerate(old_names)})
     clear_cache()
     return markers
 

@@ -33,6 +33,11 @@ sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
 MODULE = "bl_ext.user_default.jointwise"
 
 
+def pytest_collection_modifyitems(items):
+    for item in items:
+        item.add_marker(pytest.mark.host)
+
+
 def _zip_path():
     z = os.environ.get("JOINTWISE_ZIP")
     if z and pathlib.Path(z).exists():

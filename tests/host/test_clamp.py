@@ -202,3 +202,46 @@ def test_undo_of_bake(fresh, tmp_path):
     bpy.ops.ed.undo_push(message="baked")
     bpy.ops.ed.undo()
     assert ws.fcurves_of(bpy.data.objects["Coupler"]) == []
+
+
+def test_children_follow_and_parented_links(fresh, tmp_path):
+    """A plain child object (a clamp pad on the rocker) follows its link by parenting, and
+    a link parented to another link (the coupler under the crank) is placed and baked right."""
+    import jointwise
+    objs = ws.make_clamp_objects(0.001)
+    pad = ws.cube("Pad", (0.07, 0.05, 0), (0.01, 0.01, 0.01))
+    pad.parent = objs["Rocker"]
+    pad.matrix_parent_inverse = objs["Rocker"].matrix_world.inverted()
+    objs["Coupler"].parent = objs["Crank"]
+    objs["Coupler"].matrix_parent_inverse = objs["Crank"].matrix_world.inverted()
+    bpy.context.view_layer.update()
+    homes = {n: ws.world(o) for n, o in objs.items()}
+    pad_home = ws.world(pad)
+    path = ws.clamp_file(tmp_path)
+    bpy.ops.jointwise.mechanism_import(filepath=str(path))
+    mech = jointwise.load(path)
+    jw = fresh.jointwise
+    jw.live = True
+    jw.joints["a"].value = math.radians(210)
+    pose = check_against_core(objs, homes, mech, {"a": 210.0})
+    assert np.allclose(ws.world(pad), ws.expected_world(pose, "rocker", pad_home, 0.001), atol=TOL)
+    jw.live = False
+    bpy.ops.jointwise.bake(frame_start=1, frame_end=9, drive="a", value_from=math.radians(90),
+                           value_to=math.radians(330))
+    fresh.frame_set(5)
+    check_against_core(objs, homes, mech, {"a": 210.0})
+    assert np.allclose(ws.world(pad), ws.expected_world(pose, "rocker", pad_home, 0.001), atol=TOL)
+
+
+def test_reimport_keeps_animation_on_names(fresh, tmp_path):
+    objs, homes, path = setup_clamp(tmp_path)
+    fresh.keyframe_insert('jointwise.joints["d"].value', frame=1)
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[3].value"]
+    text = path.read_text()
+    # the same file with joint d listed first: d becomes item 0
+    head, rest = text.split("[joints.a]", 1)
+    a_to_c, d = rest.split("[joints.d]", 1)
+    path.write_text(head + "[joints.d]" + d + "\n[joints.a]" + a_to_c)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    assert fresh.jointwise.joints[0].name == "d"
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
