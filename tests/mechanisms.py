@@ -342,11 +342,11 @@ def branching_tree(n, name="HF tree"):
 
 
 def gear_pair(z1=18, z2=42, offset=0.0, name="HF gearbox"):
-    """Two gears on frame pivots, coupled ``wheel = -z1/z2 * pinion + offset``."""
+    """Two gears on frame pivots, coupled ``wheel = -z1/z2 * pinion + offset`` (consistent at home)."""
     m = base(name, links=["pinion", "wheel"])
     j = m["joints"]
     j["pinion"] = revolute("frame", "pinion", (0, 0), drive=True)
-    j["wheel"] = revolute("frame", "wheel", (30, 0))
+    j["wheel"] = revolute("frame", "wheel", (30, 0), home=offset)
     m["couplings"] = {"mesh": {"leader": "pinion", "follower": "wheel",
                                "ratio": -z1 / z2, "offset": float(offset)}}
     return m
