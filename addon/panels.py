@@ -86,6 +86,21 @@ class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
         box.prop(it, "home")
 
 
+class JOINTWISE_PT_links(_Tab, bpy.types.Panel):
+    bl_label = "Links"
+    bl_options = {'DEFAULT_CLOSED'}
+
+    def draw(self, context):
+        jw = context.scene.jointwise
+        col = self.layout.column(align=True)
+        for link in jw.links:
+            row = col.row(align=True)
+            row.label(text=link.name + ("  (ground)" if link.name == jw.ground else ""))
+            row.prop(link, "object", text="")
+        if jw.ground in jw.links and jw.links[jw.ground].object is None:
+            col.label(text="ground: the world")
+
+
 class JOINTWISE_PT_couplings(_Tab, bpy.types.Panel):
     bl_label = "Couplings"
     bl_options = {'DEFAULT_CLOSED'}
@@ -110,4 +125,4 @@ class JOINTWISE_PT_bake(_Tab, bpy.types.Panel):
 
 
 CLASSES = (JOINTWISE_UL_joints, JOINTWISE_UL_couplings, JOINTWISE_PT_mechanism,
-           JOINTWISE_PT_joints, JOINTWISE_PT_couplings, JOINTWISE_PT_bake)
+           JOINTWISE_PT_joints, JOINTWISE_PT_links, JOINTWISE_PT_couplings, JOINTWISE_PT_bake)

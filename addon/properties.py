@@ -95,9 +95,18 @@ class JointwiseCoordinate(bpy.types.PropertyGroup):
                        default="right")
 
 
+def _link_bound(self, context):
+    """Binding an object to a link takes its current placement as the link's home."""
+    obj = self.object
+    if obj is not None:
+        self.object_name = obj.name
+        self.home = [float(x) for row in obj.matrix_world for x in row]
+
+
 class JointwiseLink(bpy.types.PropertyGroup):
-    """A rigid link bound to a scene object by pointer (renaming the object is harmless)."""
-    object: PointerProperty(name="Object", type=bpy.types.Object)
+    """A rigid link bound to a scene object by pointer (renaming the object is harmless).
+    Binding an object (also the ground's) takes its current placement as home."""
+    object: PointerProperty(name="Object", type=bpy.types.Object, update=_link_bound)
     object_name: StringProperty(name="Object name", description="Last bound object name, for messages")
     home: FloatVectorProperty(name="Home", size=16, default=IDENTITY16,
                               description="World matrix at home, row-major")
