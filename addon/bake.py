@@ -143,7 +143,8 @@ def solve_frames(scene, mech, frames, table, progress=None):
         sing = np.asarray(getattr(sw, "singular", np.zeros(n, bool)), dtype=bool)
         if progress:
             progress(n)
-        return Solved(frames, links, joints, conv, sing, {})
+        reasons = {int(i): str(r) for i, r in dict(getattr(sw, "reasons", None) or {}).items()}
+        return Solved(frames, links, joints, conv, sing, reasons)
     err = sc.core().JointwiseError
     links = {name: np.tile(np.eye(4), (n, 1, 1)) for name in mech.links}
     joints = {c: np.zeros(n) for c in mech.coordinates}

@@ -213,6 +213,10 @@ class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
         except _errors() as exc:
             return self.fail(str(exc))
         sc.write_values(scene, {it.name: it.home for it in jw.joints})
+        for it in jw.joints:  # markers on the world (not parented to a link) go back too
+            m = it.marker
+            if it.slot == 1 and sc.object_alive(scene, m) and m.parent is None:
+                m.matrix_world = sc.matrix_core_to_host(sc.matrix_stored_to_core(it.marker_home))
         sc.set_status(scene, message="at home")
         return {'FINISHED'}
 
