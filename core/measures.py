@@ -11,7 +11,8 @@ as joint points and axes are):
 ``rate``      d(of)/d(per) in file units (e.g. mm per deg), from the constraint Jacobian
               (the least-norm tangent of :meth:`Solver.tangent`, stacked over steps), not
               from finite differences.  The coordinates held in the run stay held, except
-              ``per``, which moves.  Its inverse is the *ideal (frictionless) mechanical
+              ``per``, which moves.  ``per`` takes the place of the run's input (the
+              drive, or ``of``, is released).  Its inverse is the *ideal (frictionless) mechanical
               advantage* out/in by virtual work, F_of / F_per = d(per) / d(of), reported
               separately (:func:`evaluate` returns it; capped at +-1e12 where the rate is 0,
               a toggle position).
@@ -52,7 +53,7 @@ def _world(links, link, at):
     return np.einsum("nij,j->ni", D[:, :3, :3], np.asarray(at, float)) + D[:, :3, 3]
 
 
-def evaluate(mech, Q, links, held_masters=None):
+def evaluate(mech, Q, links, held_masters=None, drive=None):
     """Every measure of ``mech`` at states ``Q`` (N, n) with link displacements ``links``.
 
     ``held_masters``: solver master indices held in the run (default: the file's drives).
@@ -78,7 +79,7 @@ def evaluate(mech, Q, links, held_masters=None):
             c = np.clip((a * b).sum(axis=1), -1.0, 1.0)
             values[name] = np.degrees(np.arccos(c))
         else:
-            r = rate(mech, Q, m.of, m.per, held_masters)
+            r = rate(mech, Q, m.of, m.per, held_masters, drive)
             values[name] = r
             with np.errstate(divide="ignore"):
                 inv = np.where(np.abs(r) > 1 / ADVANTAGE_CAP, 1.0 / np.where(r == 0, 1.0, r),
@@ -87,8 +88,12 @@ def evaluate(mech, Q, links, held_masters=None):
     return values, adv
 
 
-def rate(mech, Q, of, per, held_masters):
-    """d(of)/d(per) (file units) at states Q (N, n), with ``held_masters`` held but ``per``."""
+def rate(mech, Q, of, per, held_masters, drive=None):
+    """d(of)/d(per) (file units) at states Q (N, n).
+
+    ``per`` takes the place of the run's input: the held set is ``held_masters`` with the
+    drive (when ``per`` is not held already) and ``of`` released and ``per`` held, so the
+    rate is the speed ratio along the mechanism's motion, whichever coordinate drove it."""
     from .sweep import _Evaluator, _tangent
     s = mech.solver
     N = Q.shape[0]
@@ -97,9 +102,11 @@ def rate(mech, Q, of, per, held_masters):
     conv = mech._unit(ip) / mech._unit(io)
     if go == gp:
         return np.full(N, s.alpha[io] / s.alpha[ip] * conv)
-    held = (set(held_masters) - {gp}) | {gp}
-    if go in held:
-        return np.zeros(N)
+    held = set(held_masters)
+    if gp not in held and drive is not None:
+        held.discard(int(s.master[mech._require(drive)]))
+    held.discard(go)
+    held.add(gp)
     bi = s.block_of_master.get(gp)
     if bi is None or s.block_of_master.get(go) != bi:
         return np.zeros(N)

@@ -67,9 +67,11 @@ __all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule
            "ANCHOR_STEP", "REFINE_STEP"]
 
 #: Largest held motion between anchors solved one after another (dimensionless).
-ANCHOR_STEP = 0.4
+ANCHOR_STEP = 0.8
 #: Largest held motion between points of the refinement level (dimensionless).
 REFINE_STEP = 0.1
+#: Spacing of the second refinement level, from which every sample is interpolated.
+FINE_STEP = 0.006
 #: Batched Newton iterations per level.
 BATCH_ITER = 6
 
@@ -582,8 +584,10 @@ def _distance(ev, A, Bq):
     idx = sorted({i for g in ev.block.groups for i in ev.s.members[g]})
     if not idx:
         return np.zeros(A.shape[0])
-    d = np.abs(A[:, idx] - Bq[:, idx]) * sc[idx]
-    return d.max(axis=1)
+    d = A[:, idx] - Bq[:, idx]
+    ang = ~ev.s.is_length[idx]
+    d[:, ang] = (d[:, ang] + np.pi) % (2 * np.pi) - np.pi  # a whole turn is the same placement
+    return (np.abs(d) * sc[idx]).max(axis=1)
 
 
 def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
@@ -599,6 +603,8 @@ def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
     ma = np.einsum("kch,kh->kc", Ta, dH)
     mb = np.einsum("kch,kh->kc", Tb, dH)
     qa, qb = Q[a][:, ci], Q[b][:, ci]
+    ang = ~ev.s.is_length[ci]
+    qb[:, ang] = qa[:, ang] + (qb[:, ang] - qa[:, ang] + np.pi) % (2 * np.pi) - np.pi  # same turn
     out = h00[:, None] * qa + h10[:, None] * ma + h01[:, None] * qb + h11[:, None] * mb
     Q[np.ix_(idx, ci)] = out
     _derive(ev.s, Q, ci)
@@ -671,16 +677,17 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
             prev_i = i
             prev_q = Q[i].copy()
     # tangents at anchors
-    Tmat = {}
+    nh = len(ev.held)
+    Tall = np.zeros((N, len(ev.cols_coord), nh))
     good_a = anchors[ok[anchors]]
     if len(good_a) and ev.cols_coord:
-        T = _tangent(ev, Q[good_a])
-        for k, i in enumerate(good_a):
-            Tmat[int(i)] = T[k]
+        Tall[good_a] = _tangent(ev, Q[good_a])
 
-    # -- 2. refinement levels ------------------------------------------------------------
+    # -- 2. refinement levels, then every sample -------------------------------------------
     known = anchors.copy()
-    for stepsize in (REFINE_STEP, 0.0):
+    levels = [st for st in (REFINE_STEP, FINE_STEP) if st < ANCHOR_STEP] + [0.0]
+    last_level = known
+    for stepsize in levels:
         if stepsize > 0:
             marks = np.arange(0.0, path[-1] + stepsize, stepsize)
             level = np.unique(np.searchsorted(path, marks).clip(0, N - 1))
@@ -697,28 +704,34 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
         inside = (pos > 0) & (pos < len(known))
         pair_ok = inside & ok[a] & ok[b]
         sel = level[pair_ok]
-        if len(sel) and ev.cols_coord:
-            aa, bb = a[pair_ok], b[pair_ok]
-            Ta = np.stack([Tmat[int(i)] for i in aa])
-            Tb = np.stack([Tmat[int(i)] for i in bb])
-            _hermite(ev, Q, Hm, path, aa, bb, sel, Ta, Tb)
-        if len(sel):
-            before = Q[sel].copy()
-            e = _newton(ev, Q, sel)
-            moved = _distance(ev, before, Q[sel])
-            spacing = np.maximum(path[bb] - path[aa], 1e-12) if ev.cols_coord else np.ones(len(sel))
-            good = (e <= TOLERANCE) & (moved <= np.maximum(0.1 * spacing, 1e-6))
-            ok[sel[good]] = True
-            err[sel] = e
-            if stepsize > 0 and good.any() and ev.cols_coord:
-                gs = sel[good]
-                T = _tangent(ev, Q[gs])
-                for k, i in enumerate(gs):
-                    Tmat[int(i)] = T[k]
-            known = np.union1d(known, sel[good])
-        # the rest at this level goes to the sequential fix-up below (only at the end)
-        if stepsize > 0:
+        if not len(sel):
             continue
+        aa, bb = a[pair_ok], b[pair_ok]
+        if ev.cols_coord:
+            _hermite(ev, Q, Hm, path, aa, bb, sel, Tall[aa], Tall[bb])
+        spacing = np.maximum(path[bb] - path[aa], 1e-12)
+        if stepsize == 0.0:
+            # every sample: the Hermite seed is usually closed already; verify, then correct
+            _, e, _ = ev.eval(Q[sel])
+            err[sel] = e
+            fine = e <= TOLERANCE
+            ok[sel[fine]] = True
+            sel, spacing = sel[~fine], spacing[~fine]
+            if not len(sel):
+                continue
+        before = Q[sel].copy()
+        e = _newton(ev, Q, sel)
+        moved = _distance(ev, before, Q[sel])
+        good = (e <= TOLERANCE) & (moved <= np.maximum(0.1 * spacing, 1e-6))
+        ok[sel[good]] = True
+        err[sel] = e
+        gs = sel[good]
+        if stepsize > 0 and len(gs) and ev.cols_coord:
+            Tall[gs] = _tangent(ev, Q[gs])
+        if stepsize > 0:
+            known = np.union1d(known, gs)
+            last_level = known
+    ev.last_level = last_level
 
     # -- 3. sequential fix-up of what is left -------------------------------------------
     todo = np.flatnonzero(~ok)
@@ -779,9 +792,8 @@ def _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0):
                 start = qn
 
 
-def _singular_flags(ev, Q, conv):
-    from .solver import SINGULAR_RATIO
-    N = Q.shape[0]
+def _certificate(ev, Q):
+    """(certificate det(G)/|G|_F^g, Js) at states Q, rotation-increment columns."""
     cols = ev.cols_rot
     cs = ev._cscale(cols)
     _, _, J = ev.eval(Q, cols)
@@ -789,40 +801,73 @@ def _singular_flags(ev, Q, conv):
     B, mr, nc = Js.shape
     Jt = np.swapaxes(Js, 1, 2)
     G = Jt @ Js if nc <= mr else Js @ Jt
-    g = G.shape[1]
-    fro = np.sqrt((G * G).sum(axis=(1, 2)))
-    _, cert = _chol_solve(G, np.zeros((B, g, 1)))
-    flag = np.zeros(N, bool)
-    maybe = cert < SINGULAR_RATIO ** 2
-    if maybe.any():
-        sv = np.linalg.svd(Js[maybe], compute_uv=False)
-        top = sv[:, :1]
-        rank = int((sv > 1e-9 * np.maximum(top, 1e-300)).sum(axis=1).max())
-        hr = ev.s._generic_rank.get(("sweep", ev.block.index), 0)
-        rank = max(rank, hr, 1)
-        ev.s._generic_rank[("sweep", ev.block.index)] = rank
-        ratio = sv[:, rank - 1] / np.maximum(sv[:, 0], 1e-300)
-        flag[np.flatnonzero(maybe)] = ratio < SINGULAR_RATIO
-        full_rank = rank == min(mr, nc)
+    _, cert = _chol_solve(G, np.zeros((B, G.shape[1], 1)))
+    return cert, Js
+
+
+def _singular_flags(ev, Q, conv):
+    """Singular flags of every step (see the module notes).
+
+    The certificate is computed exactly at the points of the last refinement level and
+    interpolated between them; wherever the interpolated value comes within a factor 30 of
+    the threshold (or a level point is a local minimum) it is computed exactly."""
+    from .solver import SINGULAR_RATIO
+    N = Q.shape[0]
+    coarse = getattr(ev, "last_level", None)
+    sq = np.zeros(N)
+    exact = np.zeros(N, bool)
+    if coarse is not None and len(coarse) >= 3 and len(coarse) < N // 2:
+        coarse = np.asarray(coarse)
+        c_cert, _ = _certificate(ev, Q[coarse])
+        c_sq = np.sqrt(np.maximum(c_cert, 0.0))
+        sq = np.interp(np.arange(N), coarse, c_sq)
+        exact[coarse] = True
+        sq[coarse] = c_sq
+        cand = sq < 30 * SINGULAR_RATIO
+        # around local minima of the level sequence, evaluate every sample
+        lm = np.flatnonzero((c_sq[1:-1] <= c_sq[:-2]) & (c_sq[1:-1] <= c_sq[2:])) + 1
+        for k in lm:
+            cand[coarse[max(k - 2, 0)]:coarse[min(k + 2, len(coarse) - 1)] + 1] = True
+        cand &= ~exact
+        if cand.any():
+            idx = np.flatnonzero(cand)
+            cc, _ = _certificate(ev, Q[idx])
+            sq[idx] = np.sqrt(np.maximum(cc, 0.0))
+            exact[idx] = True
     else:
-        full_rank = True
+        cc, _ = _certificate(ev, Q)
+        sq = np.sqrt(np.maximum(cc, 0.0))
+        exact[:] = True
+    flag = np.zeros(N, bool)
+    maybe = exact & (sq * sq < SINGULAR_RATIO ** 2)
+    full_rank = True
+    if maybe.any():
+        idx = np.flatnonzero(maybe)
+        _, Js = _certificate(ev, Q[idx])
+        sv = np.linalg.svd(Js, compute_uv=False)
+        top = np.maximum(sv[:, :1], 1e-300)
+        rank = int((sv > 1e-9 * top).sum(axis=1).max())
+        key = ("sweep", ev.block.index, tuple(ev.cols_rot))
+        rank = max(rank, ev.s._generic_rank.get(key, 0), 1)
+        ev.s._generic_rank[key] = rank
+        flag[idx] = sv[:, rank - 1] / top[:, 0] < SINGULAR_RATIO
+        full_rank = rank == min(Js.shape[1], Js.shape[2])
     # dead points crossed between samples: V-shaped minimum of sqrt(certificate)
     if full_rank and N >= 5:
-        sq = np.sqrt(np.maximum(cert, 0.0))
         i = np.arange(2, N - 2)
         c = sq[i]
-        lmin = (c <= sq[i - 1]) & (c <= sq[i + 1]) & conv[i] & conv[i - 1] & conv[i + 1] \
-            & conv[i - 2] & conv[i + 2]
+        lmin = (c <= sq[i - 1]) & (c <= sq[i + 1]) & exact[i] & conv[i - 2] & conv[i - 1] \
+            & conv[i] & conv[i + 1] & conv[i + 2]
         for k in i[lmin]:
             y = sq[k - 2:k + 3]
             sl, sr = y[1] - y[0], y[4] - y[3]  # slopes of the outer secants
             if not (sl < 0 < sr):
                 continue
-            # lines through (k-2, y0), (k-1, y1) and (k+1, y3), (k+2, y4)
-            t = ((y[3] - 3 * sr) - (y[1] + sl)) / (sl - sr) if sl != sr else 0.0
+            # lines through (-2, y0), (-1, y1) and (1, y3), (2, y4), x relative to k
+            t = ((y[3] - sr) - (y[1] + sl)) / (sl - sr)
             ymeet = y[1] + sl * (t + 1)
             inner_l, inner_r = y[2] - y[1], y[3] - y[2]
-            linear = abs(inner_l) <= 1.5 * abs(sl) + 1e-300 and abs(inner_r) <= 1.5 * abs(sr) + 1e-300
+            linear = abs(inner_l) <= 1.5 * abs(sl) and abs(inner_r) <= 1.5 * abs(sr)
             scale = max(y[0], y[4])
             if linear and -1.0 <= t <= 1.0 and abs(ymeet) <= 0.05 * scale and y[2] < 0.5 * scale:
                 flag[k] = True
@@ -850,7 +895,7 @@ def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
     scale = np.array([mech._unit(i) for i in range(mech.solver.n)])
     joints = {c: Q[:, i] / scale[i] for i, c in enumerate(mech.coordinates)}
     links = link_poses(mech, Q)
-    meas, adv = evaluate(mech, Q, links, held_m)
+    meas, adv = evaluate(mech, Q, links, held_m, drive)
     resid = np.where(np.isfinite(resid), resid, 0.0)
     return Sweep(drive=drive, values=np.asarray(values, float), joints=joints, links=links,
                  measures=meas, converged=conv, singular=sing, residual=resid, q=Q,
