@@ -16,14 +16,50 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 __all__ = [
-    "write", "dumps_toml", "base", "revolute", "four_bar_positions", "four_bar",
+    "run_cli", "no_traceback", "JOINTWISE", "write", "dumps_toml", "base", "revolute", "four_bar_positions", "four_bar",
     "slider_crank", "slider_position", "hooke", "five_bar", "watt_six_bar",
     "stephenson_six_bar", "screw_jaw", "scissor_stack", "four_bar_chain",
     "serial_chain", "branching_tree", "gear_pair", "grashof",
 ]
+
+
+# -- running the real console script ----------------------------------------------------------
+#: The installed console script next to the interpreter running the tests (.venv/bin/jointwise).
+JOINTWISE = Path(sys.executable).parent / "jointwise"
+
+
+class Run:
+    def __init__(self, proc):
+        self.code = proc.returncode
+        self.out = proc.stdout
+        self.err = proc.stderr
+
+    def json(self):
+        return json.loads(self.out)
+
+    def __repr__(self):
+        return f"Run(code={self.code}, out={self.out[:300]!r}, err={self.err[:300]!r})"
+
+
+def run_cli(*args, cwd=None):
+    """Run ``jointwise ARGS`` as a subprocess (no network, no stdin)."""
+    cmd = [str(JOINTWISE)] if JOINTWISE.exists() else [sys.executable, "-m", "jointwise.cli"]
+    env = dict(os.environ)
+    env.pop("PYTHONPATH", None)
+    proc = subprocess.run(cmd + [str(a) for a in args], capture_output=True, text=True,
+                          stdin=subprocess.DEVNULL, cwd=cwd, env=env, timeout=120)
+    return Run(proc)
+
+
+def no_traceback(run):
+    assert "Traceback" not in run.err, run.err
+    assert "Traceback" not in run.out, run.out
 
 
 # -- writing ----------------------------------------------------------------------------

@@ -24,7 +24,7 @@ from scipy.spatial.transform import Rotation
 import jointwise
 
 import mechanisms as M
-from conftest import no_traceback, run_cli
+from mechanisms import no_traceback, run_cli
 
 #: Freudenstein's equation is |AB|^2 - b^2 over 2ac: a closure gap of 1e-9 (the solver's
 #: tolerance) moves it by about 2 b 1e-9 / (2 a c) = 1.2e-9 for CR; allow a few times that.

@@ -13,7 +13,7 @@ import pytest
 import jointwise
 
 import mechanisms as M
-from conftest import no_traceback, run_cli
+from mechanisms import no_traceback, run_cli
 
 
 def kutzbach(n_links, freedoms, planar):

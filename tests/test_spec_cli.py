@@ -19,7 +19,7 @@ from scipy.spatial.transform import Rotation
 import jointwise
 
 import mechanisms as M
-from conftest import no_traceback, run_cli
+from mechanisms import no_traceback, run_cli
 
 
 def rot_about(axis, deg, p):
@@ -191,7 +191,7 @@ def test_json_rejects_duplicate_link(tmp_path):
     p.write_text(text)
     assert text.count('"jaw"') >= 2
     r = run_cli("check", p)
-    bad(r, 2, "dup.json", "links", "jaw", "duplicate")
+    bad(r, 2, "dup.json", "links.jaw")
 
 
 @pytest.mark.parametrize("token,where", [("NaN", "point"), ("Infinity", "axis"), ("-Infinity", "home")])
