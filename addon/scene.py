@@ -320,16 +320,45 @@ def animated_coordinates(scene):
     return set(bake.coordinate_fcurves(scene))
 
 
+def loop_groups(mech):
+    """{joint: group id} for joints in loops; loops sharing a joint share a group."""
+    group = {}
+    parent = list(range(len(getattr(mech, "loops", []))))
+
+    def find(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+    for i, loop in enumerate(getattr(mech, "loops", [])):
+        for step in loop.steps:
+            j = step[0]
+            if j in group:
+                parent[find(i)] = find(group[j])
+            else:
+                group[j] = i
+    return {j: find(g) for j, g in group.items()}
+
+
 def held_values(scene, mech, extra=(), values=None):
     """The values to hold for a solve: drives, animated coordinates, coordinates outside
-    every loop (nothing else would place them) and ``extra`` (the one being dragged)."""
+    every loop (nothing else would place them) and ``extra`` (the one being dragged).
+
+    Dragging a passive loop coordinate releases the (not animated) drives of its loop
+    group, so the rest of the loop follows it instead of refusing."""
     jw = scene.jointwise
-    in_loops = loop_joints(mech)
+    groups = loop_groups(mech)
     animated = animated_coordinates(scene)
+    known = set(mech.coordinates)
+    released = {groups[jw.joints[e].joint] for e in extra
+                if e in jw.joints and not jw.joints[e].drive and jw.joints[e].joint in groups}
     held = {}
     for item in jw.joints:
         name = item.name
-        if (item.drive or name in extra or name in animated or item.joint not in in_loops):
+        if name not in known:
+            continue  # a fixed joint: no coordinate
+        drive = item.drive and groups.get(item.joint) not in released
+        if drive or name in extra or name in animated or item.joint not in groups:
             v = float(item.value) if values is None or name not in values else float(values[name])
             held[name] = v
     return held
@@ -598,8 +627,8 @@ def import_mechanism(scene, mech, objects, marker_collection):
                 marker.matrix_parent_inverse = parent_obj.matrix_world.inverted()
                 marker.matrix_world = matrix_core_to_host(frame)
             markers.append(marker)
-        kinds = j.kinds
-        for i, c in enumerate(j.coordinates):
+        kinds = list(j.kinds) or ["angle"]
+        for i, c in enumerate(j.coordinates or [jname]):  # a fixed joint keeps one item
             item = jw.joints.add()
             item.name = c
             item.joint = jname
@@ -609,8 +638,8 @@ def import_mechanism(scene, mech, objects, marker_collection):
             item.child = j.child
             item.kind = kinds[i]
             f = k if kinds[i] == "length" else 1.0  # core holds radians already
-            item.home = float(j.home[i]) * f
-            lim = j.limits[i] if i < len(j.limits) else None
+            item.home = float(j.home[i]) * f if i < len(j.home) else 0.0
+            lim = j.limits[i] if i < len(j.limits) else None  # noqa: E501
             item.use_limits = lim is not None
             if lim is not None:
                 item.limit_min, item.limit_max = float(lim[0]) * f, float(lim[1]) * f

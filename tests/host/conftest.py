@@ -7,14 +7,17 @@ built here with ``.venv/bin/python addon/package.py``.
 """
 from __future__ import annotations
 
+import atexit
 import os
 import pathlib
+import shutil
 import subprocess
 import sys
 import tempfile
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 _HOME = tempfile.mkdtemp(prefix="jointwise-host-home-")
+atexit.register(shutil.rmtree, _HOME, True)
 os.environ["HOME"] = _HOME
 os.environ.pop("BLENDER_USER_CONFIG", None)
 os.environ.pop("BLENDER_USER_SCRIPTS", None)

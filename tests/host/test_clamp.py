@@ -245,3 +245,16 @@ def test_reimport_keeps_animation_on_names(fresh, tmp_path):
     assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
     assert fresh.jointwise.joints[0].name == "d"
     assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
+
+
+def test_dragging_a_passive_joint_moves_the_loop(fresh, tmp_path):
+    """With the crank as drive, setting the rocker angle releases the crank (same loop)."""
+    import jointwise
+    objs, homes, path = setup_clamp(tmp_path)
+    jw = fresh.jointwise
+    jw.live = True
+    jw.joints["d"].value = math.radians(10)
+    assert jw.converged, jw.message
+    mech = jointwise.load(ws.clamp_file(tmp_path, drive="d"))
+    check_against_core(objs, homes, mech, {"d": 10.0})
+    assert jw.joints["a"].value != pytest.approx(math.radians(90), abs=1e-3)  # the crank moved

@@ -30,6 +30,13 @@ object = "InputShaft"
 object = "OutputShaft"
 [links.sleeve]
 object = "Sleeve"
+[links.handle]
+object = "Handle"
+
+[joints.grip]
+type = "fixed"
+parent = "input"
+child = "handle"
 
 [joints.in]
 type = "revolute"
@@ -74,14 +81,16 @@ def test_hooke_joint_and_cylindrical(fresh, tmp_path):
         "OutputShaft": ws.cube("OutputShaft", (0.05 * math.cos(BETA), 0.05 * math.sin(BETA), 0),
                                (0.1, 0.01, 0.01), BETA, "QUATERNION"),
         "Sleeve": ws.cube("Sleeve", (0, 0.05, 0), (0.02, 0.02, 0.04)),
+        "Handle": ws.cube("Handle", (-0.1, 0, 0.02), (0.01, 0.01, 0.04)),
     }
     homes = {n: ws.world(o) for n, o in objs.items()}
     path = hooke_file(tmp_path)
     assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
     jw = fresh.jointwise
-    assert [j.name for j in jw.joints] == ["in", "cross.1", "cross.2", "out", "sl.1", "sl.2"]
+    assert [j.name for j in jw.joints] == ["grip", "in", "cross.1", "cross.2", "out", "sl.1", "sl.2"]
     assert jw.joints["sl.2"].kind == "length" and jw.joints["sl.1"].kind == "angle"
     mech = jointwise.load(path)
+    assert jw.joints["grip"].type == "fixed" and jw.joints["grip"].marker is None
     jw.live = True
     jw.joints["sl.2"].value = 0.012  # 12 mm in a metre scene
     jw.joints["sl.1"].value = math.radians(40)
@@ -90,6 +99,15 @@ def test_hooke_joint_and_cylindrical(fresh, tmp_path):
         jw.joints["in"].value = math.radians(deg)
         assert jw.converged, jw.message
         prev = mech.pose({"in": deg, "sl.1": 40.0, "sl.2": 12.0}, start=prev)
-        for link, oname in (("input", "InputShaft"), ("output", "OutputShaft"), ("sleeve", "Sleeve")):
+        for link, oname in (("input", "InputShaft"), ("output", "OutputShaft"), ("sleeve", "Sleeve"),
+                            ("handle", "Handle")):
             want = ws.expected_world(prev, link, homes[oname], 0.001)
             assert np.allclose(ws.world(objs[oname]), want, atol=1e-5), (deg, oname)
+    out = tmp_path / "again.toml"
+    assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
+    again = jointwise.load(out)
+    assert again.joints["grip"].type == "fixed" and again.joints["cross"].type == "universal"
+    p1 = mech.pose({"in": 50.0, "sl.1": 5.0, "sl.2": 1.0})
+    p2 = again.pose({"in": 50.0, "sl.1": 5.0, "sl.2": 1.0})
+    for link in ("output", "sleeve", "handle"):
+        assert np.allclose(p1.links[link], p2.links[link], atol=1e-5)
