@@ -386,3 +386,23 @@ def gear_pair(z1=18, z2=42, offset=0.0, name="HF gearbox"):
     m["couplings"] = {"mesh": {"leader": "pinion", "follower": "wheel",
                                "ratio": -z1 / z2, "offset": float(offset)}}
     return m
+
+
+#: Ball B of the RSSR at home: on the rocker's circle (radius 3 about x through (0, 6, 1))
+#: at distance 6 from ball A = (2, 0, 0), so that the crank turns fully.
+RSSR_B0 = (0.0, 6 + 3 * math.sin(-0.5588374901659106), 1 + 3 * math.cos(-0.5588374901659106))
+
+
+def rssr(name="HF spatial crank"):
+    """Spatial RSSR four-bar: crank about z at the origin, rocker about x at (0, 6, 1),
+    a coupler with ball joints at both ends.  Kutzbach 6*3 - (5+3+3+5) = 2: one input
+    plus the coupler's idle spin about its own line."""
+    m = base(name, links=["crank_arm", "coupler", "rocker_arm"])
+    j = m["joints"]
+    j["crank"] = revolute("frame", "crank_arm", (0, 0), axis=(0, 0, 1), drive=True)
+    j["ball_a"] = {"type": "spherical", "parent": "crank_arm", "child": "coupler",
+                   "point": [2.0, 0.0, 0.0], "axis": [0.0, 0.0, 1.0]}
+    j["ball_b"] = {"type": "spherical", "parent": "coupler", "child": "rocker_arm",
+                   "point": list(RSSR_B0), "axis": [0.0, 0.0, 1.0]}
+    j["rocker"] = revolute("frame", "rocker_arm", (0, 6, 1), axis=(1, 0, 0))
+    return m

@@ -413,8 +413,6 @@ def _gear_driven_four_bar(offset_error):
     return fb
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: home_closure is identically 0 (E(home) = I) and "
-                   "ignores couplings, so a home off closure is never noted; CORE_BUGS.md #5")
 def test_slightly_off_home_settles_with_note(mech_file):
     path = mech_file(_gear_driven_four_bar(0.01))
     m = jointwise.load(path)
@@ -425,8 +423,6 @@ def test_slightly_off_home_settles_with_note(mech_file):
     assert "settled" in r.err
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: home far off its coupling is silently re-posed "
-                   "instead of exit 3 naming the loop; CORE_BUGS.md #5")
 def test_far_off_home_exit_3_names_loop(mech_file):
     path = mech_file(_gear_driven_four_bar(20.0))
     r = run_cli("pose", path, "--format", "json")
@@ -491,3 +487,50 @@ def test_scissor_stack_height_closed_form():
         top = p.links[f"L{n - 1}"] @ [w, n * h, 0, 1]
         assert top[1] == pytest.approx(n * math.sqrt(s * s - x * x), abs=1e-8)
         assert top[0] == pytest.approx(x, abs=1e-8)
+
+
+# -- property: random Grashof crank-rockers obey Freudenstein ---------------------------------------------------
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.floats(0.5, 1.5), st.floats(2.5, 4.0), st.floats(2.0, 4.0), st.floats(2.5, 4.0),
+       st.floats(-180, 180), st.sampled_from(["open", "crossed"]))
+def test_property_crank_rockers_obey_freudenstein(a, b, c, d, t2, branch):
+    from hypothesis import assume
+    s, p, q, l = sorted([a, b, c, d])
+    assume(a == s and s + l < p + q - 0.2)  # clear crank-rocker, away from change points
+    m = load(M.four_bar(a, b, c, d, 90.0, branch=branch))
+    pose = m.pose({"crank": t2})
+    assert pose.converged
+    assert abs(freudenstein_residual(a, b, c, d, t2, pose.joints["rocker"])) < FR_TOL * max(b / (a * c), 1)
+    assert abs(angdiff(pose.joints["rocker"], M.four_bar_positions(a, b, c, d, t2, branch)[2])) < 1e-6
+
+
+# -- spatial RSSR with ball joints ----------------------------------------------------------------------------------
+def test_rssr_ball_joints_vs_least_squares():
+    m = load(M.rssr())
+    A0, B0, O4 = np.array([2.0, 0, 0]), np.array(M.RSSR_B0), np.array([0.0, 6, 1])
+    b = np.linalg.norm(B0 - A0)
+    assert b == pytest.approx(6.0)
+    phi = 0.0
+    prev = None
+    for t in np.arange(0.0, 360.0 + 1e-9, 15.0):
+        p = m.pose({"crank": t}, start=prev)
+        assert p.converged
+        th = math.radians(t)
+        A = np.array([2 * math.cos(th), 2 * math.sin(th), 0.0])
+
+        def Bof(f):  # B turns about the x axis through O4
+            return O4 + Rotation.from_rotvec([f, 0, 0]).apply(B0 - O4)
+
+        phi = least_squares(lambda f: [np.linalg.norm(Bof(f[0]) - A) - b], [phi],
+                            xtol=1e-15, ftol=1e-15, gtol=1e-15).x[0]
+        assert abs(angdiff(p.joints["rocker"], math.degrees(phi))) < 1e-6
+        # the balls' centres are carried alike by both links they join
+        L = p.links
+        for jn, P in (("ball_a", A0), ("ball_b", B0)):
+            j = m.joints[jn]
+            np.testing.assert_allclose(L[j.parent] @ np.append(P, 1), L[j.child] @ np.append(P, 1), atol=1e-8)
+        prev = p

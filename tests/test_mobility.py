@@ -113,3 +113,11 @@ def test_screw_jaw_moves_by_lead():
     assert left.joints["way"] == pytest.approx(10.0, abs=1e-9)
     multi = jointwise.from_dict(M.screw_jaw(thread="Tr16x8(P4)")).pose({"spindle": 360.0})
     assert multi.joints["way"] == pytest.approx(-8.0, abs=1e-9)
+
+
+def test_rssr_spatial_counts():
+    # 6 (4 - 1) - (5 + 3 + 3 + 5) = 2: the input and the coupler's idle spin
+    mob = jointwise.from_dict(M.rssr()).mobility()
+    assert mob["form"] == "spatial"
+    assert mob["kutzbach"] == 2 == kutzbach(4, [1, 3, 3, 1], False)
+    assert mob["numeric"] == 2 and mob["redundant"] == 0
