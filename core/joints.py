@@ -189,6 +189,9 @@ class Joint:
     # -- structure -------------------------------------------------------------
     @property
     def kinds(self):
+        """Kinds of the coordinates: a helical joint with a 90 deg lead angle is a slide."""
+        if self.type == "helical" and abs(self.lead) == math.inf:
+            return ("length",)
         return JOINT_TYPES[self.type]
 
     @property
@@ -286,11 +289,14 @@ class Joint:
         """Spherical coordinates (a-b-c turns, radians) reproducing displacement ``e``."""
         f = self.frame
         r = f.T @ e[:3, :3] @ f  # = Rx(d1) Ry(d2) Rz(d3)
-        d2 = math.asin(max(-1.0, min(1.0, r[0, 2])))
-        if abs(r[0, 2]) < 1 - 1e-12:
+        if math.hypot(r[1, 2], r[2, 2]) > 1e-15:
             d1 = math.atan2(-r[1, 2], r[2, 2])
-            d3 = math.atan2(-r[0, 1], r[0, 0])
-        else:  # gimbal lock: put the whole turn on the first coordinate
-            d3 = 0.0
+        else:  # exact gimbal lock: put the whole turn on the first coordinate
             d1 = math.atan2(r[2, 1], r[1, 1])
+        # remove the first turn, then read the other two from what is left, so that the
+        # three always reproduce the rotation (also next to the lock)
+        c1, s1 = math.cos(d1), math.sin(d1)
+        rest = np.array([[1, 0, 0], [0, c1, s1], [0, -s1, c1]]) @ r  # Rx(d1)^T r = Ry(d2) Rz(d3)
+        d2 = math.atan2(rest[0, 2], rest[2, 2])
+        d3 = math.atan2(rest[1, 0], rest[1, 1])
         return self.home + np.array([d1, d2, d3])

@@ -422,11 +422,30 @@ class Solver:
 
     # -- public ----------------------------------------------------------------------------
     def closure(self, q):
-        """(largest error, per-loop errors) of state ``q``."""
+        """(largest error, per-loop errors) of state ``q``; couplings count as loops.
+
+        A coupling's error is ``|follower - (ratio * leader + offset)|`` in internal
+        units (radian or length unit).
+        """
         errs = []
         for b in self.blocks:
             errs.extend(self._eval(b, q, [], set(), jac=False)[1])
+        errs.extend(self.coupling_errors(q).values())
         return (max(errs) if errs else 0.0), errs
+
+    def coupling_errors(self, q):
+        m = self.m
+        out = {}
+        for c in m.couplings.values():
+            li, fi = m._index[c.leader], m._index[c.follower]
+            a = m._unit(fi) * c.ratio / m._unit(li)
+            out[c.name] = float(abs(q[fi] - (a * q[li] + m._unit(fi) * c.offset)))
+        return out
+
+    def _loops_of(self, i):
+        """Names of the loops whose walk passes the joint owning coordinate ``i``."""
+        jn = self.m._owner[self.m.coordinates[i]]
+        return [lp.name for lp in self.m.loops if any(j == jn for j, _ in lp.steps)]
 
     def home_state(self):
         """The home state, settled onto closure if within the assembly tolerance."""
@@ -436,6 +455,23 @@ class Solver:
         m = self.m
         q = m.home.copy()
         notes = []
+        for name, err in self.coupling_errors(q).items():
+            if err <= TOLERANCE:
+                continue
+            c = m.couplings[name]
+            fi = m._index[c.follower]
+            tol = ASSEMBLY_TOLERANCE * (self.L if self.is_length[fi] else 1.0)
+            unit = m.angle_unit if m._kind[fi] == "angle" else m.length_unit
+            loops = self._loops_of(fi)
+            where = f"; it feeds the loop closed by joint {loops[0]!r}" if loops else ""
+            gap = err / m._unit(fi)
+            if err > tol:
+                raise AssemblyError(
+                    f"coupling {name!r} does not hold at home: {c.follower} is off by {gap:.6g} {unit} "
+                    f"(assembly tolerance {tol / m._unit(fi):.3g} {unit}){where}",
+                    loop=loops[0] if loops else None, error=float(err), joint=c.follower)
+            notes.append(f"home placement settled: coupling {name!r} was off by {gap:.3g} {unit}")
+        self._derive(q, list(self.members))
         for b in self.blocks:
             cols, rot = self._layout(b, set())
             r, errs, _ = self._eval(b, q, cols, rot, jac=False)

@@ -158,26 +158,29 @@ _EYE4 = np.eye(4)
 def log3(r):
     """Rotation vector of a rotation matrix (inverse of :func:`exp3`), angle in [0, pi].
 
-    Near pi the axis is read from the symmetric part, which stays accurate there.
+    The angle is ``atan2(|s|, (tr R - 1) / 2)`` with ``s`` the skew part, accurate over
+    the whole range; near pi the axis is read from the symmetric part, where the skew
+    part vanishes, and its sign from the skew part.
     """
     r = np.asarray(r, dtype=float)
     lead = r.shape[:-2]
     r = r.reshape((-1, 3, 3))
-    tr = np.clip((np.trace(r, axis1=1, axis2=2) - 1) / 2, -1.0, 1.0)
-    ang = np.arccos(tr)
     skew = vee(r - np.swapaxes(r, 1, 2)) / 2  # sin(ang) * axis
+    s = np.linalg.norm(skew, axis=-1)
+    c = (np.trace(r, axis1=1, axis2=2) - 1) / 2
+    ang = np.arctan2(s, c)
     out = np.empty((r.shape[0], 3))
-    sin = np.sin(ang)
-    normal = sin > 1e-6
-    out[normal] = skew[normal] * (ang[normal] / sin[normal])[:, None]
-    small = (~normal) & (ang < 1.0)
-    out[small] = skew[small] * (1 + ang[small] ** 2 / 6)[:, None]
-    near_pi = (~normal) & (ang >= 1.0)
-    for i in np.flatnonzero(near_pi):
-        # R = I + 2 n n^T - 2 I at pi  ->  n n^T = (R + I) / 2
-        m = (r[i] + np.eye(3)) / 2
+    normal = ang < 2.5
+    a_n, s_n = ang[normal], s[normal]
+    safe = np.where(s_n > 0, s_n, 1.0)
+    out[normal] = skew[normal] * np.where(s_n > 0, a_n / safe, 1.0)[:, None]
+    for i in np.flatnonzero(~normal):
+        # R = cos(a) I + sin(a) [n] + (1 - cos(a)) n n^T: the symmetric part gives n n^T
+        sym = (r[i] + r[i].T) / 2
+        m = (sym - c[i] * np.eye(3)) / (1 - c[i])
         j = int(np.argmax(np.diag(m)))
         n = m[:, j] / np.sqrt(max(m[j, j], 1e-300))
+        n /= np.linalg.norm(n)
         if np.dot(n, skew[i]) < 0:
             n = -n
         out[i] = n * ang[i]

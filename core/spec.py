@@ -89,6 +89,38 @@ class _Reader:
         return value
 
 
+class _Object(dict):
+    """A JSON object that remembers keys given more than once."""
+    duplicates = ()
+
+
+def _no_duplicates(pairs):
+    out = _Object()
+    dups = []
+    for k, v in pairs:
+        if k in out:
+            dups.append(k)
+        out[k] = v
+    out.duplicates = dups
+    return out
+
+
+def _find_duplicate(data, path=""):
+    if isinstance(data, dict):
+        for k in getattr(data, "duplicates", ()):
+            return f"{path}.{k}" if path else str(k)
+        for k, v in data.items():
+            hit = _find_duplicate(v, f"{path}.{k}" if path else str(k))
+            if hit:
+                return hit
+    elif isinstance(data, list):
+        for i, v in enumerate(data):
+            hit = _find_duplicate(v, f"{path}[{i}]")
+            if hit:
+                return hit
+    return None
+
+
 def load(path):
     """Read a mechanism file (``.toml`` or ``.json``) and return a :class:`Mechanism`."""
     name = os.path.basename(str(path))
@@ -109,13 +141,18 @@ def loads(text, *, source="<text>", fmt="toml"):
             raise SpecError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", source=source) from None
     try:
         if fmt == "json":
-            data = json.loads(text, parse_constant=lambda c: float(c))
+            data = json.loads(text, parse_constant=lambda c: float(c), object_pairs_hook=_no_duplicates)
         else:
             data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"not valid TOML: {exc}", source=source) from None
     except json.JSONDecodeError as exc:
         raise SpecError(f"not valid JSON: {exc.msg} (line {exc.lineno}, column {exc.colno})", source=source) from None
+    if fmt == "json":
+        dup = _find_duplicate(data)
+        if dup:
+            raise SpecError("duplicate key: given more than once (each link, joint and key may appear once)",
+                            source=source, key=dup)
     return from_dict(data, source=source)
 
 
@@ -253,7 +290,14 @@ def _joint(r, key, name, jd, links, deg, mm):
     child = _link_ref(r, jd["child"], f"{key}.child", links)
     if parent == child:
         r.fail(f"{key}.child", f"joint joins link {parent!r} to itself (parent equals child)")
-    kinds = JOINT_TYPES[jtype]
+    helical_keys = [k for k in ("lead", "pitch", "starts", "lead_angle", "diameter", "thread", "hand") if k in jd]
+    lead = 0.0
+    if jtype != "helical":
+        if helical_keys:
+            r.fail(f"{key}.{helical_keys[0]}", f"only helical joints take {helical_keys[0]}, not {jtype}")
+    else:
+        lead = _lead(r, key, jd, deg, mm)
+    kinds = ("length",) if abs(lead) == math.inf else JOINT_TYPES[jtype]
     n = len(kinds)
     point = r.vector(jd.get("point", [0, 0, 0]), f"{key}.point")
     if jtype != "fixed" and "axis" not in jd:
@@ -301,13 +345,6 @@ def _joint(r, key, name, jd, links, deg, mm):
     if not isinstance(drive, bool):
         r.fail(f"{key}.drive", f"expected true or false, got {drive!r}")
 
-    helical_keys = [k for k in ("lead", "pitch", "starts", "lead_angle", "diameter", "thread", "hand") if k in jd]
-    lead = 0.0
-    if jtype != "helical":
-        if helical_keys:
-            r.fail(f"{key}.{helical_keys[0]}", f"only helical joints take {helical_keys[0]}, not {jtype}")
-    else:
-        lead = _lead(r, key, jd, deg, mm)
     try:
         return Joint(name=name, type=jtype, parent=parent, child=child, point=point, axis=axis,
                      axis2=axis2, home=home, limits=limits, drive=drive, lead=lead, source=dict(jd))

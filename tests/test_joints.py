@@ -121,8 +121,6 @@ def test_lead_angle_zero_behaves_as_revolute(theta):
     np.testing.assert_allclose(posed(rev, j=theta), about_point(rot(a, theta), p), atol=1e-12)
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: a helical joint with lead_angle = 90 becomes a "
-                   "slide but its coordinate stays an angle (value scaled by pi/180); CORE_BUGS.md #2")
 def test_lead_angle_ninety_is_a_slide():
     a = [0.0, 0.6, 0.8]
     hel = one_joint({"type": "helical", "point": [1, 1, 1], "axis": a, "lead_angle": 90, "diameter": 12})
@@ -288,8 +286,6 @@ def test_spherical_round_trip_at_and_away_from_gimbal_lock(sign, delta):
     np.testing.assert_allclose(j.transform(j.coordinates_from_transform(e)), e, atol=1e-9)
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: spherical coordinates_from_transform treats "
-                   "|sin b| > 1 - 1e-12 as gimbal lock, losing up to 3.4e-6 rad; CORE_BUGS.md #3")
 def test_spherical_round_trip_near_gimbal_lock():
     j = ball()
     worst = 0.0

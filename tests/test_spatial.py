@@ -179,16 +179,12 @@ def test_log3_round_trip_a_little_below_pi():
     assert _log3_near_pi_errors([1e-2, 1e-3]) < 1e-9
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: spatial.log3 loses accuracy just below pi "
-                   "(angle from arccos, axis scaled by ang/sin(ang)); see tests/CORE_BUGS.md #1")
 def test_log3_round_trip_near_pi():
     # reference: scipy's from_rotvec; pi - delta for delta = 1e-4 ... 1e-8 and 0
     # (observed: error 1.4e-4 rad at delta = 1e-6, ~1e-8 at exactly pi)
     assert _log3_near_pi_errors([1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 0.0]) < 1e-10
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: log6 inherits log3's loss of accuracy at pi; "
-                   "see tests/CORE_BUGS.md #1")
 def test_log6_round_trip_at_pi():
     s = S.screw_axis([0.4, -1.0, 2.0], [0.0, 0.6, 0.8], 0.3)
     T = S.exp6(s, math.pi)

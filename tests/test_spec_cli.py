@@ -181,8 +181,6 @@ def test_toml_rejects_duplicate_link_table(tmp_path):
     bad(r, 2, "dup.toml", "TOML")
 
 
-@pytest.mark.xfail(strict=True, reason="core bug: JSON loader keeps the last of duplicate keys "
-                   "silently (no object_pairs_hook); CORE_BUGS.md #4")
 def test_json_rejects_duplicate_link(tmp_path):
     # Python's json keeps the last duplicate key; a sane loader rejects it like TOML does
     text = json.dumps(vise())
