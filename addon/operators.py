@@ -248,8 +248,24 @@ class JOINTWISE_OT_live_toggle(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
+class JOINTWISE_OT_value_key(_Base, bpy.types.Operator):
+    """Key this joint value at the current frame"""
+    bl_idname = "jointwise.value_key"
+    bl_label = "Key Joint Value"
+    index: IntProperty(name="Index", default=-1, options={'HIDDEN'})
+
+    def run(self, context):
+        scene = context.scene
+        jw = scene.jointwise
+        i = self.index if self.index >= 0 else jw.joint_index
+        if not 0 <= i < len(jw.joints):
+            return self.fail("no joint value to key")
+        scene.keyframe_insert(f"jointwise.joints[{i}].value", frame=scene.frame_current)
+        return {'FINISHED'}
+
+
 AXIS_SOURCES = (
-    ("MARKER", "Selected Empty", "Point and axis (Z) of a selected empty"),
+    ("MARKER", "Marker", "Point and axis (Z) of a selected empty, else of the active joint's marker"),
     ("CURSOR", "3D Cursor", "Point and axis (Z) of the 3D cursor"),
     ("GLOBAL_X", "Global X", "Through the child's origin along global X"),
     ("GLOBAL_Y", "Global Y", "Through the child's origin along global Y"),
@@ -306,9 +322,14 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
         frame = np.eye(4)
         src = self.axis_source
         if src == "MARKER":
-            if not empties:
-                return self.fail("axis from an empty: select an empty besides the child")
-            frame = sc.matrix_host_to_core(empties[0].matrix_world)
+            active_marker = None
+            if 0 <= jw.joint_index < len(jw.joints):
+                active_marker = jw.joints[jw.joint_index].marker
+            source = empties[0] if empties else active_marker
+            if not sc.object_alive(scene, source):
+                return self.fail("axis from a marker: select an empty besides the child, "
+                                 "or pick a joint with a marker in the list")
+            frame = sc.matrix_host_to_core(source.matrix_world)
         elif src == "CURSOR":
             frame = sc.matrix_host_to_core(scene.cursor.matrix)
         else:
@@ -465,5 +486,5 @@ CLASSES = (
     JOINTWISE_OT_mechanism_import, JOINTWISE_OT_mechanism_export, JOINTWISE_OT_bake,
     JOINTWISE_OT_bake_clear, JOINTWISE_OT_home_set, JOINTWISE_OT_home_restore, JOINTWISE_OT_pose,
     JOINTWISE_OT_live_toggle, JOINTWISE_OT_joint_add, JOINTWISE_OT_joint_remove,
-    JOINTWISE_OT_coupling_add, JOINTWISE_OT_coupling_remove,
+    JOINTWISE_OT_coupling_add, JOINTWISE_OT_coupling_remove, JOINTWISE_OT_value_key,
 )

@@ -14,6 +14,7 @@ class JOINTWISE_UL_joints(bpy.types.UIList):
             row.label(text="fixed")
         else:
             row.prop(item, "angle" if item.kind == "angle" else "length", text="")
+            row.operator("jointwise.value_key", text="", icon='KEY_HLT', emboss=False).index = index
         row.prop(item, "drive", text="", icon='AUTO' if item.drive else 'DOT', emboss=False)
 
 
@@ -79,11 +80,12 @@ class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
         row = box.row(align=True)
         row.prop(it, "drive")
         row.prop(it, "use_limits")
+        suffix = "_angle" if it.kind == "angle" else "_length"
         if it.use_limits:
             row = box.row(align=True)
-            row.prop(it, "limit_min")
-            row.prop(it, "limit_max")
-        box.prop(it, "home")
+            row.prop(it, "limit_min" + suffix)
+            row.prop(it, "limit_max" + suffix)
+        box.prop(it, "home" + suffix)
 
 
 class JOINTWISE_PT_links(_Tab, bpy.types.Panel):

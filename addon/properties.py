@@ -11,9 +11,10 @@ joint-level settings (type, links, marker, helical parameters) are repeated on
 each coordinate item of a compound joint; the first item (``slot == 1``) is the
 one that counts.
 
-``value`` carries no unit subtype (one collection cannot mix angle and length
-subtypes); the panel shows it through the two views ``angle`` and ``length``,
-which read and write ``value``.
+``value``, ``home``, ``limit_min`` and ``limit_max`` carry no unit subtype (one
+collection cannot mix angle and length subtypes); the panel shows them through the
+views ``angle``/``length``, ``home_angle``/``home_length`` ... which read and write
+the same numbers (not animatable: key ``value``, e.g. with the key button).
 
 Joint frames: a joint's point and axis at home come from its marker empty (Z
 axis = joint axis, X axis = second axis of a universal joint). The marker is
@@ -51,22 +52,33 @@ def _value_update(self, context):
     handlers.value_changed(self, context)
 
 
-def _get_angle(self):
-    return self.value
+def _view(target, label, subtype, unit, precision):
+    """A unit-carrying view of the unit-less property ``target`` (same number)."""
+    return FloatProperty(name=label, subtype=subtype, unit=unit, precision=precision, options=set(),
+                         get=lambda self: getattr(self, target),
+                         set=lambda self, v: setattr(self, target, v))
 
 
-def _set_angle(self, v):
-    self.value = v
+def _angle(target, label):
+    return _view(target, label, 'ANGLE', 'ROTATION', 3)
+
+
+def _length(target, label):
+    return _view(target, label, 'DISTANCE', 'LENGTH', 5)
 
 
 class JointwiseCoordinate(bpy.types.PropertyGroup):
     """One coordinate of a joint (the item name is the coordinate name)."""
     value: FloatProperty(name="Value", description="Joint value: radians or scene length units",
                          default=0.0, update=_value_update, options={'ANIMATABLE'}, precision=6)
-    angle: FloatProperty(name="Value", subtype='ANGLE', unit='ROTATION',
-                         get=_get_angle, set=_set_angle, options=set(), precision=3)
-    length: FloatProperty(name="Value", subtype='DISTANCE', unit='LENGTH',
-                          get=_get_angle, set=_set_angle, options=set(), precision=5)
+    angle: _angle("value", "Value")
+    length: _length("value", "Value")
+    home_angle: _angle("home", "Home")
+    home_length: _length("home", "Home")
+    limit_min_angle: _angle("limit_min", "Min")
+    limit_min_length: _length("limit_min", "Min")
+    limit_max_angle: _angle("limit_max", "Max")
+    limit_max_length: _length("limit_max", "Max")
     kind: EnumProperty(name="Kind", items=(("angle", "Angle", ""), ("length", "Length", "")),
                        default="angle")
     home: FloatProperty(name="Home", description="Value at the home configuration", precision=6)
@@ -89,7 +101,7 @@ class JointwiseCoordinate(bpy.types.PropertyGroup):
                             description="The marker's X axis is the joint's second axis")
     marker_home: FloatVectorProperty(name="Marker home", size=16, default=IDENTITY16)
     lead: FloatProperty(name="Lead", description="Advance per turn (scene length units)",
-                        default=0.0, precision=6)
+                        default=0.0, precision=6, min=0.0, subtype='DISTANCE', unit='LENGTH')
     thread: StringProperty(name="Thread", description="Thread preset the lead came from, e.g. Tr16x4")
     hand: EnumProperty(name="Hand", items=(("right", "Right", ""), ("left", "Left", "")),
                        default="right")

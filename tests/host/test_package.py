@@ -77,3 +77,20 @@ def test_value_property_units(fresh):
     assert item.value == pytest.approx(1.25)
     item.length = 0.5
     assert item.value == pytest.approx(0.5)
+
+
+def test_views_and_key_button(fresh):
+    jw = fresh.jointwise
+    item = jw.joints.add()
+    item.name = "x"
+    item.home_angle = 0.5
+    item.limit_max_length = 2.0
+    assert item.home == pytest.approx(0.5) and item.limit_max == pytest.approx(2.0)
+    rna = item.bl_rna.properties
+    assert rna["home_angle"].subtype == "ANGLE" and rna["limit_min_length"].subtype == "DISTANCE"
+    fresh.frame_set(7)
+    assert bpy.ops.jointwise.value_key(index=0) == {"FINISHED"}
+    import workshop as ws
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
+    with pytest.raises(RuntimeError, match="no joint value"):
+        bpy.ops.jointwise.value_key(index=5)
