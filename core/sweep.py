@@ -232,7 +232,9 @@ class _Evaluator:
         self.sites = [mech.joints[lp.name].point for lp in block.loops]
 
     def _cscale(self, cols):
-        return np.array([self.s.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+        """Column scale making the Jacobian dimensionless: a length column is multiplied by
+        the mechanism size (du = scale * du_dimensionless)."""
+        return np.array([1.0 / self.s.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
 
     def _joint(self, jn, Q, rotmode):
         m = self.m
