@@ -427,9 +427,10 @@ def apply_displacements(scene, displacements):
             raise SceneError(f"link {name!r}: the solved placement is not finite")
     for name, (obj, w) in worlds.items():
         obj.matrix_world = matrix_core_to_host(w)
-    view_layer = getattr(bpy_context(), "view_layer", None)
-    if view_layer is not None:
-        view_layer.update()
+    ctx = bpy_context()
+    view_layer = getattr(ctx, "view_layer", None)
+    if view_layer is not None and getattr(ctx, "scene", None) == scene:
+        view_layer.update()  # children and markers follow at once
 
 
 def bpy_context():

@@ -45,3 +45,23 @@ def test_continuity_helpers(bake_module):
     assert (np.einsum("ij,ij->i", q[1:], q[:-1]) > 0).all()
     e = bake_module.continuous_eulers(bake_module.eulers_from_rotations(rs, "XYZ"))
     assert np.allclose(e[:, 2], turns, atol=1e-9)
+
+
+@pytest.mark.parametrize("mode", ["QUATERNION", "AXIS_ANGLE", "XYZ", "ZXY", "YZX"])
+def test_channels_rebuild_the_basis_in_every_rotation_mode(bake_module, fresh, mode):
+    import bpy
+    obj = bpy.data.objects.new("probe", None)
+    fresh.collection.objects.link(obj)
+    obj.rotation_mode = mode
+    rs = random_rotations(20, seed=11)
+    basis = np.tile(np.eye(4), (len(rs), 1, 1))
+    basis[:, :3, :3] = np.array(rs) * 1.5  # uniform scale 1.5 stays in the basis
+    basis[:, :3, 3] = np.arange(60).reshape(20, 3) * 0.1
+    ch = bake_module.channels_for(obj, basis)
+    path = {"QUATERNION": "rotation_quaternion", "AXIS_ANGLE": "rotation_axis_angle"}.get(mode, "rotation_euler")
+    obj.scale = (1.5, 1.5, 1.5)
+    for i in range(len(rs)):
+        obj.location = [ch[("location", k)][i] for k in range(3)]
+        n = 4 if mode in ("QUATERNION", "AXIS_ANGLE") else 3
+        setattr(obj, path, [ch[(path, k)][i] for k in range(n)])
+        assert np.allclose(np.array(obj.matrix_basis), basis[i], atol=1e-5), i
