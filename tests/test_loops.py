@@ -534,3 +534,24 @@ def test_rssr_ball_joints_vs_least_squares():
             j = m.joints[jn]
             np.testing.assert_allclose(L[j.parent] @ np.append(P, 1), L[j.child] @ np.append(P, 1), atol=1e-8)
         prev = p
+
+
+# -- consistent over-determined held values -----------------------------------------------------------------------
+@pytest.mark.xfail(strict=True, reason="core bug: held values are interpolated linearly from home, so "
+                   "a consistent set holding more coordinates than freedoms fails; CORE_BUGS.md #6")
+def test_consistent_crank_and_rocker_held_together():
+    # crank and rocker both held at values that close the loop (closed form, circle intersection)
+    a, b, c, d = CR
+    m = load(M.four_bar(a, b, c, d, 60.0))
+    t4 = M.four_bar_positions(a, b, c, d, 150.0)[2]
+    p = m.pose({"crank": 150.0, "rocker": t4})
+    assert p.converged
+    assert p.joints["crank"] == pytest.approx(150.0) and p.joints["rocker"] == pytest.approx(t4)
+
+
+def test_consistent_held_values_at_home():
+    a, b, c, d = CR
+    m = load(M.four_bar(a, b, c, d, 60.0))
+    t4 = M.four_bar_positions(a, b, c, d, 60.0)[2]
+    p = m.pose({"crank": 60.0, "rocker": t4})
+    assert p.converged and p.residual <= 1e-9
