@@ -29,7 +29,7 @@ ensure_bpy() {  # $1 venv folder, $2 bpy version spec
 ensure_bpy .venv-bpy45 4.5.15
 ensure_bpy .venv-bpy50 5.0.1
 
-ZIP=$(.venv/bin/python addon/package.py | tail -n 1)
+ZIP=$(.venv/bin/python addon/package.py)  # prints only the zip path; fails the script on error
 echo "== extension zip: $ZIP"
 export JOINTWISE_ZIP="$ZIP"
 
