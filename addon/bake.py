@@ -25,6 +25,7 @@ from . import scene as sc
 _PATH = re.compile(r'^jointwise\.joints\[(?:(\d+)|"((?:[^"\\]|\\.)*)")\]\.(value|angle|length)$')
 TAG = "jointwise_bake"
 PREVIOUS = "jointwise_previous"
+KEPT = "jointwise_kept"  # on an earlier action: we gave it a fake user while it is set aside
 LINEAR = None  # enum value of 'LINEAR' for foreach_set, found once
 
 
@@ -326,6 +327,9 @@ def new_action(obj):
                 bpy.data.actions.remove(old)
         else:
             previous = old.name
+            if not old.use_fake_user:  # keep it through save/reload while unassigned
+                old.use_fake_user = True
+                old[KEPT] = 1
             ad.action = None
     action = bpy.data.actions.new(f"{obj.name} motion")
     action[TAG] = 1
@@ -370,7 +374,13 @@ def clear(obj):
     previous = action.get(PREVIOUS, "")
     ad.action = None
     if previous and previous in bpy.data.actions:
-        ad.action = bpy.data.actions[previous]
+        prev = bpy.data.actions[previous]
+        ad.action = prev
+        if getattr(ad, "action_slot", None) is None and len(getattr(prev, "slots", ())):
+            ad.action_slot = prev.slots[0]
+        if prev.get(KEPT):
+            prev.use_fake_user = False
+            del prev[KEPT]
     if action.users == 0:
         bpy.data.actions.remove(action)
     return True

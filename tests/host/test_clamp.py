@@ -258,3 +258,26 @@ def test_dragging_a_passive_joint_moves_the_loop(fresh, tmp_path):
     mech = jointwise.load(ws.clamp_file(tmp_path, drive="d"))
     check_against_core(objs, homes, mech, {"d": 10.0})
     assert jw.joints["a"].value != pytest.approx(math.radians(90), abs=1e-3)  # the crank moved
+
+
+def test_bake_remembers_and_clear_restores_an_earlier_action(fresh, tmp_path):
+    objs, homes, path = setup_clamp(tmp_path)
+    crank = objs["Crank"]
+    crank.keyframe_insert("location", frame=1)
+    own = crank.animation_data.action
+    own_name = own.name
+    for _ in range(2):  # baking twice replaces our own bake, still remembering the user's
+        assert bpy.ops.jointwise.bake(frame_start=1, frame_end=4, drive="a", value_from=1.6,
+                                      value_to=2.0) == {"FINISHED"}
+        assert crank.animation_data.action.get("jointwise_bake")
+    assert len([a for a in bpy.data.actions if a.get("jointwise_bake")]) == 3  # one per link object
+    assert own.use_fake_user  # set aside, but kept through save/reload
+    blend = tmp_path / "kept.blend"
+    bpy.ops.wm.save_as_mainfile(filepath=str(blend))
+    bpy.ops.wm.open_mainfile(filepath=str(blend))
+    crank = bpy.data.objects["Crank"]
+    assert bpy.ops.jointwise.bake_clear() == {"FINISHED"}
+    assert crank.animation_data.action.name == own_name
+    assert not crank.animation_data.action.use_fake_user
+    assert [fc.data_path for fc in ws.fcurves_of(crank)] == ["location"] * 3
+    assert not [a for a in bpy.data.actions if a.get("jointwise_bake")]
