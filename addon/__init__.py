@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import bpy
 
-from . import handlers, operators, panels, properties
+from . import handlers, operators, panels, properties, trace
 
-CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES
+CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + trace.CLASSES
 
 
 def register():

@@ -258,14 +258,39 @@ def eulers_from_rotations(r, order):
     return out
 
 
-def continuous_eulers(e, previous=None):
-    """Unwrap each angle so consecutive keys never jump by a full turn."""
+def continuous_eulers(e, previous=None, order="XYZ"):
+    """Compatible Euler angles: consecutive keys never jump by a full turn, nor flip to
+    the other equivalent triple (a + pi, pi - b, c + pi) - the one that shows up when
+    the middle angle passes +-90 degrees."""
     e = np.asarray(e, dtype=float)
-    if previous is not None and len(e):
+    if len(e) == 0:
+        return e
+    e = e.copy()
+    if previous is not None:
         prev = np.asarray(previous, dtype=float)
-        e = e.copy()
         e[0] += 2 * math.pi * np.round((prev - e[0]) / (2 * math.pi))
-    return np.unwrap(e, axis=0) if len(e) > 1 else e
+    out = np.unwrap(e, axis=0) if len(e) > 1 else e
+    if len(e) < 2 or np.abs(np.diff(out, axis=0)).max() < math.pi / 2:
+        return out  # the usual case: no flip, nothing more to do
+    i, j, k = (_AXIS[c] for c in order)
+    alt = e.copy()
+    alt[:, i] += math.pi
+    alt[:, j] = math.pi - alt[:, j]
+    alt[:, k] += math.pi
+    two_pi = 2 * math.pi
+    prev = out[0]
+    if previous is not None:
+        p = np.asarray(previous, dtype=float)
+        a0 = alt[0] + two_pi * np.round((p - alt[0]) / two_pi)
+        prev = a0 if np.abs(a0 - p).sum() < np.abs(out[0] - p).sum() else out[0]
+    res = np.empty_like(e)
+    res[0] = prev
+    for n in range(1, len(e)):  # sequential, but only for curves that need it
+        c1 = e[n] + two_pi * np.round((prev - e[n]) / two_pi)
+        c2 = alt[n] + two_pi * np.round((prev - alt[n]) / two_pi)
+        prev = c1 if np.abs(c1 - prev).sum() <= np.abs(c2 - prev).sum() else c2
+        res[n] = prev
+    return res
 
 
 def channels_for(obj, basis):
@@ -293,7 +318,7 @@ def channels_for(obj, basis):
             for i in range(3):
                 ch[("rotation_axis_angle", i + 1)] = axis[:, i]
     else:
-        e = continuous_eulers(eulers_from_rotations(rot, mode), np.array(obj.rotation_euler))
+        e = continuous_eulers(eulers_from_rotations(rot, mode), np.array(obj.rotation_euler), mode)
         for i in range(3):
             ch[("rotation_euler", i)] = e[:, i]
     return ch

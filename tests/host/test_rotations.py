@@ -65,3 +65,18 @@ def test_channels_rebuild_the_basis_in_every_rotation_mode(bake_module, fresh, m
         n = 4 if mode in ("QUATERNION", "AXIS_ANGLE") else 3
         setattr(obj, path, [ch[(path, k)][i] for k in range(n)])
         assert np.allclose(np.array(obj.matrix_basis), basis[i], atol=1e-5), i
+
+
+@pytest.mark.parametrize("order", ["XYZ", "ZXY", "YXZ"])
+def test_euler_through_gimbal_stays_compatible(bake_module, order):
+    """A turn about the middle axis through +-90 degrees: the raw decomposition flips to
+    the other triple there; the keys must not (compared with mathutils' compatible Euler)."""
+    mid = order[1]
+    axis = {"X": (1, 0, 0), "Y": (0, 1, 0), "Z": (0, 0, 1)}[mid]
+    first = {"X": (1, 0, 0), "Y": (0, 1, 0), "Z": (0, 0, 1)}[order[0]]
+    ts = np.linspace(0, 2.5 * math.pi, 120)
+    rs = np.array([np.array((Matrix.Rotation(t, 3, axis) @ Matrix.Rotation(0.3, 3, first))) for t in ts])
+    e = bake_module.continuous_eulers(bake_module.eulers_from_rotations(rs, order), None, order)
+    assert np.abs(np.diff(e, axis=0)).max() < 0.2
+    for r, angles in zip(rs, e):
+        assert np.allclose(np.array(Euler(angles, order).to_matrix()), r, atol=2e-6)
