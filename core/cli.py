@@ -177,7 +177,7 @@ def check_report(mech):
     """The ``check`` report as a dict (the JSON keys of ``jointwise check``)."""
     from .mechanism import ASSEMBLY_TOLERANCE
     from .solver import TOLERANCE
-    problems = []
+    problems = [f"settled: {n}" for n in mech.settle_notes]
     closure = float(mech.home_closure())
     q = mech.home
     if closure > TOLERANCE:

@@ -133,6 +133,7 @@ class Mechanism:
         self._powers = None
         self._build_tree()
         self.size = self._size()
+        self.settle_notes = self._settle_axes()
 
         from .solver import Solver  # noqa: E402  (solver imports this module)
         self.solver = Solver(self)
@@ -202,6 +203,51 @@ class Mechanism:
     def _other(self, jname, sign, link):
         j = self.joints[jname]
         return j.parent if sign > 0 else j.child
+
+    def _settle_axes(self):
+        """Make nearly parallel joint axes of the loops exactly parallel.
+
+        Axes drawn in a modeller are rarely exact; a planar linkage whose pins are
+        0.01 deg out of parallel is, strictly, a rigid spatial loop.  Turning axes
+        (revolute, helical, cylindrical, planar normals) of loop joints that lie within
+        ``ASSEMBLY_TOLERANCE`` radians of each other are set to their mean direction,
+        and slides within that tolerance of perpendicular to such a direction are
+        projected onto its plane.  Returns notes saying what was changed.
+        """
+        loop_joints = {jn for lp in self.loops for jn, _ in lp.steps}
+        turning = [self.joints[jn] for jn in self.joints
+                   if jn in loop_joints and self.joints[jn].type in ("revolute", "helical", "cylindrical", "planar")]
+        notes, clusters, used = [], [], set()
+        for j in turning:
+            if j.name in used:
+                continue
+            group = [k for k in turning if k.name not in used
+                     and np.linalg.norm(np.cross(j.axis, k.axis)) < ASSEMBLY_TOLERANCE]
+            used.update(k.name for k in group)
+            mean = sum(np.sign(np.dot(k.axis, j.axis)) * k.axis for k in group)
+            mean = mean / np.linalg.norm(mean)
+            clusters.append(mean)
+            worst = max(float(np.linalg.norm(np.cross(k.axis, mean))) for k in group)
+            if len(group) > 1 and worst > 1e-12:
+                for k in group:
+                    k.axis = np.sign(np.dot(k.axis, mean)) * mean
+                notes.append(f"axes of joints {', '.join(k.name for k in group)} made parallel "
+                             f"(they were up to {math.degrees(worst):.3g} deg apart)")
+        for jn in loop_joints:
+            j = self.joints[jn]
+            if j.type != "prismatic":
+                continue
+            for n in clusters:
+                d = float(np.dot(j.axis, n))
+                if 1e-12 < abs(d) < ASSEMBLY_TOLERANCE:
+                    a = j.axis - d * n
+                    j.axis = a / np.linalg.norm(a)
+                    notes.append(f"slide of joint {jn} made perpendicular to the turning axes "
+                                 f"(it was {math.degrees(math.asin(abs(d))):.3g} deg off)")
+        if notes:
+            for j in self.joints.values():
+                j.primitives = j._build()
+        return notes
 
     def _size(self):
         pts = [j.point for j in self.joints.values()]

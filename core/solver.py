@@ -454,7 +454,7 @@ class Solver:
         from .mechanism import ASSEMBLY_TOLERANCE
         m = self.m
         q = m.home.copy()
-        notes = []
+        notes = [f"home placement settled: {n}" for n in m.settle_notes]
         for name, err in self.coupling_errors(q).items():
             if err <= TOLERANCE:
                 continue
@@ -568,6 +568,7 @@ class Solver:
         if allcols is None or allcols[0] is not cols:
             allcols = self._allcols[akey] = (cols, cols + [("m", g) for g in hlist])
         allcols = allcols[1]
+        q0 = q.copy()
         dfull = np.array([held_b[g] - h0[g] for g in hlist])  # held change per unit t
         held_rate = span  # dimensionless held motion per unit t
         t = 0.0
@@ -610,6 +611,9 @@ class Solver:
                     break
                 dt *= 0.5
                 if dt * max(held_rate, 1e-12) < 1e-9:
+                    if self._solve_overheld(b, q0, held_b, source):
+                        q[:] = q0
+                        return 0.0, False
                     self._fail(b, q, held_b, source, err, errs, h0)
             q[:] = trial
             pred = rmax * (t1 - t)
@@ -624,6 +628,50 @@ class Solver:
         if J_here is not None:
             self._lastJ[b.index] = (allcols, q.copy(), J_here)
         return err, self._singular(b, J, cols, rs, cs)
+
+    def _solve_overheld(self, b, q, held_b, source):
+        """Held values that over-determine a block (e.g. crank and rocker of a four-bar).
+
+        Moving all of them linearly from home passes through contradictory sets, so the
+        continuation fails even where the final values agree.  Continue on an
+        independent subset of the held coordinates instead (greedy by rank of the
+        Jacobian), then hold them all and close.  Updates ``q`` and returns True on
+        success.
+        """
+        hlist = list(held_b)
+        if len(hlist) < 2:
+            return False
+        cols, rot = self._layout(b, set())
+        J = self._eval(b, q, cols, rot)[2]
+        rs = self._row_scale(len(b.loops))
+        Js = J * rs[:, None] * self._col_scale(cols)[None, :]
+        index = {c[1]: k for k, c in enumerate(cols) if c[0] == "m"}
+        tol = 1e-8 * max(np.abs(Js).max(), 1e-300)
+        full = np.linalg.matrix_rank(Js, tol=tol)
+        free = list(range(len(cols)))
+        subset = {}
+        for g in hlist:  # hold g only if the loops stay solvable without it
+            if g not in index:
+                continue
+            rest = [k for k in free if k != index[g]]
+            if np.linalg.matrix_rank(Js[:, rest], tol=tol) == full:
+                free = rest
+                subset[g] = held_b[g]
+        if len(subset) == len(hlist):
+            return False
+        trial = q.copy()
+        try:
+            self._solve_block(b, trial, subset, source)
+        except AssemblyError:
+            return False
+        for g in hlist:
+            trial[g] = held_b[g]
+        self._derive(trial, hlist)
+        cols, rot = self._layout(b, set(held_b))
+        ok, _, _, _ = self._newton(b, trial, cols, rot)
+        if ok:
+            q[:] = trial
+        return ok
 
     def _dist(self, a, b, cols):
         d = 0.0

@@ -537,8 +537,6 @@ def test_rssr_ball_joints_vs_least_squares():
 
 
 # -- consistent over-determined held values -----------------------------------------------------------------------
-@pytest.mark.xfail(strict=True, reason="core bug: held values are interpolated linearly from home, so "
-                   "a consistent set holding more coordinates than freedoms fails; CORE_BUGS.md #6")
 def test_consistent_crank_and_rocker_held_together():
     # crank and rocker both held at values that close the loop (closed form, circle intersection)
     a, b, c, d = CR
