@@ -109,3 +109,24 @@ def test_coupling_add_and_export(fresh, tmp_path):
     out = tmp_path / "x.toml"
     assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
     assert tomllib.loads(out.read_text())["mechanism"]["ground"] == "body"
+
+
+def test_moving_a_marker_moves_the_joint(fresh):
+    """The marker is the joint frame: moved and turned with the ordinary tools, it changes
+    the axis the link turns about (reference: mathutils rotation about that line)."""
+    from mathutils import Matrix, Vector
+    crank = ws.cube("Crank", (0.1, 0, 0), (0.05, 0.01, 0.01))
+    home = crank.matrix_world.copy()
+    select(crank, active=crank)
+    bpy.ops.jointwise.joint_add(name="pivot", type="revolute", axis_source="GLOBAL_Z", drive=True)
+    jw = fresh.jointwise
+    marker = jw.joints["pivot"].marker
+    p = Vector((0.02, -0.03, 0.01))
+    axis = Vector((1, 1, 2)).normalized()
+    marker.matrix_world = Matrix.Translation(p) @ axis.to_track_quat('Z', 'Y').to_matrix().to_4x4()
+    bpy.context.view_layer.update()
+    jw.live = True
+    jw.joints["pivot"].value = 0.8
+    assert jw.converged, jw.message
+    want = Matrix.Translation(p) @ Matrix.Rotation(0.8, 4, axis) @ Matrix.Translation(-p) @ home
+    assert np.allclose(np.array(crank.matrix_world), np.array(want), atol=1e-5)
