@@ -1177,10 +1177,13 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
     if step is None:
         step = 2.0 * (math.pi / 180) / unit if is_angle else mech.size / 50.0
     full = 2 * math.pi / unit if is_angle else None
-    if max_travel is None:
-        max_travel = max_turns * full if is_angle else 20.0 * mech.size
     j = mech.joints[mech._owner[drive]]
     lim = j.limits[di - mech._slices[j.name].start]
+    if max_travel is None:
+        max_travel = max_turns * full if is_angle else 20.0 * mech.size
+        if lim is not None:  # a limited drive (a lead screw, say) is searched up to its limits
+            max_travel = max(max_travel, (lim[1] - lim[0]) / unit)
+    max_step = 16 * step
 
     def solve(value, qstart):
         h = dict(heldv)
@@ -1204,10 +1207,12 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
         v = home
         travelled = 0.0
         checked = False
+        h = step
         while True:
-            nv = v + direction * step
+            nv = v + direction * h
+            h = min(2 * h, max_step)  # the solver continues within a step; bisection refines the end
             at_turn = False
-            if is_angle and not checked and travelled + step >= full:
+            if is_angle and not checked and travelled + abs(nv - v) >= full:
                 nv = home + direction * full
                 at_turn = checked = True
             if lim is not None:
