@@ -20,7 +20,7 @@ could hurt someone, the caution that jointwise checks kinematics only).
 
 The extension zip (``$JOINTWISE_ZIP`` or ``dist/jointwise-*.zip``, built by
 ``.venv/bin/python addon/package.py``) is installed under a temporary HOME, as in the
-host tests. ``--check`` rebuilds into a temporary folder and compares the stored home
+host tests. ``--check`` rebuilds each sample in memory and compares the stored home
 placements with the committed files (exit 1 on a difference).
 
 The functions below (``build_scene``, ``save``, ``home_placements``) are used by the
@@ -745,7 +745,7 @@ def main(argv=None):
                                  "from their mechanism files.")
     ap.add_argument("names", nargs="*", metavar="NAME", help=f"samples (default: all): {', '.join(SAMPLES)}")
     ap.add_argument("--check", action="store_true",
-                    help="rebuild into a temporary folder and compare home placements with the committed files")
+                    help="rebuild in memory and compare home placements with the committed files")
     args = ap.parse_args(argv)
     names = args.names or list(SAMPLES)
     for n in names:
@@ -757,21 +757,21 @@ def main(argv=None):
         import bpy
         install(zip_path)
         failed = []
-        with tempfile.TemporaryDirectory() as tmp:
-            for n in names:
-                scene = build_scene(n)
-                if args.check:
-                    fresh = home_placements(scene)
-                    bpy.ops.wm.open_mainfile(filepath=str(blend_path(n)))
-                    ensure_enabled()
-                    diffs = compare_homes(home_placements(bpy.context.scene), fresh)
-                    print(f"{n}: {'same home placements' if not diffs else '; '.join(diffs)}")
-                    if diffs:
-                        failed.append(n)
-                else:
-                    out = save(blend_path(n))
-                    print(f"{n}: wrote {out} ({out.stat().st_size // 1024} KB)")
-            del tmp
+        for n in names:
+            scene = build_scene(n)
+            if args.check:  # the rebuilt scene stays in memory; nothing is written
+                fresh = home_placements(scene)
+                if not blend_path(n).exists():
+                    raise SampleError(f"{blend_path(n)} does not exist; build it first")
+                bpy.ops.wm.open_mainfile(filepath=str(blend_path(n)))
+                ensure_enabled()
+                diffs = compare_homes(home_placements(bpy.context.scene), fresh)
+                print(f"{n}: {'same home placements' if not diffs else '; '.join(diffs)}")
+                if diffs:
+                    failed.append(n)
+            else:
+                out = save(blend_path(n))
+                print(f"{n}: wrote {out} ({out.stat().st_size // 1024} KB)")
         if failed:
             print(f"build.py --check: {', '.join(failed)} differ from the committed files", file=sys.stderr)
             return 1

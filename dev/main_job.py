@@ -34,9 +34,21 @@ import tempfile
 import time
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT / "blend_samples"))
 
-import build  # noqa: E402  (blend_samples/build.py: no bpy at import time)
+def _load_build():
+    """blend_samples/build.py under a name of its own (``build`` is also a PyPI package)."""
+    import importlib.util
+    name = "jointwise_samples_build"
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.spec_from_file_location(name, ROOT / "blend_samples" / "build.py")
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules[name] = mod
+    spec.loader.exec_module(mod)
+    return mod
+
+
+build = _load_build()
 
 STAMP = ".jointwise-demo"
 SHEET_FRAMES = 6
