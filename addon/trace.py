@@ -180,4 +180,34 @@ class JOINTWISE_OT_trace_add(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-CLASSES = (JOINTWISE_OT_trace_add,)
+class JOINTWISE_PT_traces(bpy.types.Panel):
+    """Point measures of the mechanism file, each with a button drawing its path over the
+    scene's frame range."""
+    bl_space_type = 'VIEW_3D'
+    bl_region_type = 'UI'
+    bl_category = "Jointwise"
+    bl_label = "Traces"
+    bl_options = {'DEFAULT_CLOSED'}
+
+    def draw(self, context):
+        layout = self.layout
+        scene = context.scene
+        try:
+            names = sorted(point_measures(scene))
+        except sc.SceneError as exc:
+            layout.label(text=str(exc))
+            return
+        if not names:
+            layout.label(text="No point measures in the mechanism file")
+            return
+        traced = {o.get(TAG) for o in scene.objects if o.get(TAG)}
+        for name in names:
+            row = layout.row(align=True)
+            row.label(text=name + ("  (traced)" if name in traced else ""))
+            op = row.operator("jointwise.trace_add", text="Trace")
+            op.measure = name
+            op.frame_start = scene.frame_start
+            op.frame_end = scene.frame_end
+
+
+CLASSES = (JOINTWISE_OT_trace_add, JOINTWISE_PT_traces)

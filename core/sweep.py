@@ -1234,6 +1234,8 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
                 return good, why, False
             travelled += abs(nv - v)
             q, v = qn, nv
+            if lim is not None and v == (lim[1] if direction > 0 else lim[0]) / unit:
+                return v, f"limit of joint {j.name}", False
             if at_turn:
                 if _same_placement(mech, q, q_home):
                     return v, "turns fully", True

@@ -223,3 +223,16 @@ def test_trace_replaces_and_ramps(installed):
     assert r == {"FINISHED"}
     traces = [o for o in scene.objects if o.get("jointwise_trace") == "sign_hook"]
     assert len(traces) == 1 and len(traces[0].data.splines[0].points) == 5
+
+
+def test_traces_panel_draws(installed):
+    import types
+    from test_panels import Recorder  # the recording layout of the panel tests
+    open_sample("plover_lift")
+    log = []
+    bpy.types.JOINTWISE_PT_traces.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    assert ("operator", "jointwise.trace_add") in log and ("label", "deck_point  (traced)") in log
+    bpy.ops.wm.read_homefile(use_empty=True)
+    log = []
+    bpy.types.JOINTWISE_PT_traces.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    assert log == [("label", "No point measures in the mechanism file")]
