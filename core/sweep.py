@@ -538,8 +538,15 @@ def _dimless_path(ev, Hm):
     return np.concatenate([[0.0], np.cumsum(d)])
 
 
+#: Batched steps are processed in chunks of this many rows, which bounds the memory
+#: of the stacked Jacobians (rows x loop equations x unknowns) whatever the sweep length.
+CHUNK = 2048
+
+
 def _tangent(ev, Q):
     """dq/dheld (B, n_coordcols, n_held) in coordinate mode and the coord columns."""
+    if Q.shape[0] > CHUNK:
+        return np.concatenate([_tangent(ev, Q[k:k + CHUNK]) for k in range(0, Q.shape[0], CHUNK)])
     cols = ev.cols_coord + ev.cols_held
     _, _, J = ev.eval(Q, cols, rotmode=False)
     nu = len(ev.cols_coord)
@@ -554,6 +561,8 @@ def _tangent(ev, Q):
 
 def _newton(ev, Q, idx, iters=BATCH_ITER):
     """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx."""
+    if len(idx) > CHUNK:
+        return np.concatenate([_newton(ev, Q, idx[k:k + CHUNK], iters) for k in range(0, len(idx), CHUNK)])
     cols = ev.cols_rot
     cs = ev._cscale(cols)
     active = np.arange(len(idx))
@@ -794,8 +803,11 @@ def _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0):
                 start = qn
 
 
-def _certificate(ev, Q):
+def _certificate(ev, Q, want_js=True):
     """(certificate det(G)/|G|_F^g, Js) at states Q, rotation-increment columns."""
+    if not want_js and Q.shape[0] > CHUNK:
+        return np.concatenate([_certificate(ev, Q[k:k + CHUNK], False)[0]
+                               for k in range(0, Q.shape[0], CHUNK)]), None
     cols = ev.cols_rot
     cs = ev._cscale(cols)
     _, _, J = ev.eval(Q, cols)
@@ -820,7 +832,7 @@ def _singular_flags(ev, Q, conv):
     exact = np.zeros(N, bool)
     if coarse is not None and len(coarse) >= 3 and len(coarse) < N // 2:
         coarse = np.asarray(coarse)
-        c_cert, _ = _certificate(ev, Q[coarse])
+        c_cert, _ = _certificate(ev, Q[coarse], False)
         c_sq = np.sqrt(np.maximum(c_cert, 0.0))
         sq = np.interp(np.arange(N), coarse, c_sq)
         exact[coarse] = True
@@ -833,11 +845,11 @@ def _singular_flags(ev, Q, conv):
         cand &= ~exact
         if cand.any():
             idx = np.flatnonzero(cand)
-            cc, _ = _certificate(ev, Q[idx])
+            cc, _ = _certificate(ev, Q[idx], False)
             sq[idx] = np.sqrt(np.maximum(cc, 0.0))
             exact[idx] = True
     else:
-        cc, _ = _certificate(ev, Q)
+        cc, _ = _certificate(ev, Q, False)
         sq = np.sqrt(np.maximum(cc, 0.0))
         exact[:] = True
     flag = np.zeros(N, bool)
