@@ -91,6 +91,13 @@ def test_sample_mechanism_matches_file(core, name):
         if j.type == "helical":
             assert firsts[jname].lead == pytest.approx(abs(float(j.lead)) * k, rel=1e-6)
     assert [it.name for it in jw.joints if it.drive] == mech.driven
+    for it in jw.joints:  # limits too: a .blend older than its file shows here
+        j = mech.joints[it.joint]
+        lim = j.limits[it.slot - 1] if it.slot - 1 < len(j.limits) else None
+        assert it.use_limits == (lim is not None), it.name
+        if lim is not None:
+            f = k if it.kind == "length" else 1.0
+            assert (it.limit_min, it.limit_max) == pytest.approx((lim[0] * f, lim[1] * f), rel=1e-6), it.name
     text = bpy.data.texts["README"].as_string()
     assert "Fennwick Row" in text and f"{name}.toml" in text
     if name in build.CAUTIONED:
