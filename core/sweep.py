@@ -261,8 +261,12 @@ class _Evaluator:
 
     def eval(self, Q, cols=None, rotmode=True):
         """Residual (B, 6 nl), per-step largest loop error (B,), and J (B, 6 nl, len(cols))."""
-        m, s = self.m, self.s
         B = Q.shape[0]
+        if B > CHUNK:  # bound the memory of the stacked transforms
+            parts = [self.eval(Q[k:k + CHUNK], cols, rotmode) for k in range(0, B, CHUNK)]
+            J = None if cols is None else np.concatenate([p[2] for p in parts])
+            return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]), J
+        m, s = self.m, self.s
         data = {jn: self._joint(jn, Q, rotmode) for jn in self.joints}
         r = np.zeros((B, 6 * self.nl))
         J = None if cols is None else np.zeros((B, 6 * self.nl, len(cols)))
