@@ -1,8 +1,6 @@
 """Operators. Each copies its settings, calls the scene mapping / core, and reports
 problems with ``self.report({'ERROR'}, ...)`` + ``{'CANCELLED'}`` (never a traceback).
 Everything is undoable (``{'REGISTER', 'UNDO'}``)."""
-from __future__ import annotations
-
 import math
 import os
 

@@ -25,8 +25,6 @@ turned at any pose and is always understood in the parent link's frame.
 ``marker_home`` keeps the marker's home placement from the last set-home, used by
 return-to-home.
 """
-from __future__ import annotations
-
 import math
 
 import bpy

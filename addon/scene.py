@@ -583,8 +583,7 @@ def import_mechanism(scene, mech, objects, marker_collection):
     objects' current placements become home. Returns the markers made."""
     import bpy
     jw = scene.jointwise
-    k = length_file_to_host(scene, mech.length_unit)
-    a = angle_file_to_host(mech.angle_unit)
+    k = length_file_to_host(scene, mech.length_unit)  # angles: the core holds radians already
     data = mech.to_dict()
     for jname, j in mech.joints.items():  # everything checked before anything changes
         if j.type == "helical" and not math.isfinite(float(j.lead)):

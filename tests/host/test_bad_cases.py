@@ -118,7 +118,6 @@ def test_bake_over_dead_point_writes_nothing_and_names_frame(fresh, tmp_path):
     clamp(tmp_path, drive="d")
     jw = fresh.jointwise
     # one degree per frame from home: frame 1 = 0 deg, frame f = f - 1 deg
-    r = bpy.ops.jointwise.bake  # noqa: F841
     jw.joints["d"].value = 0.0
     fresh.keyframe_insert('jointwise.joints["d"].value', frame=1)
     jw.joints["d"].value = math.radians(100)

@@ -7,7 +7,6 @@ import math
 
 import bpy
 import numpy as np
-import pytest
 
 import workshop as ws
 
