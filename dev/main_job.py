@@ -11,9 +11,9 @@ Steps, for the sample (default ``wagtail_rocker``, one crank turn):
 2. build the sample scene from its mechanism file (``blend_samples/build.py``): meshes,
    ``jointwise.mechanism_import``, the documented sweep baked over frames 1..N, the
    coupler-point trace; save ``<sample>.blend``;
-3. the sweep table ``<sample>_sweep.csv`` (the core's sweep over the same N steps, the
-   columns of ``jointwise sweep``) and its plot ``<sample>_sweep.png``;
-4. ``<sample>_contact_sheet.png``: six frames rendered with Workbench (320 x 240 each),
+3. the sweep table ``<sample>.csv`` (the core's sweep over the same N steps, the
+   columns of ``jointwise sweep``) and its plot ``<sample>.png``;
+4. ``contact_sheet.png``: six frames rendered with Workbench (320 x 240 each),
    tiled 3 x 2.
 
 Everything is written into a temporary folder beside the output folder, which then
@@ -94,9 +94,9 @@ def write_table_and_plot(name, steps, folder):
         i = int(bad[0])
         raise JobError(f"{name}: the sweep of {drive} did not converge at step {i} "
                        f"({drive} = {values[i]:g}): {sw.reasons.get(i, 'the loops do not close')}")
-    csv = folder / f"{name}_sweep.csv"
+    csv = folder / f"{name}.csv"
     csv.write_text(report.sweep_table(mech, sw, drive), encoding="utf-8")
-    png = folder / f"{name}_sweep.png"
+    png = folder / f"{name}.png"
     try:
         import matplotlib  # noqa: F401  (not in Blender's Python, usually)
         report.plot_sweep(mech, sw, drive, str(png))
@@ -196,7 +196,7 @@ def run(args):
         log(f"saved {blend.name}")
         csv, png = write_table_and_plot(name, f1 - f0 + 1, tmp)
         log(f"wrote {csv.name} and {png.name}")
-        sheet = render_sheet(scene, sheet_frames(f0, f1), tmp, tmp / f"{name}_contact_sheet.png")
+        sheet = render_sheet(scene, sheet_frames(f0, f1), tmp, tmp / "contact_sheet.png")
         log(f"rendered {sheet.name}")
         (tmp / STAMP).write_text(f"written by dev/main_job.py for {name}\n", encoding="utf-8")
         replace_folder(tmp, out)
@@ -206,8 +206,7 @@ def run(args):
     if args.docs:
         docs = ROOT / "docs"
         docs.mkdir(exist_ok=True)
-        for src, dst in ((f"{name}_contact_sheet.png", "contact_sheet.png"),
-                         (f"{name}_sweep.png", "sweep_plot.png")):
+        for src, dst in (("contact_sheet.png", "contact_sheet.png"), (f"{name}.png", "sweep_plot.png")):
             part = docs / f".{dst}.part"
             shutil.copyfile(out / src, part)
             os.replace(part, docs / dst)
