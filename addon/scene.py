@@ -43,7 +43,7 @@ def core():
 
 def matrix_host_to_core(m):
     """``mathutils.Matrix`` (4x4) -> numpy float64 4x4 (rows stay rows)."""
-    return np.array([list(row) for row in m], dtype=float)
+    return np.array(m, dtype=float)  # mathutils gives rows
 
 
 def matrix_core_to_host(a):
@@ -63,7 +63,30 @@ def matrix_core_to_stored(a):
 
 
 def inverse(m):
-    return np.linalg.inv(m)
+    """Inverse of an affine 4x4; the transpose formula when the rotation part is rigid."""
+    m = np.asarray(m, dtype=float)
+    r = m[:3, :3]
+    out = np.eye(4)
+    if np.abs(r.T @ r - np.eye(3)).max() < 1e-5:
+        out[:3, :3] = r.T
+    else:
+        out[:3, :3] = np.linalg.inv(r)
+    out[:3, 3] = -out[:3, :3] @ m[:3, 3]
+    return out
+
+
+_HOME_INVERSE = {}
+
+
+def home_inverse(flat):
+    """inv(H) of a stored home matrix (cached: homes change only on set-home)."""
+    key = tuple(flat)
+    hit = _HOME_INVERSE.get(key)
+    if hit is None:
+        if len(_HOME_INVERSE) > 4096:
+            _HOME_INVERSE.clear()
+        hit = _HOME_INVERSE[key] = inverse(matrix_stored_to_core(key))
+    return hit
 
 
 # -- units -----------------------------------------------------------------------------
@@ -93,7 +116,7 @@ def object_alive(scene, obj):
     if obj is None:
         return False
     try:
-        return obj.name in scene.objects and scene.objects[obj.name] == obj
+        return scene.objects.get(obj.name) == obj
     except ReferenceError:
         return False
 
@@ -122,7 +145,7 @@ def ground_displacement(scene):
     obj = link_object(scene, link)
     if obj is None:
         return np.eye(4)
-    return matrix_host_to_core(obj.matrix_world) @ inverse(matrix_stored_to_core(link.home))
+    return matrix_host_to_core(obj.matrix_world) @ home_inverse(link.home)
 
 
 def scene_displacement(scene, link_name):
@@ -134,7 +157,7 @@ def scene_displacement(scene, link_name):
     if link is None:
         raise SceneError(f"no link named {link_name!r} in the scene's mechanism")
     obj = link_object(scene, link)
-    return matrix_host_to_core(obj.matrix_world) @ inverse(matrix_stored_to_core(link.home))
+    return matrix_host_to_core(obj.matrix_world) @ home_inverse(link.home)
 
 
 def first_items(jw):
@@ -150,14 +173,25 @@ def joint_items(jw, joint):
     return [it for it in jw.joints if it.joint == joint]
 
 
-def joint_frame_home(scene, item):
-    """Home frame (4x4, core world) of the joint of ``item`` from its marker."""
+def items_by_joint(jw):
+    out = {}
+    for it in jw.joints:
+        out.setdefault(it.joint, []).append(it)
+    return out
+
+
+def joint_frame_home(scene, item, inverse_displacements=None):
+    """Home frame (4x4, core world) of the joint of ``item`` from its marker.
+    ``inverse_displacements``: a dict caching inv(D) per parent link within one build."""
     marker = item.marker
     if not object_alive(scene, marker):
         raise SceneError(f"joint {item.joint!r}: its marker object is missing (deleted?); "
                          f"add the joint again or re-import the mechanism")
-    d = scene_displacement(scene, item.parent)
-    m = inverse(d) @ matrix_host_to_core(marker.matrix_world)
+    cache = {} if inverse_displacements is None else inverse_displacements
+    inv_d = cache.get(item.parent)
+    if inv_d is None:
+        inv_d = cache[item.parent] = inverse(scene_displacement(scene, item.parent))
+    m = inv_d @ matrix_host_to_core(marker.matrix_world)
     if not np.all(np.isfinite(m)):
         raise SceneError(f"joint {item.joint!r}: marker {marker.name!r} has a non-finite placement")
     return m
@@ -189,14 +223,16 @@ def mechanism_dict_from_scene(scene):
     for link in jw.links:
         link_object(scene, link)  # raises a clear error when the object is gone
         data["links"][link.name] = {"object": link.name}
-    for joint, first in first_items(jw).items():
-        items = joint_items(jw, joint)
+    groups = items_by_joint(jw)
+    inv_d = {}
+    for joint, items in groups.items():
+        first = items[0]
         jd = {"type": first.type, "parent": first.parent, "child": first.child}
         for side in ("parent", "child"):
             if getattr(first, side) not in jw.links:
                 raise SceneError(f"joint {joint!r}: its {side} link {getattr(first, side)!r} is not a link")
         if first.type != "fixed":
-            frame = joint_frame_home(scene, first)
+            frame = joint_frame_home(scene, first, inv_d)
             jd["point"] = frame[:3, 3].tolist()
             jd["axis"] = _unit_column(frame, 2, first, "Z")
             if first.type == "universal" or (first.use_axis2 and first.type in ("spherical", "planar")):
@@ -231,9 +267,12 @@ def snap_lines(joints):
     parallel axis move onto that line. Without this, coaxial or parallel joints (a screw
     and its collar, a slide along a screw) come out a few 1e-7 apart, and such a loop
     cannot close to the core's tolerance once it has turned a few times."""
-    pts = [np.asarray(j["point"], float) for j in joints.values() if "point" in j]
-    size = max([1.0] + [float(np.linalg.norm(a - b)) for a in pts for b in pts])
-    refs = []  # (axis, point)
+    pts = np.array([j["point"] for j in joints.values() if "point" in j], dtype=float).reshape(-1, 3)
+    size = 1.0
+    if len(pts) > 1:
+        size = max(1.0, float(np.ptp(pts, axis=0).max()))
+    ref_axes = np.zeros((0, 3))
+    ref_points = np.zeros((0, 3))
     for j in joints.values():
         if "axis" not in j:
             continue
@@ -246,15 +285,16 @@ def snap_lines(joints):
             if key == "axis":
                 p = np.asarray(j["point"], float)
                 p = np.where(np.abs(p) < SNAP * size, 0.0, p)
-                for r, rp in refs:
-                    if np.linalg.norm(np.cross(a, r)) < SNAP:
-                        a = r if a @ r > 0 else -r
-                        off = (p - rp) - r * ((p - rp) @ r)
-                        if np.linalg.norm(off) < SNAP * size:
-                            p = rp + r * ((p - rp) @ r)
-                        break
+                hit = np.flatnonzero(np.linalg.norm(np.cross(ref_axes, a), axis=1) < SNAP)
+                if len(hit):
+                    r, rp = ref_axes[hit[0]], ref_points[hit[0]]
+                    a = r if a @ r > 0 else -r
+                    off = (p - rp) - r * ((p - rp) @ r)
+                    if np.linalg.norm(off) < SNAP * size:
+                        p = rp + r * ((p - rp) @ r)
                 else:
-                    refs.append((a, p))
+                    ref_axes = np.vstack([ref_axes, a])
+                    ref_points = np.vstack([ref_points, p])
                 j["point"] = p.tolist()
             j[key] = a.tolist()
 
@@ -700,10 +740,10 @@ def export_dict(scene, length_unit=None, angle_unit=None):
         obj = link_object(scene, link)
         out["links"][link.name] = {"object": obj.name} if obj is not None else {}
     out["joints"] = {}
-    firsts = first_items(jw)
+    groups = items_by_joint(jw)
     for jname, jd in host["joints"].items():
-        items = joint_items(jw, jname)
-        first = firsts[jname]
+        items = groups[jname]
+        first = items[0]
 
         def f(it):
             return k if it.kind == "length" else a
