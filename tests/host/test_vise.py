@@ -104,3 +104,33 @@ def test_vise_export_keeps_thread(fresh, tmp_path):
     a = jointwise.load(path)
     pa, pb = a.pose({"feed": 900.0}), b.pose({"feed": 900.0})
     assert np.allclose(pa.links["jaw"], pb.links["jaw"], atol=1e-6)
+
+
+@pytest.mark.parametrize("unit,metres", [("mm", 0.001), ("cm", 0.01), ("m", 1.0), ("in", 0.0254)])
+@pytest.mark.parametrize("scale", [1.0, 0.001, 0.01])
+def test_file_units_into_scene_units(fresh, tmp_path, unit, metres, scale):
+    """BU = value x metres(unit) / unit_settings.scale_length, for points, limits, leads
+    (JSON form of the file this time)."""
+    import json
+    fresh.unit_settings.scale_length = scale
+    ws.cube("Block", (0, 0, 0))
+    ws.cube("Nut", (0, 0, 0))
+    data = {"format": 1, "mechanism": {"length_unit": unit, "angle_unit": "rad", "ground": "world"},
+            "links": {"world": {}, "block": {"object": "Block"}, "nut": {"object": "Nut"}},
+            "joints": {"slide": {"type": "prismatic", "parent": "world", "child": "block",
+                                 "point": [10, 20, 30], "axis": [0, 0, 1], "limits": [-5, 5]},
+                       "screw": {"type": "helical", "parent": "block", "child": "nut",
+                                 "point": [10, 20, 30], "axis": [0, 0, 1], "lead": 2}}}
+    path = tmp_path / "units.json"
+    path.write_text(json.dumps(data))
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    jw = fresh.jointwise
+    k = metres / scale
+    m = np.array(jw.joints["slide"].marker.matrix_world)
+    assert np.allclose(m[:3, 3], np.array([10, 20, 30]) * k, rtol=1e-6)
+    assert jw.joints["slide"].limit_max == pytest.approx(5 * k, rel=1e-6)
+    assert jw.joints["screw"].lead == pytest.approx(2 * k, rel=1e-6)
+    jw.live = True
+    jw.joints["screw"].value = 2 * math.pi  # one turn: one lead along Z
+    assert jw.converged, jw.message
+    assert ws.world(bpy.data.objects["Nut"])[2, 3] == pytest.approx(2 * k, rel=1e-5)
