@@ -94,3 +94,22 @@ def test_views_and_key_button(fresh):
     assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
     with pytest.raises(RuntimeError, match="no joint value"):
         bpy.ops.jointwise.value_key(index=5)
+
+
+def test_toml_writer_round_trips_awkward_names(installed, tmp_path):
+    import importlib
+    tw = importlib.import_module(installed + ".tomlwrite")
+    data = {"format": 1,
+            "mechanism": {"name": 'Pell & Marrow "Lintel"\tclamp\n', "ground": "base"},
+            "links": {"base": {}, "arm 2": {"object": "Arm.001 – ünïcode"}},
+            "joints": {"a.b": {"type": "revolute", "point": [0.1, -2.5e-07, 3.0], "axis": [0, 0, 1],
+                               "limits": [-1.0, 1.0], "drive": True}},
+            "measures": {"tip": {"type": "distance", "a": {"link": "base", "at": [1.0, 2.0, 3.0]},
+                                 "b": {"link": "arm 2", "at": [0.0, 0.0, 0.0]}}}}
+    out = tmp_path / "x.toml"
+    tw.write(out, data)
+    assert tomllib.loads(out.read_text(encoding="utf-8")) == data
+    assert [p.name for p in tmp_path.iterdir()] == ["x.toml"]  # no temporary file left
+    with pytest.raises(ValueError, match="non-finite"):
+        tw.write(tmp_path / "bad.toml", {"a": {"b": float("nan")}})
+    assert not (tmp_path / "bad.toml").exists()
