@@ -861,15 +861,18 @@ def _singular_flags(ev, Q, conv):
     full_rank = True
     if maybe.any():
         idx = np.flatnonzero(maybe)
-        _, Js = _certificate(ev, Q[idx])
-        sv = np.linalg.svd(Js, compute_uv=False)
+        svs = []
+        for k in range(0, len(idx), CHUNK):
+            _, Js = _certificate(ev, Q[idx[k:k + CHUNK]])
+            svs.append(np.linalg.svd(Js, compute_uv=False))
+        sv = np.concatenate(svs)
         top = np.maximum(sv[:, :1], 1e-300)
         rank = int((sv > 1e-9 * top).sum(axis=1).max())
         key = ("sweep", ev.block.index, tuple(ev.cols_rot))
         rank = max(rank, ev.s._generic_rank.get(key, 0), 1)
         ev.s._generic_rank[key] = rank
         flag[idx] = sv[:, rank - 1] / top[:, 0] < SINGULAR_RATIO
-        full_rank = rank == min(Js.shape[1], Js.shape[2])
+        full_rank = rank == sv.shape[1]
     # dead points crossed between samples: V-shaped minimum of sqrt(certificate)
     if full_rank and N >= 5:
         i = np.arange(2, N - 2)
