@@ -128,11 +128,26 @@ def plot_sweep(mech, sw, drive, path):
         ax.set_ylabel("measures")
     if rates:
         ax = axes[k]
+        twin = ax.twinx()
+        lo_hi = []
         for n in rates:
             ax.plot(x, sw.measures[n], label=f"{n} = d{mech.measures[n].of}/d{mech.measures[n].per} "
                                              f"[{describe(mech, n)}]")
-            adv = np.clip(sw.advantage[n], -1e3, 1e3)
-            ax.plot(x, adv, ls="--", label=f"{n}: ideal mechanical advantage (frictionless, 1/rate)")
+            adv = sw.advantage[n]
+            twin.plot(x, adv, ls="--", lw=0.9, color="0.45",
+                      label=f"{n}: ideal mechanical advantage (frictionless, 1/rate), right axis")
+            finite = adv[np.abs(adv) < 1e12]
+            if finite.size:
+                lo_hi.append(np.percentile(finite, [5, 95]))
+        if lo_hi:  # the advantage runs off to infinity at dead points: show its usual range
+            lo = min(v[0] for v in lo_hi)
+            hi = max(v[1] for v in lo_hi)
+            pad = 0.5 * max(hi - lo, 1e-9)
+            twin.set_ylim(lo - pad, hi + pad)
+        twin.set_ylabel("ideal mechanical advantage")
+        h2, l2 = twin.get_legend_handles_labels()
+        for hh, ll in zip(h2, l2):
+            ax.plot([], [], ls="--", color="0.45", label=ll)
         shade(ax)
         ax.set_ylabel("rates")
     for ax in axes:
