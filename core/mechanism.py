@@ -32,6 +32,9 @@ __all__ = ["Link", "Coupling", "Measure", "Loop", "Mechanism", "Pose", "ASSEMBLY
 #: position error up to this fraction of the mechanism's size (the largest distance
 #: between joint points, at least one length unit), angle error up to this in radians.
 ASSEMBLY_TOLERANCE = 1e-3
+#: Parallel turning axes of loop joints closer than this fraction of the mechanism's size
+#: (or of its coordinates' magnitude, if larger) are made coaxial (drawing noise, e.g. float32 storage of a screw's bearing and nut).
+COAXIAL_TOLERANCE = 1e-5
 
 
 @dataclass
@@ -233,12 +236,36 @@ class Mechanism:
                     k.axis = np.sign(np.dot(k.axis, mean)) * mean
                 notes.append(f"axes of joints {', '.join(k.name for k in group)} made parallel "
                              f"(they were up to {math.degrees(worst):.3g} deg apart)")
+            # lines of one direction that nearly coincide (a screw in its bearing and nut)
+            if len(group) > 1:
+                size = max(self._size(), max(float(np.abs(k.point).max()) for k in group))
+                lines = []
+                for k in group:
+                    foot = k.point - np.dot(k.point, mean) * mean
+                    hit = next((ln for ln in lines if np.linalg.norm(ln[0] - foot) < COAXIAL_TOLERANCE * size), None)
+                    if hit is None:
+                        lines.append((foot, [k]))
+                    else:
+                        hit[1].append(k)
+                for foot, ks in lines:
+                    gap = max(float(np.linalg.norm((k.point - np.dot(k.point, mean) * mean) - foot)) for k in ks)
+                    if len(ks) > 1 and gap > 1e-12 * size:
+                        for k in ks:
+                            k.point = foot + np.dot(k.point, mean) * mean
+                        notes.append(f"axes of joints {', '.join(k.name for k in ks)} made coaxial "
+                                     f"(they were up to {gap:.3g} {self.length_unit} apart)")
         for jn in loop_joints:
             j = self.joints[jn]
             if j.type != "prismatic":
                 continue
             for n in clusters:
                 d = float(np.dot(j.axis, n))
+                off = float(np.linalg.norm(np.cross(j.axis, n)))
+                if 1e-12 < off < ASSEMBLY_TOLERANCE:  # a slide along a screw or a turning axis
+                    j.axis = np.sign(d) * n
+                    notes.append(f"slide of joint {jn} made parallel to the turning axes "
+                                 f"(it was {math.degrees(math.asin(min(1.0, off))):.3g} deg off)")
+                    break
                 if 1e-12 < abs(d) < ASSEMBLY_TOLERANCE:
                     a = j.axis - d * n
                     j.axis = a / np.linalg.norm(a)
@@ -363,8 +390,9 @@ class Mechanism:
         ----------
         values : dict, optional
             Coordinate name -> value in file units.
-        start : Pose, optional
-            Previous pose to start from (warm start; stays on its branch).
+        start : Pose or dict, optional
+            Previous pose to start from (warm start; stays on its branch), or a dict of
+            coordinate values (file units) of a closed placement; see :meth:`state`.
 
         Raises
         ------
@@ -375,8 +403,26 @@ class Mechanism:
         """
         held = self._held_from(values)
         self.check_limits(held)
+        if isinstance(start, dict):
+            start = self.state(start)
         q, info = self.solver.pose(held, None if start is None else start.q)
         return self._make_pose(q, info)
+
+    def state(self, values):
+        """A Pose of given coordinate values (file units; missing ones at home), unsolved.
+
+        For warm starts from values kept elsewhere (e.g. a scene): ``pose(v, start=state(w))``.
+        """
+        q = self.solver.home_state() if self.loops or self.couplings else self.home.copy()
+        for name, v in values.items():
+            i = self._require(name)
+            fv = float(v)
+            if not math.isfinite(fv):
+                raise SpecError(f"value of {name!r} must be finite, got {v!r}", source=self.source)
+            q[i] = fv * self._unit(i)
+        err = self.solver.closure(q)[0]
+        return Pose(joints=self._values_out(q), links=self.link_poses(q), converged=err <= 1e-9,
+                    residual=float(err), q=q)
 
     def _make_pose(self, q, info):
         return Pose(joints=self._values_out(q), links=self.link_poses(q),
