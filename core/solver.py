@@ -81,6 +81,8 @@ MAX_HELD_STEP = 16 * math.pi
 #: A corrector that moves more than half the predicted motion plus this is a jump.
 JUMP_SLACK = 0.01
 MAX_ITER = 30
+#: Jacobians of this many recent closed states are kept for warm starts from them.
+JACOBIAN_MEMORY = 256
 
 
 class _Block:
@@ -402,9 +404,16 @@ class Solver:
             norm0 = np.linalg.norm(r * rs)
             for _half in range(8):
                 self._apply(q, cols, rot, du_s * cs * step_scale)
-                r2, errs2, J2 = self._eval(block, q, evalcols, rot)
-                if errs2.max() <= TOLERANCE or np.linalg.norm(r2 * rs) < norm0:
+                # residual first: a converged state keeps the Jacobian of the step before,
+                # which differs from its own by the (tiny) last step only
+                r2, errs2, _ = self._eval(block, q, evalcols, rot, jac=False)
+                if errs2.max() <= TOLERANCE:
+                    return True, float(errs2.max()), errs2, J
+                norm2 = np.linalg.norm(r2 * rs)
+                if norm2 < norm0:
                     accepted = True
+                    # converging fast: keep the Jacobian (a chord step); else evaluate it anew
+                    J2 = J if norm2 < 1e-3 * norm0 else self._eval(block, q, evalcols, rot)[2]
                     break
                 q[:] = q_old
                 step_scale *= 0.5
@@ -577,9 +586,11 @@ class Solver:
         err, errs, J = 0.0, np.zeros(0), None
         while t < 1.0:
             if J_here is None:
-                cached = self._lastJ.get(b.index)
-                if cached is not None and cached[0] is allcols and np.array_equal(cached[1], q):
-                    J_here = cached[2]
+                key = (b.index, q.tobytes())
+                cached = self._lastJ.pop(key, None)
+                if cached is not None and cached[0] is allcols:
+                    J_here = cached[1]
+                    self._lastJ[key] = cached  # most recently used last
                 else:
                     J_here = self._eval(b, q, allcols, rot)[2]
             # tangent: d(unknown)/dt = -pinv(J_u) J_h d(held)/dt  (dimensionless columns)
@@ -626,7 +637,9 @@ class Solver:
             elif moved < 0.1 * pred:
                 limit = min(1.5 * limit, MAX_MOTION)
         if J_here is not None:
-            self._lastJ[b.index] = (allcols, q.copy(), J_here)
+            if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
+                self._lastJ.pop(next(iter(self._lastJ)))
+            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here)
         return err, self._singular(b, J, cols, rs, cs)
 
     def _solve_overheld(self, b, q, held_b, source):
