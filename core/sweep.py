@@ -576,14 +576,22 @@ def _newton(ev, Q, idx, iters=BATCH_ITER):
         rows = idx[active]
         sub = Q[rows]
         last = it == iters
-        r, e, J = ev.eval(sub, None if last else cols)
+        if it == 0 or last:
+            r, e, J = ev.eval(sub, None if last else cols)
+        else:  # residuals first: rows that closed need no Jacobian
+            r, e, _ = ev.eval(sub)
+            J = None
         errs[active] = e
         keep = e > TOLERANCE
         if last or not keep.any() or not cols:
             break
         sub_a = sub[keep]
-        Js = J[keep] * ev.rs[None, :, None] * cs[None, None, :]
-        du, _ = _least_norm(Js, -(r[keep] * ev.rs[None, :])[:, :, None])
+        if J is None:
+            r_k, _, J_k = ev.eval(sub_a, cols)
+        else:
+            r_k, J_k = r[keep], J[keep]
+        Js = J_k * ev.rs[None, :, None] * cs[None, None, :]
+        du, _ = _least_norm(Js, -(r_k * ev.rs[None, :])[:, :, None])
         du = du[:, :, 0]
         big = np.abs(du).max(axis=1)
         du *= np.minimum(1.0, 0.5 / np.maximum(big, 1e-300))[:, None]
