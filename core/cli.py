@@ -121,7 +121,12 @@ def build_parser():
 
 
 def main(argv=None):
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    names = [n for n, _ in getattr(args, "set", [])]
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        parser.error(f"--set {twice[0]} given more than once")
     try:
         from .spec import load
         mech = load(args.file)
@@ -147,9 +152,12 @@ def _emit(text, path=None):
         return
     tmp = f"{path}.tmp-{os.getpid()}"
     try:
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
+        try:
+            with open(tmp, "w", encoding="utf-8", newline="") as fh:
+                fh.write(text)
+            os.replace(tmp, path)
+        except OSError as exc:
+            raise SpecError(f"cannot write {path!r}: {exc.strerror or exc}", key="--out") from None
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
@@ -175,7 +183,6 @@ def cmd_check(mech, args):
 
 def check_report(mech):
     """The ``check`` report as a dict (the JSON keys of ``jointwise check``)."""
-    from .mechanism import ASSEMBLY_TOLERANCE
     from .solver import TOLERANCE
     problems = [f"settled: {n}" for n in mech.settle_notes]
     closure = float(mech.home_closure())
@@ -207,7 +214,6 @@ def check_report(mech):
         "problems": problems,
         "mobility": {k: mob[k] for k in ("kutzbach", "form", "numeric", "redundant")},
         "home_closure": closure,
-        "assembly_tolerance": ASSEMBLY_TOLERANCE,
     }
 
 

@@ -406,7 +406,10 @@ class Mechanism:
         if isinstance(start, dict):
             start = self.state(start)
         q, info = self.solver.pose(held, None if start is None else start.q)
-        return self._make_pose(q, info)
+        pose = self._make_pose(q, info)
+        for name, v in (values or {}).items():  # held values read back exactly as given
+            pose.joints[name] = float(v)
+        return pose
 
     def state(self, values):
         """A Pose of given coordinate values (file units; missing ones at home), unsolved.

@@ -195,6 +195,8 @@ def sweep_command(mech, args, emit):
         _check_out(args.out, "--out")
     if args.plot:
         _check_out(args.plot, "--plot")
+        if not args.plot.lower().endswith(".png"):
+            raise SpecError(f"--plot {args.plot!r}: the plot is a PNG image; give a name ending in .png")
         if not _plot_available():
             print(f"jointwise: {PLOT_INSTALL}", file=sys.stderr)
             return EXIT_USAGE

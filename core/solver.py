@@ -81,6 +81,9 @@ MAX_HELD_STEP = 16 * math.pi
 #: A corrector that moves more than half the predicted motion plus this is a jump.
 JUMP_SLACK = 0.01
 MAX_ITER = 30
+#: Held values farther than this from the start (dimensionless: radians, about 1600 turns,
+#: or mechanism sizes) are refused rather than followed for minutes.
+MAX_SPAN = 1e4
 #: Jacobians of this many recent closed states are kept for warm starts from them.
 JACOBIAN_MEMORY = 256
 
@@ -566,6 +569,12 @@ class Solver:
         h0 = {g: q[g] for g in hlist}
         dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in hlist])
         span = float(np.abs(dh).max()) if dh.size else 0.0
+        if span > MAX_SPAN:
+            g = hlist[int(np.argmax(np.abs(dh)))]
+            c = self.m.coordinates[source.get(g, g)]
+            raise AssemblyError(f"{c}: the held value is {span:.3g} (radians or mechanism sizes) from the "
+                                f"start placement, too far to follow continuously; pose it from a nearer "
+                                f"start", joint=c, error=None)
         if span == 0.0:
             ok, err, errs, J = self._newton(b, q, cols, rot)
             if not ok:

@@ -185,6 +185,10 @@ def from_dict(data, source="<data>"):
         ld = r.table(ld, key)
         r.keys(ld, key, LINK_KEYS)
         obj = r.text(ld["object"], f"{key}.object") if "object" in ld else lname
+        other = next((l.name for l in links.values() if l.object == obj), None)
+        if other is not None:
+            r.fail(f"{key}.object", f"object {obj!r} is already the object of link {other!r}; "
+                                    "each link needs its own object")
         links[lname] = Link(lname, obj)
     if not links:
         r.fail("links", "no links defined")

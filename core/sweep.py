@@ -973,7 +973,7 @@ def _as_rows(mech, table, N=None):
             raise SpecError(f"values of {name!r}: expected {N} rows, got {len(a)}", source=mech.source)
         if not np.all(np.isfinite(a)):
             k = int(np.flatnonzero(~np.isfinite(a))[0])
-            raise SpecError(f"values of {name!r} must be finite (row {k} is {a[k]!r})", source=mech.source)
+            raise SpecError(f"values of {name!r} must be finite (row {k} is {float(a[k])})", source=mech.source)
         explicit[i] = a * mech._unit(i)
     return explicit, (N or 0)
 
@@ -997,7 +997,10 @@ def sweep(mech, drive, values, held=None, *, start=None):
     explicit, N = _as_rows(mech, table)
     q0 = _start_q(mech, start)
     Q, conv, sing, resid, reasons, held_m = _run(mech, explicit, N, q0, release=True)
-    return _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m)
+    sw = _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m)
+    for k, v in table.items():  # held coordinates read back exactly as asked where the step closed
+        sw.joints[k] = np.where(conv, v, sw.joints[k])
+    return sw
 
 
 def follow(mech, table, start=None):
@@ -1282,6 +1285,11 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
         half = math.pi / unit
         return {"drive": drive, "intervals": [[home - half, home + half]],
                 "reasons": [["turns fully", "turns fully"]]}
+    if hi - lo <= 10 * tol:
+        u = mech.angle_unit if is_angle else mech.length_unit
+        what = f" with {', '.join(f'{k} = {v:g}' for k, v in (held or {}).items())} held" if held else ""
+        raise AssemblyError(f"{drive} cannot move{what}: it is locked at {home:.6g} {u} "
+                            f"({why_lo} below, {why_hi} above)", joint=drive)
     return {"drive": drive, "intervals": [[float(lo), float(hi)]], "reasons": [[why_lo, why_hi]]}
 
 
