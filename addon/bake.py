@@ -87,6 +87,15 @@ def value_table(scene, mech, frames, ramp=None):
     frames = np.asarray(frames, dtype=float)
     n = len(frames)
     held = sc.held_values(scene, mech, extra=(ramp[0],) if ramp else ())
+    if ramp:
+        # the ramped coordinate is the input of its loop group, as --drive is on the command
+        # line: the group's other drives and animated values are released, not held against it
+        groups = sc.loop_groups(mech)
+        jw = scene.jointwise
+        own = groups.get(jw.joints[ramp[0]].joint) if ramp[0] in jw.joints else None
+        if own is not None:
+            held = {k: v for k, v in held.items()
+                    if k == ramp[0] or k not in jw.joints or groups.get(jw.joints[k].joint) != own}
     curves = coordinate_fcurves(scene)
     table = {}
     for name, v in held.items():
@@ -293,6 +302,33 @@ def continuous_eulers(e, previous=None, order="XYZ"):
     return res
 
 
+def continuous_axis_angles(q, previous=None):
+    """Angles (N,) and axes (N, 3) of unit quaternions, continuous from frame to frame.
+
+    Through the identity the axis of ``2 atan2(|v|, w)`` flips; keeping each axis on the
+    side of the one before (and negating the angle with it), holding the axis where the
+    turn is zero, and unwrapping the angle by whole turns gives curves without jumps.
+    ``previous`` is the object's current (angle, x, y, z), the side to start on."""
+    v = np.linalg.norm(q[:, 1:], axis=1)
+    ang = 2 * np.arctan2(v, q[:, 0])
+    axis = q[:, 1:] / np.where(v > 1e-12, v, 1.0)[:, None]
+    prev_axis = None
+    prev_ang = None
+    if previous is not None and np.linalg.norm(previous[1:]) > 1e-12:
+        prev_axis = previous[1:] / np.linalg.norm(previous[1:])
+        prev_ang = float(previous[0])
+    for i in range(len(ang)):
+        if v[i] <= 1e-12:
+            axis[i] = prev_axis if prev_axis is not None else (0.0, 0.0, 1.0)
+        elif prev_axis is not None and float(axis[i] @ prev_axis) < 0:
+            axis[i] = -axis[i]
+            ang[i] = -ang[i]
+        if prev_ang is not None:
+            ang[i] += 2 * np.pi * np.round((prev_ang - ang[i]) / (2 * np.pi))
+        prev_axis, prev_ang = axis[i], ang[i]
+    return ang, axis
+
+
 def channels_for(obj, basis):
     """{(data_path, index): values (N,)} of location and rotation keys for ``obj``."""
     loc = basis[:, :3, 3]
@@ -311,9 +347,7 @@ def channels_for(obj, basis):
             for i in range(4):
                 ch[("rotation_quaternion", i)] = q[:, i]
         else:
-            v = np.linalg.norm(q[:, 1:], axis=1)
-            ang = 2 * np.arctan2(v, q[:, 0])
-            axis = np.where(v[:, None] > 1e-12, q[:, 1:] / np.where(v > 0, v, 1)[:, None], [0, 1.0, 0])
+            ang, axis = continuous_axis_angles(q, np.array(obj.rotation_axis_angle))
             ch[("rotation_axis_angle", 0)] = ang
             for i in range(3):
                 ch[("rotation_axis_angle", i + 1)] = axis[:, i]

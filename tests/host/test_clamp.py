@@ -281,3 +281,25 @@ def test_bake_remembers_and_clear_restores_an_earlier_action(fresh, tmp_path):
     assert not crank.animation_data.action.use_fake_user
     assert [fc.data_path for fc in ws.fcurves_of(crank)] == ["location"] * 3
     assert not [a for a in bpy.data.actions if a.get("jointwise_bake")]
+
+
+def test_bake_ramp_of_a_passive_coordinate_releases_the_animated_drive(fresh, tmp_path):
+    # the crank "a" is the file's drive and is animated; a ramp of the rocker "d" makes the
+    # rocker the input of that loop (as --drive does on the command line)
+    import jointwise
+    objs, homes, path = setup_clamp(tmp_path)
+    mech = jointwise.load(path)
+    jw = fresh.jointwise
+    jw.joints["a"].value = math.radians(90)
+    fresh.keyframe_insert('jointwise.joints["a"].value', frame=1)
+    jw.joints["a"].value = math.radians(180)
+    fresh.keyframe_insert('jointwise.joints["a"].value', frame=9)
+    d0 = mech.pose({"a": 90.0}).joints["d"]
+    r = bpy.ops.jointwise.bake(frame_start=1, frame_end=9, drive="d", value_from=math.radians(d0),
+                               value_to=math.radians(d0 + 8.0))
+    assert r == {"FINISHED"}, jw.message
+    fresh.frame_set(5)
+    want = mech.pose({"d": d0 + 4.0}, start=mech.pose({"a": 90.0}))
+    for link, oname in LINK_OBJECT.items():
+        got = ws.world(objs[oname])
+        assert np.allclose(got, ws.expected_world(want, link, homes[oname], 0.001), atol=TOL), oname

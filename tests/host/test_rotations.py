@@ -80,3 +80,23 @@ def test_euler_through_gimbal_stays_compatible(bake_module, order):
     assert np.abs(np.diff(e, axis=0)).max() < 0.2
     for r, angles in zip(rs, e):
         assert np.allclose(np.array(Euler(angles, order).to_matrix()), r, atol=2e-6)
+
+
+def test_axis_angle_keys_stay_continuous_through_the_identity(bake_module, fresh):
+    # a rocker swinging -40 deg .. +40 deg about z passes through no turn at all; the
+    # axis must not flip there (Blender's own AxisAngle convention: axis (x, y, z), angle)
+    import bpy
+    obj = bpy.data.objects.new("swing", None)
+    fresh.collection.objects.link(obj)
+    obj.rotation_mode = "AXIS_ANGLE"
+    turns = np.radians(np.concatenate([np.linspace(-40, 40, 41), np.linspace(40, -40, 41)]))
+    basis = np.tile(np.eye(4), (len(turns), 1, 1))
+    basis[:, :3, :3] = [np.array(Euler((0, 0, t)).to_matrix()) for t in turns]
+    ch = bake_module.channels_for(obj, basis)
+    ang = ch[("rotation_axis_angle", 0)]
+    axis = np.stack([ch[("rotation_axis_angle", i)] for i in (1, 2, 3)], axis=1)
+    assert (np.einsum("ij,ij->i", axis[1:], axis[:-1]) > 0.999).all()
+    assert np.abs(np.diff(ang)).max() < math.radians(2.5)
+    for k in (0, 20, 40, 60):  # the keys still rebuild the rotation (mathutils as reference)
+        back = np.array(Quaternion(axis[k], ang[k]).to_matrix())
+        assert np.allclose(back, basis[k, :3, :3], atol=2e-6)
