@@ -38,7 +38,7 @@ class _Base:
     bl_options = {'REGISTER', 'UNDO'}
 
     def fail(self, message):
-        self.report({'ERROR'}, message)
+        self.report({'ERROR'}, sc.message_core_to_host(message))
         return {'CANCELLED'}
 
     def execute(self, context):  # noqa: D401

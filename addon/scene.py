@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 
 import numpy as np
 from mathutils import Matrix
@@ -497,7 +498,7 @@ def set_status(scene, *, converged=True, error=0.0, singular=False, message="", 
     jw.converged = bool(converged)
     jw.closure_error = float(error) if error is not None and math.isfinite(error) else 0.0
     jw.singular = bool(singular)
-    jw.message = message
+    jw.message = message_core_to_host(message)
     if mobility is not None:
         jw.mobility = int(mobility)
 
@@ -573,8 +574,21 @@ def pose_scene(scene, extra=(), values=None, restore_values=True):
     return True, ""
 
 
+_NUM = r"(-?\d+(?:\.\d+)?(?:e[-+]?\d+)?)"
+_RAD_RANGE = re.compile(r"\[" + _NUM + r", " + _NUM + r"\] rad\b")
+_RAD = re.compile(_NUM + r" rad\b")
+
+
+def message_core_to_host(msg):
+    """The core's message for the UI: angles in degrees (the scene mechanism is built in
+    radians, so the core quotes radians)."""
+    msg = _RAD_RANGE.sub(lambda m: f"[{math.degrees(float(m.group(1))):.5g}, "
+                                   f"{math.degrees(float(m.group(2))):.5g}] deg", msg)
+    return _RAD.sub(lambda m: f"{math.degrees(float(m.group(1))):.5g} deg", msg)
+
+
 def describe_error(exc):
-    msg = str(exc)
+    msg = message_core_to_host(str(exc))
     loop = getattr(exc, "loop", None)
     joint = getattr(exc, "joint", None)
     extra = []

@@ -195,7 +195,7 @@ class JOINTWISE_PT_traces(bpy.types.Panel):
         try:
             names = sorted(point_measures(scene))
         except sc.SceneError as exc:
-            layout.label(text=str(exc))
+            layout.label(text=sc.message_core_to_host(str(exc)))
             return
         if not names:
             layout.label(text="No point measures in the mechanism file")

@@ -148,3 +148,14 @@ def test_empty_scene_operators_report(fresh, tmp_path):
         bpy.ops.jointwise.bake(frame_start=1, frame_end=2)
     with pytest.raises(RuntimeError, match="empty"):
         bpy.ops.jointwise.bake(frame_start=5, frame_end=2)
+
+
+def test_core_messages_show_degrees_in_the_ui(installed):
+    import importlib
+    scene_mod = importlib.import_module(installed + ".scene")
+    msg = scene_mod.message_core_to_host(
+        "c = 1.22173 rad lies outside its limits [-1.0472, 1.0472] rad; up to about 0.817031 rad "
+        "(radians or mechanism sizes), gap 0.001 m")
+    assert "1.22173 rad" not in msg and " rad" not in msg.replace("radians", "")
+    assert "70 deg" in msg and "[-60, 60] deg" in msg and "46.812 deg" in msg
+    assert "(radians or mechanism sizes), gap 0.001 m" in msg
