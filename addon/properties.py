@@ -148,6 +148,9 @@ class JointwiseMechanism(bpy.types.PropertyGroup):
                                   items=(("deg", "deg", ""), ("rad", "rad", "")))
     measures_json: StringProperty(name="Measures", default="",
                                   description="Measures of the imported file, kept for export (file units)")
+    geometry_json: StringProperty(name="File geometry", default="",
+                                  description="Joint points and axes exactly as the imported file gave "
+                                              "them, written back on export while the markers stay put")
     # status of the last solve
     converged: BoolProperty(name="Converged", default=True)
     closure_error: FloatProperty(name="Closure error", default=0.0, precision=9)

@@ -653,6 +653,8 @@ def import_mechanism(scene, mech, objects, marker_collection):
     jw.file_length_unit = mech.length_unit
     jw.file_angle_unit = mech.angle_unit
     jw.measures_json = json.dumps(data.get("measures", {}))
+    jw.geometry_json = json.dumps({n: {k: list(j[k]) for k in ("point", "axis", "axis2") if k in j}
+                                   for n, j in data.get("joints", {}).items()})
     for name in mech.links:
         link = jw.links.add()
         link.name = name
@@ -755,6 +757,10 @@ def export_dict(scene, length_unit=None, angle_unit=None):
         out["links"][link.name] = {"object": obj.name} if obj is not None else {}
     out["joints"] = {}
     groups = items_by_joint(jw)
+    try:
+        geometry = json.loads(jw.geometry_json) if jw.geometry_json else {}
+    except ValueError:
+        geometry = {}
     for jname, jd in host["joints"].items():
         items = groups[jname]
         first = items[0]
@@ -767,6 +773,7 @@ def export_dict(scene, length_unit=None, angle_unit=None):
             e["axis"] = [_tidy(v) for v in jd["axis"]]
         if "axis2" in jd:
             e["axis2"] = [_tidy(v) for v in jd["axis2"]]
+        _keep_file_geometry(e, geometry.get(jname, {}), lu == jw.file_length_unit)
         homes = [_tidy(it.home * f(it)) for it in items]
         e["home"] = homes[0] if len(homes) == 1 else homes
         if any(it.use_limits for it in items):
@@ -798,6 +805,22 @@ def export_dict(scene, length_unit=None, angle_unit=None):
         if measures and lu == jw.file_length_unit:
             out["measures"] = measures
     return out
+
+
+def _keep_file_geometry(entry, original, same_unit):
+    """Write the imported file's own numbers where the markers still say the same thing
+    (up to float32 storage), so an unchanged mechanism exports without loss."""
+    for key in ("point", "axis", "axis2"):
+        if key not in entry or key not in original:
+            continue
+        new, old = np.array(entry[key], float), np.array(original[key], float)
+        if key == "point":
+            if same_unit and np.abs(new - old).max() <= 1e-6 * max(1.0, np.abs(old).max()):
+                entry[key] = original[key]
+        else:
+            n_old = np.linalg.norm(old)
+            if n_old > 0 and np.abs(new / np.linalg.norm(new) - old / n_old).max() <= 1e-6:
+                entry[key] = original[key]
 
 
 def _thread_matches(thread, lead_file, unit):

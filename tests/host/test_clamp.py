@@ -303,3 +303,23 @@ def test_bake_ramp_of_a_passive_coordinate_releases_the_animated_drive(fresh, tm
     for link, oname in LINK_OBJECT.items():
         got = ws.world(objs[oname])
         assert np.allclose(got, ws.expected_world(want, link, homes[oname], 0.001), atol=TOL), oname
+
+
+def test_export_of_an_unchanged_import_keeps_the_file_numbers(fresh, tmp_path):
+    # float32 markers hold ~7 digits; an unchanged mechanism must export the file's own numbers
+    import tomllib
+    objs, homes, path = setup_clamp(tmp_path)
+    out = tmp_path / "again.toml"
+    assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
+    src = tomllib.loads(path.read_text())["joints"]
+    got = tomllib.loads(out.read_text())["joints"]
+    for name, j in src.items():
+        for key in ("point", "axis"):
+            assert got[name][key] == j[key], (name, key, got[name][key], j[key])
+    # a marker moved for real is exported where it now is
+    jw = fresh.jointwise
+    jw.joints["d"].marker.location.x += 0.002  # 2 mm in a metre scene
+    bpy.ops.jointwise.home_set()
+    assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
+    moved = tomllib.loads(out.read_text())["joints"]["d"]["point"]
+    assert abs(moved[0] - (src["d"]["point"][0] + 2.0)) < 1e-3
