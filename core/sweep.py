@@ -665,6 +665,7 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
     prev_q = q0.copy()
     prev_T = None
     prev_i = None
+    pprev_i = None
     for i in anchors:
         i = int(i)
         done = False
@@ -677,6 +678,14 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
             if prev_T is not None and ev.cols_coord:
                 ci = [c[1] for c in ev.cols_coord]
                 trial[0, ci] += prev_T[0] @ (Hm[i] - Hm[prev_i])
+                if pprev_i is not None and path[prev_i] > path[pprev_i]:
+                    # second order: the curvature that the anchor before implies
+                    back = Q[pprev_i, ci] - Q[prev_i, ci] - prev_T[0] @ (Hm[pprev_i] - Hm[prev_i])
+                    ds0 = path[pprev_i] - path[prev_i]
+                    ds1 = path[i] - path[prev_i]
+                    bend = back * (ds1 / ds0) ** 2
+                    if np.all(np.isfinite(bend)):
+                        trial[0, ci] += bend
                 _derive(s, trial, ci)
             before = trial.copy()
             e = _newton(ev, trial, np.array([0]), iters=10)
@@ -697,6 +706,7 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
                 reasons[i] = why
         if ok[i]:
             prev_T = _tangent(ev, Q[i:i + 1])
+            pprev_i = prev_i if done else None
             prev_i = i
             prev_q = Q[i].copy()
     # tangents at anchors
