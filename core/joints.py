@@ -285,8 +285,11 @@ class Joint:
         q = self.point
         return np.stack([spatial.screw_axis(q, e) for e in np.eye(3)])
 
-    def coordinates_from_transform(self, e):
-        """Spherical coordinates (a-b-c turns, radians) reproducing displacement ``e``."""
+    def coordinates_from_transform(self, e, near=None):
+        """Spherical coordinates (a-b-c turns, radians) reproducing displacement ``e``.
+
+        With ``near`` (the previous coordinates), each turn is taken within half a turn
+        of it, so that coordinates run on continuously instead of wrapping at 180 deg."""
         f = self.frame
         r = f.T @ e[:3, :3] @ f  # = Rx(d1) Ry(d2) Rz(d3)
         if math.hypot(r[1, 2], r[2, 2]) > 1e-15:
@@ -299,4 +302,7 @@ class Joint:
         rest = np.array([[1, 0, 0], [0, c1, s1], [0, -s1, c1]]) @ r  # Rx(d1)^T r = Ry(d2) Rz(d3)
         d2 = math.atan2(rest[0, 2], rest[2, 2])
         d3 = math.atan2(rest[1, 0], rest[1, 1])
-        return self.home + np.array([d1, d2, d3])
+        out = self.home + np.array([d1, d2, d3])
+        if near is not None:
+            out = out + 2 * math.pi * np.round((np.asarray(near, float) - out) / (2 * math.pi))
+        return out

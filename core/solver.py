@@ -366,7 +366,7 @@ class Solver:
             sl = m._slices[jn]
             tw = d @ j.rotation_twists()
             e = spatial.exp6(tw) @ j.transform(q[sl])
-            q[sl] = j.coordinates_from_transform(e)
+            q[sl] = j.coordinates_from_transform(e, near=q[sl])
 
     def _derive(self, q, masters):
         for g in masters:
