@@ -570,6 +570,43 @@ def _tangent(ev, Q):
     return x * cs[None, :nu, None] / cs[None, None, nu:]
 
 
+def _idle_tangents(ev, Q, Hm, known, ok, Tall):
+    """Give the tangents at known samples the idle motion the path really has.
+
+    Where the loops leave a freedom no held value determines (the spin of a rod between
+    two ball joints), the least-norm tangent has none of it, while the solved path drifts
+    along it; Hermite seeds built from such tangents miss closure by the square of that
+    drift.  The idle part of each tangent is replaced by that of the central secant
+    through the neighbouring known samples (dimensionless coordinates, null space of the
+    reduced Jacobian)."""
+    good = known[ok[known]]
+    if len(good) < 3 or len(ev.held) != 1:
+        return
+    cols = ev.cols_coord
+    nu = len(cols)
+    cs = ev._cscale(cols)
+    _, _, J = ev.eval(Q[good[1:-1]], cols, rotmode=False)
+    Js = J * ev.rs[None, :, None] * cs[None, None, :]
+    _, sv, vt = np.linalg.svd(Js, full_matrices=True)
+    rank = (sv > 1e-8 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1)
+    if not (rank < nu).any():
+        return
+    ci = [c[1] for c in cols]
+    prev, mid, nxt = good[:-2], good[1:-1], good[2:]
+    dh = (Hm[nxt, 0] - Hm[prev, 0])
+    use = np.abs(dh) > 0
+    sec = (Q[nxt][:, ci] - Q[prev][:, ci]) / np.where(use, dh, 1.0)[:, None] / cs[None, :]
+    T = Tall[mid][:, :, 0] / cs[None, :]
+    for r in np.unique(rank[rank < nu]):
+        k = np.flatnonzero((rank == r) & use)
+        if not len(k):
+            continue
+        N = vt[k, r:, :]  # (K, nu - r, nu): orthonormal idle directions
+        coef = np.einsum("kij,kj->ki", N, sec[k] - T[k])
+        T[k] += np.einsum("kij,ki->kj", N, coef)
+    Tall[mid, :, 0] = T * cs[None, :]
+
+
 def _newton(ev, Q, idx, iters=BATCH_ITER):
     """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx."""
     if len(idx) > CHUNK:
@@ -747,6 +784,8 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
         if not len(sel):
             continue
         aa, bb = a[pair_ok], b[pair_ok]
+        if stepsize == 0.0 and ev.cols_coord:
+            _idle_tangents(ev, Q, Hm, known, ok, Tall)
         if ev.cols_coord:
             _hermite(ev, Q, Hm, path, aa, bb, sel, Tall[aa], Tall[bb])
         spacing = np.maximum(path[bb] - path[aa], 1e-12)
