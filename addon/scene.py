@@ -198,6 +198,34 @@ def joint_frame_home(scene, item, inverse_displacements=None):
     return m
 
 
+def _settled_frame(frame, item):
+    """The stored home frame where the marker, read back through a moved link, still says
+    the same (float32 noise grows with every placement it passes through, and an
+    overconstrained loop such as a double Hooke's shaft locks on a few micrometres)."""
+    home = matrix_stored_to_core(item.marker_home)
+    scale = max(1.0, float(np.abs(home[:3, 3]).max()))
+    if (np.abs(frame[:3, :3] - home[:3, :3]).max() <= 1e-5
+            and np.abs(frame[:3, 3] - home[:3, 3]).max() <= 1e-5 * scale):
+        return home
+    return frame
+
+
+def _file_geometry(jd, original, to_host):
+    """The imported file's exact point and axes where the scene's (float32) ones match them."""
+    for key in ("point", "axis", "axis2"):
+        if key not in jd or key not in original:
+            continue
+        new, old = np.array(jd[key], float), np.array(original[key], float)
+        if key == "point":
+            old = old * to_host
+            if np.abs(new - old).max() <= 1e-5 * max(1.0, float(np.abs(old).max())):
+                jd[key] = old.tolist()
+        else:
+            n = np.linalg.norm(old)
+            if n > 0 and np.abs(new / np.linalg.norm(new) - old / n).max() <= 1e-5:
+                jd[key] = (old / n).tolist()
+
+
 def _unit_column(m, col, item, what):
     v = m[:3, col]
     n = float(np.linalg.norm(v))
@@ -226,6 +254,11 @@ def mechanism_dict_from_scene(scene):
         data["links"][link.name] = {"object": link.name}
     groups = items_by_joint(jw)
     inv_d = {}
+    try:
+        geometry = json.loads(jw.geometry_json) if jw.geometry_json else {}
+    except ValueError:
+        geometry = {}
+    to_host = length_file_to_host(scene, jw.file_length_unit)
     for joint, items in groups.items():
         first = items[0]
         jd = {"type": first.type, "parent": first.parent, "child": first.child}
@@ -234,10 +267,12 @@ def mechanism_dict_from_scene(scene):
                 raise SceneError(f"joint {joint!r}: its {side} link {getattr(first, side)!r} is not a link")
         if first.type != "fixed":
             frame = joint_frame_home(scene, first, inv_d)
+            frame = _settled_frame(frame, first)
             jd["point"] = frame[:3, 3].tolist()
             jd["axis"] = _unit_column(frame, 2, first, "Z")
             if first.type == "universal" or (first.use_axis2 and first.type in ("spherical", "planar")):
                 jd["axis2"] = _unit_column(frame, 0, first, "X")
+            _file_geometry(jd, geometry.get(joint, {}), to_host)
         homes = [float(it.home) for it in items]
         jd["home"] = homes[0] if len(homes) == 1 else homes
         if any(it.use_limits for it in items):
@@ -398,8 +433,9 @@ def held_values(scene, mech, extra=(), values=None):
         name = item.name
         if name not in known:
             continue  # a fixed joint: no coordinate
-        drive = item.drive and groups.get(item.joint) not in released
-        if drive or name in extra or name in animated or item.joint not in groups:
+        free = groups.get(item.joint) in released  # the user moves a passive joint of this loop
+        drive = item.drive and not free
+        if drive or name in extra or (name in animated and not free) or item.joint not in groups:
             v = float(item.value) if values is None or name not in values else float(values[name])
             held[name] = v
     return held
@@ -498,7 +534,7 @@ def set_status(scene, *, converged=True, error=0.0, singular=False, message="", 
     jw.converged = bool(converged)
     jw.closure_error = float(error) if error is not None and math.isfinite(error) else 0.0
     jw.singular = bool(singular)
-    jw.message = message_core_to_host(message)
+    jw.message = message_core_to_host(message, scene)
     if mobility is not None:
         jw.mobility = int(mobility)
 
@@ -579,16 +615,45 @@ _RAD_RANGE = re.compile(r"\[" + _NUM + r", " + _NUM + r"\] rad\b")
 _RAD = re.compile(_NUM + r" rad\b")
 
 
-def message_core_to_host(msg):
-    """The core's message for the UI: angles in degrees (the scene mechanism is built in
-    radians, so the core quotes radians)."""
+_M_RANGE = re.compile(r"\[" + _NUM + r", " + _NUM + r"\] m\b")
+_M = re.compile(_NUM + r" m\b")
+_DISPLAY = {"MICROMETERS": ("um", 1e6), "MILLIMETERS": ("mm", 1e3), "CENTIMETERS": ("cm", 1e2),
+            "METERS": ("m", 1.0), "KILOMETERS": ("km", 1e-3), "INCHES": ("in", 1 / 0.0254),
+            "FEET": ("ft", 1 / 0.3048), "THOU": ("thou", 1 / 0.0000254), "MILES": ("mi", 1 / 1609.344)}
+
+
+def _display_length(scene):
+    """(label, factor) turning scene lengths (BU) into the scene's display unit."""
+    try:
+        us = scene.unit_settings
+    except AttributeError:
+        return "BU", 1.0
+    if us.system == "NONE":
+        return "BU", 1.0
+    label, per_metre = _DISPLAY.get(us.length_unit, ("m", 1.0))
+    return label, us.scale_length * per_metre
+
+
+def message_core_to_host(msg, scene=None):
+    """The core's message for the UI: angles in degrees, lengths in the scene's display
+    unit (the scene mechanism is built in radians and scene units, so the core quotes
+    radians, and scene units labelled "m")."""
     msg = _RAD_RANGE.sub(lambda m: f"[{math.degrees(float(m.group(1))):.5g}, "
                                    f"{math.degrees(float(m.group(2))):.5g}] deg", msg)
-    return _RAD.sub(lambda m: f"{math.degrees(float(m.group(1))):.5g} deg", msg)
+    msg = _RAD.sub(lambda m: f"{math.degrees(float(m.group(1))):.5g} deg", msg)
+    if scene is None:
+        try:
+            import bpy
+            scene = bpy.context.scene
+        except (ImportError, AttributeError):
+            scene = None
+    label, k = _display_length(scene)
+    msg = _M_RANGE.sub(lambda m: f"[{float(m.group(1)) * k:.6g}, {float(m.group(2)) * k:.6g}] {label}", msg)
+    return _M.sub(lambda m: f"{float(m.group(1)) * k:.6g} {label}", msg)
 
 
 def describe_error(exc):
-    msg = message_core_to_host(str(exc))
+    msg = str(exc)
     loop = getattr(exc, "loop", None)
     joint = getattr(exc, "joint", None)
     extra = []

@@ -153,9 +153,17 @@ def test_empty_scene_operators_report(fresh, tmp_path):
 def test_core_messages_show_degrees_in_the_ui(installed):
     import importlib
     scene_mod = importlib.import_module(installed + ".scene")
+    import bpy
+    scene = bpy.context.scene
+    scene.unit_settings.system = "METRIC"
+    scene.unit_settings.length_unit = "MILLIMETERS"
+    scene.unit_settings.scale_length = 0.001  # 1 BU = 1 mm; the core labels BU as "m"
     msg = scene_mod.message_core_to_host(
         "c = 1.22173 rad lies outside its limits [-1.0472, 1.0472] rad; up to about 0.817031 rad "
-        "(radians or mechanism sizes), gap 0.001 m")
+        "(radians or mechanism sizes), slide = 10 m outside [-48, 8] m", scene)
     assert "1.22173 rad" not in msg and " rad" not in msg.replace("radians", "")
     assert "70 deg" in msg and "[-60, 60] deg" in msg and "46.812 deg" in msg
-    assert "(radians or mechanism sizes), gap 0.001 m" in msg
+    assert "slide = 10 mm outside [-48, 8] mm" in msg
+    scene.unit_settings.length_unit = "METERS"
+    assert "slide = 0.01 m outside [-0.048, 0.008] m" in scene_mod.message_core_to_host(
+        "slide = 10 m outside [-48, 8] m", scene)

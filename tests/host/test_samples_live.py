@@ -1,0 +1,49 @@
+"""Samples as shipped: they solve at any frame and follow a dragged passive joint.
+
+Reference: the core's poses of the sample's own mechanism file (tests/test_loops.py
+checks those against closed forms)."""
+import math
+import os
+
+import numpy as np
+import pytest
+
+ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+SAMPLES = os.path.join(ROOT, "blend_samples")
+
+
+def _open(name):
+    import bpy
+    bpy.ops.wm.open_mainfile(filepath=os.path.join(SAMPLES, name + ".blend"))
+    return bpy.context.scene
+
+
+@pytest.mark.parametrize("frame", [9, 50, 115])
+def test_twin_shaft_solves_away_from_home(installed, frame):
+    # an overconstrained double Hooke's loop: float32 markers read through moved links
+    # must not lock it
+    import bpy
+    scene = _open("heron_twin_shaft")
+    scene.frame_set(frame)
+    assert bpy.ops.jointwise.pose() == {"FINISHED"}, scene.jointwise.message
+    assert scene.jointwise.converged
+
+
+def test_twin_shaft_bakes_from_a_frame_away_from_home(installed):
+    import bpy
+    scene = _open("heron_twin_shaft")
+    scene.frame_set(50)
+    assert bpy.ops.jointwise.bake(frame_start=1, frame_end=120) == {"FINISHED"}, scene.jointwise.message
+
+
+def test_dragging_a_passive_joint_of_an_animated_sample_follows(installed):
+    import jointwise
+    scene = _open("wagtail_rocker")
+    jw = scene.jointwise
+    mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
+    scene.frame_set(1)
+    jw.live = True
+    jw.joints["rocker_pivot"].value = math.radians(10)
+    assert jw.converged, jw.message
+    want = mech.pose({"rocker_pivot": 10.0})
+    assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(want.joints["crank_pin"], abs=1e-3)
