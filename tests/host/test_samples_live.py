@@ -47,3 +47,25 @@ def test_dragging_a_passive_joint_of_an_animated_sample_follows(installed):
     assert jw.converged, jw.message
     want = mech.pose({"rocker_pivot": 10.0})
     assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(want.joints["crank_pin"], abs=1e-3)
+
+
+def test_baked_sample_exports_to_gltf_as_one_clip_without_jointwise(installed, tmp_path):
+    # README quickstart step 5: the baked keys play without jointwise installed
+    import json
+
+    import bpy
+    _open("plover_lift")
+    module = installed
+    bpy.ops.preferences.addon_disable(module=module)
+    try:
+        out = tmp_path / "lift.gltf"
+        r = bpy.ops.export_scene.gltf(filepath=str(out), export_format="GLTF_SEPARATE", export_animations=True,
+                                      export_animation_mode="SCENE", export_anim_scene_split_object=False)
+        assert r == {"FINISHED"}
+        doc = json.loads(out.read_text())
+        assert len(doc["animations"]) == 1
+        moving = {n["name"] for n in doc["nodes"]} & {"lift_foot", "lift_platform", "lift_arm_a2"}
+        targets = {doc["nodes"][c["target"]["node"]]["name"] for c in doc["animations"][0]["channels"]}
+        assert moving and moving <= targets
+    finally:
+        bpy.ops.preferences.addon_enable(module=module)
