@@ -69,3 +69,19 @@ def test_baked_sample_exports_to_gltf_as_one_clip_without_jointwise(installed, t
         assert moving and moving <= targets
     finally:
         bpy.ops.preferences.addon_enable(module=module)
+
+
+@pytest.mark.parametrize("name", ["linnet_vise", "wagtail_rocker", "dipper_pump", "heron_shaft",
+                                  "heron_twin_shaft", "plover_lift"])
+def test_sample_keeps_the_file_geometry_for_export(installed, name):
+    # a stale .blend (built before the scene kept the file's own numbers) fails here
+    import json
+    import tomllib
+    scene = _open(name)
+    with open(os.path.join(SAMPLES, name + ".toml"), "rb") as fh:
+        joints = tomllib.load(fh)["joints"]
+    stored = json.loads(scene.jointwise.geometry_json or "{}")
+    for jn, j in joints.items():
+        for key in ("point", "axis", "axis2"):
+            if key in j:
+                assert stored[jn][key] == j[key], (jn, key)
