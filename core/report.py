@@ -133,10 +133,13 @@ def plot_sweep(mech, sw, drive, path):
         for n in rates:
             ax.plot(x, sw.measures[n], label=f"{n} = d{mech.measures[n].of}/d{mech.measures[n].per} "
                                              f"[{describe(mech, n)}]")
-            adv = sw.advantage[n]
+            adv = np.array(sw.advantage[n], dtype=float)
+            rate = np.asarray(sw.measures[n], dtype=float)
+            pole = np.flatnonzero(np.sign(rate[1:]) != np.sign(rate[:-1])) + 1
+            adv[pole] = np.nan  # the rate passes zero there: the advantage runs off to +-infinity
             twin.plot(x, adv, ls="--", lw=0.9, color="0.45",
                       label=f"{n}: ideal mechanical advantage (frictionless, 1/rate), right axis")
-            finite = adv[np.abs(adv) < 1e12]
+            finite = adv[np.isfinite(adv) & (np.abs(adv) < 1e12)]
             if finite.size:
                 lo_hi.append(np.percentile(finite, [5, 95]))
         if lo_hi:  # the advantage runs off to infinity at dead points: show its usual range
