@@ -2,7 +2,7 @@
 
 Keys are written through the slotted-action API (action -> slot -> layer -> keyframe
 strip -> channelbag -> F-curves) with ``keyframe_points.add`` + ``foreach_set``,
-never ``keyframe_insert`` per key; this works on Blender 4.4+ and 5.x alike.
+never one call per key; this works on Blender 4.4+ and 5.x alike.
 
 Rotation keys follow each object's own ``rotation_mode``: quaternions are made
 continuous by sign (q and -q are the same turn), Euler angles are unwrapped so
@@ -75,6 +75,32 @@ def coordinate_fcurves(scene):
                 continue
         out.setdefault(name, (fc, m.group(3)))
     return out
+
+
+def key_value(scene, data_path, frame, value):
+    """One key on the scene's own action (the joint-value key button), written on the
+    F-curve directly: the slotted action, its channelbag and the curve are made when
+    missing, as the host's own keying would."""
+    ad = scene.animation_data or scene.animation_data_create()
+    action = ad.action
+    if action is None:
+        action = ad.action = bpy.data.actions.new(f"{scene.name} joint values")
+    if not len(getattr(action, "layers", ())) and len(getattr(action, "fcurves", ())):
+        curves = action.fcurves  # a 4.x legacy action keeps its F-curves on itself
+    else:
+        slot = getattr(ad, "action_slot", None)
+        if slot is None:
+            slot = action.slots.new(id_type='SCENE', name=scene.name)
+            ad.action_slot = slot
+        if not len(action.layers):
+            action.layers.new("Layer").strips.new(type='KEYFRAME')
+        curves = action.layers[0].strips[0].channelbag(slot, ensure=True).fcurves
+    fc = next((f for f in curves if f.data_path == data_path and f.array_index == 0), None)
+    if fc is None:
+        fc = curves.new(data_path, index=0)
+    fc.keyframe_points.insert(frame, value)
+    fc.update()
+    return fc
 
 
 # -- solving ---------------------------------------------------------------------------------

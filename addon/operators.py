@@ -258,7 +258,7 @@ class JOINTWISE_OT_value_key(_Base, bpy.types.Operator):
         i = self.index if self.index >= 0 else jw.joint_index
         if not 0 <= i < len(jw.joints):
             return self.fail("no joint value to key")
-        scene.keyframe_insert(f"jointwise.joints[{i}].value", frame=scene.frame_current)
+        bk.key_value(scene, f"jointwise.joints[{i}].value", scene.frame_current, jw.joints[i].value)
         return {'FINISHED'}
 
 

@@ -323,3 +323,23 @@ def test_export_of_an_unchanged_import_keeps_the_file_numbers(fresh, tmp_path):
     assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
     moved = tomllib.loads(out.read_text())["joints"]["d"]["point"]
     assert abs(moved[0] - (src["d"]["point"][0] + 2.0)) < 1e-3
+
+
+
+def test_bake_reads_keys_of_the_key_button(fresh, tmp_path):
+    # the joint list's key button keys the value on the scene; the bake follows those keys
+    import jointwise
+    objs, homes, path = setup_clamp(tmp_path)
+    mech = jointwise.load(path)
+    jw = fresh.jointwise
+    index = list(jw.joints.keys()).index("a")
+    for frame, deg in ((1, 90.0), (11, 190.0)):
+        fresh.frame_set(frame)
+        jw.joints["a"].value = math.radians(deg)
+        assert bpy.ops.jointwise.value_key(index=index) == {"FINISHED"}
+    for fc in ws.fcurves_of(fresh):
+        for k in fc.keyframe_points:
+            k.interpolation = 'LINEAR'
+    assert bpy.ops.jointwise.bake(frame_start=1, frame_end=11) == {"FINISHED"}, jw.message
+    fresh.frame_set(6)
+    check_against_core(objs, homes, mech, {"a": 140.0})

@@ -94,6 +94,12 @@ def test_views_and_key_button(fresh):
     assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
     with pytest.raises(RuntimeError, match="no joint value"):
         bpy.ops.jointwise.value_key(index=5)
+    # a second key on the same curve, at another frame
+    fresh.frame_set(19)  # (evaluates the animation: set the value after it)
+    item.value = 1.25
+    assert bpy.ops.jointwise.value_key(index=0) == {"FINISHED"}
+    (fc,) = ws.fcurves_of(fresh)
+    assert [tuple(k.co) for k in fc.keyframe_points] == [(7.0, 0.0), (19.0, 1.25)]
 
 
 def test_toml_writer_round_trips_awkward_names(installed, tmp_path):
