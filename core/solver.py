@@ -517,23 +517,11 @@ class Solver:
         q = self.home_state() if q_start is None else np.array(q_start, dtype=float)
         notes = list(self._home_notes) if q_start is None else []
         explicit = dict(held)
-        # which groups are held: explicit ones, plus the file's drives (released in a block
-        # where a passive coordinate is given)
-        released = set()
-        driven = set(m._index[c] for c in m.driven)
-        for i in explicit:
-            if i not in driven and int(self.master[i]) in self.block_of_master:
-                released.add(self.block_of_master[int(self.master[i])])
         target = {}
         source = {}
         for i, v in explicit.items():
             self._hold(target, source, i, v)
-        for i in driven:
-            g = int(self.master[i])
-            if i in explicit or g in target:
-                continue
-            if self.block_of_master.get(g) in released:
-                continue
+        for i in self.kept_drives(explicit):
             self._hold(target, source, i, q[i])
         # coordinates outside every loop: set directly
         for g, v in target.items():
@@ -550,6 +538,24 @@ class Solver:
         self._check_passive_limits(q, set(target))
         return q, {"converged": worst <= TOLERANCE, "residual": float(worst),
                    "singular": bool(singular), "notes": notes}
+
+    def kept_drives(self, explicit):
+        """The file's driven coordinates held besides ``explicit`` (coordinate indices).
+
+        A drive is released in a loop block where a passive coordinate is given (the user
+        moves that one instead), and is not held twice through a coupling group."""
+        driven = [self.m._index[c] for c in self.m.driven]
+        released = {self.block_of_master[int(self.master[i])] for i in explicit
+                    if i not in driven and int(self.master[i]) in self.block_of_master}
+        held = {int(self.master[i]) for i in explicit}
+        kept = []
+        for i in driven:
+            g = int(self.master[i])
+            if i in explicit or g in held or self.block_of_master.get(g) in released:
+                continue
+            held.add(g)
+            kept.append(i)
+        return kept
 
     def _hold(self, target, source, i, v):
         g = int(self.master[i])

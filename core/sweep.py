@@ -459,21 +459,8 @@ def _held_set(mech, explicit, release):
     held = {int(s.master[i]) for i in explicit}
     if release:
         return held, []
-    driven = [mech._index[c] for c in mech.driven]
-    released_blocks = set()
-    for i in explicit:
-        if i not in driven and int(s.master[i]) in s.block_of_master:
-            released_blocks.add(s.block_of_master[int(s.master[i])])
-    extra = []
-    for i in driven:
-        g = int(s.master[i])
-        if i in explicit or g in held:
-            continue
-        if s.block_of_master.get(g) in released_blocks:
-            continue
-        held.add(g)
-        extra.append(i)
-    return held, extra
+    extra = s.kept_drives(explicit)
+    return held | {int(s.master[i]) for i in extra}, extra
 
 
 def _run(mech, explicit, N, q0, release):
