@@ -323,26 +323,33 @@ class Mechanism:
 
     # -- posing ------------------------------------------------------------------
     def joint_transforms(self, q):
-        """Displacement of each joint's child relative to its parent, for internal ``q``."""
+        """Displacement of each joint's child relative to its parent, for internal ``q``.
+
+        ``q`` of shape (n,) gives 4x4 matrices; a stack (B, n) gives (B, 4, 4) stacks, all
+        primitive exponentials in one vectorised call."""
+        q = np.asarray(q, dtype=float)
         if self._powers is None:
             screws = [p.screw for j in self.joints.values() for p in j.primitives]
             self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
-        ex = spatial.exp_unit(self._powers, q - self.home) if len(q) else np.zeros((0, 4, 4))
+        eye = np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))
+        ex = spatial.exp_unit(self._powers, q - self.home) if q.shape[-1] else None
         out = {}
         for name, sl in self._slices.items():
             if sl.stop == sl.start:
-                out[name] = np.eye(4)
+                out[name] = eye
                 continue
-            e = ex[sl.start]
+            e = ex[..., sl.start, :, :]
             for k in range(sl.start + 1, sl.stop):
-                e = e @ ex[k]
+                e = e @ ex[..., k, :, :]
             out[name] = e
         return out
 
     def link_poses(self, q):
-        """Displacements from home of every link for internal coordinates ``q``."""
+        """Displacements from home of every link for internal coordinates ``q`` (n,) or a
+        stack of them (B, n)."""
+        q = np.asarray(q, dtype=float)
         es = self.joint_transforms(q)
-        out = {self.ground: np.eye(4)}
+        out = {self.ground: np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
         for link in self.order[1:]:
             jname, sign = self.tree_parent[link]
             j = self.joints[jname]
@@ -350,7 +357,7 @@ class Mechanism:
                 out[link] = out[j.parent] @ es[jname]
             else:
                 out[link] = out[j.child] @ spatial.inverse(es[jname])
-        return {name: out[name] for name in self.links}
+        return {name: np.array(out[name]) for name in self.links}
 
     def _held_from(self, values):
         held = {}

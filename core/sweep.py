@@ -975,32 +975,13 @@ def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
 
 
 def link_poses(mech, Q):
-    """Displacements from home of every link, stacked over states Q (N, n): link -> (N, 4, 4).
-
-    All primitive exponentials of a chunk of states in one vectorised call
-    (:func:`spatial.exp_unit`), then the tree's products link by link."""
+    """Displacements from home of every link, stacked over states Q (N, n): link -> (N, 4, 4);
+    :meth:`Mechanism.link_poses` in chunks."""
     N = Q.shape[0]
     res = {name: np.empty((N, 4, 4)) for name in mech.links}
-    if mech._powers is None:
-        mech.joint_transforms(mech.home)  # builds the stacked screw powers
     for k0 in range(0, N, CHUNK):
-        q = Q[k0:k0 + CHUNK]
-        B = q.shape[0]
-        ex = spatial.exp_unit(mech._powers, q - mech.home) if q.shape[1] else np.zeros((B, 0, 4, 4))
-        out = {mech.ground: np.broadcast_to(np.eye(4), (B, 4, 4))}
-        for link in mech.order[1:]:
-            jname, sign = mech.tree_parent[link]
-            j = mech.joints[jname]
-            sl = mech._slices[jname]
-            if sl.stop == sl.start:
-                e = np.broadcast_to(np.eye(4), (B, 4, 4))
-            else:
-                e = ex[:, sl.start]
-                for k in range(sl.start + 1, sl.stop):
-                    e = e @ ex[:, k]
-            out[link] = out[j.parent] @ e if sign > 0 else out[j.child] @ spatial.inverse(e)
-        for name in mech.links:
-            res[name][k0:k0 + B] = out[name]
+        for name, mats in mech.link_poses(Q[k0:k0 + CHUNK]).items():
+            res[name][k0:k0 + CHUNK] = mats
     return res
 
 
