@@ -288,21 +288,22 @@ class Joint:
     def coordinates_from_transform(self, e, near=None):
         """Spherical coordinates (a-b-c turns, radians) reproducing displacement ``e``.
 
-        With ``near`` (the previous coordinates), each turn is taken within half a turn
-        of it, so that coordinates run on continuously instead of wrapping at 180 deg."""
+        ``e``: a 4x4 displacement or 3x3 rotation, or stacks of them (..., 4, 4).  With
+        ``near`` (the previous coordinates), each turn is taken within half a turn of it,
+        so that coordinates run on continuously instead of wrapping at 180 deg."""
         f = self.frame
-        r = f.T @ e[:3, :3] @ f  # = Rx(d1) Ry(d2) Rz(d3)
-        if math.hypot(r[1, 2], r[2, 2]) > 1e-15:
-            d1 = math.atan2(-r[1, 2], r[2, 2])
-        else:  # exact gimbal lock: put the whole turn on the first coordinate
-            d1 = math.atan2(r[2, 1], r[1, 1])
+        r = f.T @ np.asarray(e, dtype=float)[..., :3, :3] @ f  # = Rx(d1) Ry(d2) Rz(d3)
+        lock = np.hypot(r[..., 1, 2], r[..., 2, 2]) <= 1e-15  # exact gimbal lock: all on d1
+        d1 = np.where(lock, np.arctan2(r[..., 2, 1], r[..., 1, 1]), np.arctan2(-r[..., 1, 2], r[..., 2, 2]))
         # remove the first turn, then read the other two from what is left, so that the
-        # three always reproduce the rotation (also next to the lock)
-        c1, s1 = math.cos(d1), math.sin(d1)
-        rest = np.array([[1, 0, 0], [0, c1, s1], [0, -s1, c1]]) @ r  # Rx(d1)^T r = Ry(d2) Rz(d3)
-        d2 = math.atan2(rest[0, 2], rest[2, 2])
-        d3 = math.atan2(rest[1, 0], rest[1, 1])
-        out = self.home + np.array([d1, d2, d3])
+        # three always reproduce the rotation (also next to the lock):
+        # Rx(d1)^T r = Ry(d2) Rz(d3); its rows 0 and 2 give d2, row 1 gives d3
+        c1, s1 = np.cos(d1)[..., None], np.sin(d1)[..., None]
+        rest1 = c1 * r[..., 1, :] + s1 * r[..., 2, :]
+        rest2 = -s1 * r[..., 1, :] + c1 * r[..., 2, :]
+        d2 = np.arctan2(r[..., 0, 2], rest2[..., 2])
+        d3 = np.arctan2(rest1[..., 0], rest1[..., 1])
+        out = self.home + np.stack([d1, d2, d3], axis=-1)
         if near is not None:
             out = out + 2 * math.pi * np.round((np.asarray(near, float) - out) / (2 * math.pi))
         return out

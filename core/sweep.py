@@ -341,26 +341,7 @@ class _Evaluator:
             for k in (1, 2):
                 T = _compose(T, self.prims[jn][k].exp(Q[:, sl.start + k]))
             Rn = Rd @ T[0]
-            Q[:, sl] = _sph_coords(j, Rn, near=Q[:, sl])
-
-
-def _sph_coords(j, R, near=None):
-    """Batched :meth:`Joint.coordinates_from_transform` (intrinsic a-b-c turns)."""
-    f = j.frame
-    r = f.T @ R @ f
-    lock = np.hypot(r[:, 1, 2], r[:, 2, 2]) <= 1e-15
-    d1 = np.where(lock, np.arctan2(r[:, 2, 1], r[:, 1, 1]), np.arctan2(-r[:, 1, 2], r[:, 2, 2]))
-    c1, s1 = np.cos(d1), np.sin(d1)
-    # Rx(d1)^T r = Ry(d2) Rz(d3): rows 0 and 2 of it give d2, row 1 gives d3
-    rest0 = r[:, 0]
-    rest1 = c1[:, None] * r[:, 1] + s1[:, None] * r[:, 2]
-    rest2 = -s1[:, None] * r[:, 1] + c1[:, None] * r[:, 2]
-    d2 = np.arctan2(rest0[:, 2], rest2[:, 2])
-    d3 = np.arctan2(rest1[:, 0], rest1[:, 1])
-    out = j.home + np.stack([d1, d2, d3], axis=-1)
-    if near is not None:
-        out = out + 2 * np.pi * np.round((near - out) / (2 * np.pi))
-    return out
+            Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
 
 
 def _derive(s, Q, masters):
