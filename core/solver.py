@@ -513,7 +513,6 @@ class Solver:
 
     def pose(self, held, q_start=None):
         """Solve with coordinates ``held`` (index -> internal value).  Returns (q, info)."""
-        m = self.m
         q = self.home_state() if q_start is None else np.array(q_start, dtype=float)
         notes = list(self._home_notes) if q_start is None else []
         explicit = dict(held)

@@ -30,11 +30,8 @@ from .errors import JointwiseError
 __all__ = [
     "hat", "vee", "twist_matrix", "screw_axis", "exp3", "exp6", "log3", "log6",
     "screw_powers", "exp_unit", "adjoint", "inverse", "to_homogeneous", "from_homogeneous", "translation",
-    "SMALL_ANGLE",
 ]
 
-#: Below this rotation angle the series forms of the closed formulas are used.
-SMALL_ANGLE = 1e-8
 
 
 def hat(w):

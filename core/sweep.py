@@ -449,7 +449,6 @@ def _run(mech, explicit, N, q0, release):
 
     Returns (Q (N, n), converged, singular, residual, reasons)."""
     s = mech.solver
-    n = s.n
     held_m, extra = _held_set(mech, explicit, release)
     # targets per master, checking couplings for contradictions
     target = {}
@@ -794,7 +793,6 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
 def _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0):
     """Solve failed steps one by one, walking outward from good neighbours."""
     N = Q.shape[0]
-    blocked = np.zeros(N, bool)
     # runs of consecutive failed steps
     runs = np.split(todo, np.flatnonzero(np.diff(todo) > 1) + 1)
     for run in runs:
@@ -943,8 +941,6 @@ def _start_q(mech, start):
 
 def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
     from .measures import evaluate
-    from .mechanism import Mechanism  # noqa: F401
-    N = Q.shape[0]
     scale = np.array([mech._unit(i) for i in range(mech.solver.n)])
     joints = {c: Q[:, i] / scale[i] for i, c in enumerate(mech.coordinates)}
     links = link_poses(mech, Q)
