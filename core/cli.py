@@ -56,6 +56,26 @@ def _setting(text):
     return name.strip(), v
 
 
+def _target(text):
+    """NAME=X,Y,Z: a point measure's target position (file units)."""
+    if "=" not in text:
+        raise argparse.ArgumentTypeError(f"expected NAME=X,Y,Z, got {text!r}")
+    name, value = text.split("=", 1)
+    parts = value.split(",")
+    if len(parts) != 3:
+        raise argparse.ArgumentTypeError(f"target {name.strip()!r} needs three numbers X,Y,Z, got {value!r}")
+    out = []
+    for part in parts:
+        try:
+            v = float(part)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"target {name.strip()!r}: {part.strip()!r} is not a number") from None
+        if not math.isfinite(v):
+            raise argparse.ArgumentTypeError(f"target {name.strip()!r}: {part.strip()!r} is not finite")
+        out.append(v)
+    return name.strip(), out
+
+
 def _finite(text):
     try:
         v = float(text)
@@ -95,6 +115,9 @@ def build_parser():
     s.add_argument("file", metavar="FILE")
     s.add_argument("--set", action="append", default=[], type=_setting, metavar="NAME=VALUE",
                    help="hold coordinate NAME at VALUE (file units); repeatable")
+    s.add_argument("--target", action="append", default=[], type=_target, metavar="NAME=X,Y,Z",
+                   help="bring point measure NAME as close to X,Y,Z (file units, world) as the loops "
+                        "allow; every coordinate not given with --set may move; repeatable")
     s.add_argument("--format", choices=("text", "json"), default="text")
 
     w = sub.add_parser("sweep", help="drive one coordinate through a range and tabulate the motion",
@@ -127,6 +150,10 @@ def main(argv=None):
     twice = sorted({n for n in names if names.count(n) > 1})
     if twice:
         parser.error(f"--set {twice[0]} given more than once")
+    tnames = [n for n, _ in getattr(args, "target", [])]
+    ttwice = sorted({n for n in tnames if tnames.count(n) > 1})
+    if ttwice:
+        parser.error(f"--target {ttwice[0]} given more than once")
     try:
         from .spec import load
         mech = load(args.file)
@@ -219,7 +246,19 @@ def check_report(mech):
 
 def cmd_pose(mech, args):
     values = dict(args.set)
-    pose = mech.pose(values)
+    targets = dict(args.target)
+    for name in targets:  # a point measure only (links take a 4x4 displacement)
+        meas = mech.measures.get(name)
+        if meas is None or meas.type != "point":
+            import difflib
+            points = [n for n, m in mech.measures.items() if m.type == "point"]
+            what = (f"is a {meas.type} measure" if meas is not None else
+                    "is a link; give a point measure of it" if name in mech.links else "names no measure")
+            close = difflib.get_close_matches(name, points, n=1)
+            hint = (f"; did you mean {close[0]!r}?" if close else
+                    f"; point measures: {', '.join(points) or 'none in this file'}")
+            raise SpecError(f"--target {name!r} {what}: --target takes a point measure{hint}", source=mech.source)
+    pose = mech.pose(values, targets=targets) if targets else mech.pose(values)
     for note in pose.notes:
         print(f"jointwise: note: {note}", file=sys.stderr)
     if args.format == "json":
@@ -236,6 +275,10 @@ def cmd_pose(mech, args):
             from .spatial import log3
             ang = math.degrees(float(np.linalg.norm(log3(mat[:3, :3]))))
             lines.append(f"  {name:<16} moved [{t[0]:.6g}, {t[1]:.6g}, {t[2]:.6g}], turned {ang:.6g} deg")
+        if pose.target_error:
+            lines.append(f"targets: {'all reached' if pose.reached else 'not all reached'}")
+            for name, d in pose.target_error.items():
+                lines.append(f"  {name:<16} {d:.6g} {mech.length_unit} from its target")
         _emit("\n".join(lines) + "\n")
     if not pose.converged:
         return EXIT_ASSEMBLY

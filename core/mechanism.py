@@ -83,6 +83,9 @@ class Pose:
     ``joints``: coordinate -> value (file units); ``links``: link -> 4x4 displacement
     from home (world, file length unit); ``residual``: largest loop-closure error
     (length unit or radian); ``singular``: near a dead point or toggle position.
+    With targets (:mod:`jointwise.targets`): ``target_error`` (target -> distance left,
+    file length unit) and ``reached`` (every error within 1e-6 of the mechanism's size);
+    without, ``{}`` and True.
     """
     joints: dict
     links: dict
@@ -91,15 +94,21 @@ class Pose:
     singular: bool = False
     q: np.ndarray | None = field(default=None, repr=False)  # internal state, for warm starts
     notes: list = field(default_factory=list)
+    target_error: dict = field(default_factory=dict)
+    reached: bool = True
 
     def to_json(self):
-        return {
+        out = {
             "converged": bool(self.converged),
             "residual": float(self.residual),
             "singular": bool(self.singular),
             "joints": {k: float(v) for k, v in self.joints.items()},
             "links": {k: np.asarray(v).tolist() for k, v in self.links.items()},
         }
+        if self.target_error:
+            out["target_error"] = {k: float(v) for k, v in self.target_error.items()}
+            out["reached"] = bool(self.reached)
+        return out
 
 
 class Mechanism:
@@ -385,7 +394,7 @@ class Mechanism:
     def _local(self, i):
         return i - self._slices[self._owner[self.coordinates[i]]].start
 
-    def pose(self, values=None, start=None):
+    def pose(self, values=None, *, start=None, targets=None):
         """Pose the mechanism with the given coordinates held (file units).
 
         Coordinates of joints with ``drive = true`` that are not given are held at their
@@ -400,6 +409,13 @@ class Mechanism:
         start : Pose or dict, optional
             Previous pose to start from (warm start; stays on its branch), or a dict of
             coordinate values (file units) of a closed placement; see :meth:`state`.
+        targets : dict, optional
+            Point measure name -> world position ``[x, y, z]`` (file length unit), or link
+            name -> 4x4 displacement from home (as ``Pose.links``).  Every coordinate not
+            in ``values`` may then move, the file's drives included; the pose moves
+            continuously from ``start`` to the closed placement nearest the targets
+            (:mod:`jointwise.targets`) and gains ``target_error`` and ``reached``.  An
+            unreachable target gives the nearest reachable pose, ``reached = False``.
 
         Raises
         ------
@@ -407,7 +423,12 @@ class Mechanism:
             A held value lies outside its joint's limits.
         AssemblyError
             The loops cannot be closed (attributes ``loop``, ``error``, ``joint``).
+        SpecError
+            A target names no point measure or link, or its value has the wrong shape.
         """
+        if targets is not None:
+            from .targets import pose_to_targets  # noqa: E402  (targets imports this layer)
+            return pose_to_targets(self, values, start, targets)
         held = self._held_from(values)
         self.check_limits(held)
         if isinstance(start, dict):

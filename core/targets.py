@@ -1,0 +1,470 @@
+"""Posing by target: bring points and links as close as the closed loops allow.
+
+A target is either a point measure's name with a world position ``[x, y, z]`` (file
+length unit), or a link's name with a 4x4 displacement from home (the form of
+``Pose.links``).  Every coordinate that is not held may move, the file's drives
+included; every loop stays closed; joint limits hold.
+
+Method
+------
+The free coordinates ``u`` (coupled coordinates by their leader, free spherical joints by
+rotation increments, as in :mod:`jointwise.solver`) move in steps of damped least
+squares restricted to the loops' null space.  With ``A`` the constraint Jacobian and ``r``
+the loop residual, ``J`` the targets' Jacobian and ``e`` their error, all made
+dimensionless (lengths divided by the mechanism's size ``L``, angles in radians)::
+
+    du_c = -A^+ r                         (closure part, least norm)
+    N    = basis of null(A)               (motions that keep the loops closed)
+    du   = du_c + N (JN)^T (JN (JN)^T + lambda^2 I)^-1 (e - J du_c)
+
+(damped least squares: Y. Nakamura and H. Hanafusa, "Inverse kinematic solutions with
+singularity robustness for robot manipulator control", J. Dyn. Syst. Meas. Control 108,
+1986; C. W. Wampler, "Manipulator inverse kinematic solutions based on vector
+formulations and damped least-squares methods", IEEE Trans. SMC 16, 1986).  Each step is
+capped in size, corrected back onto closure by the solver's Newton corrector, and refused
+(then halved) where that correction moves much more than the step itself, so the pose
+moves continuously from the start on its assembly branch.  ``lambda`` grows when a step
+does not lower the targets' error and shrinks when it does (Levenberg-Marquardt style).
+Coordinates at a limit whose step would pass it are held (an active set); a step that
+crosses a limit is clamped there.
+
+Target Jacobians
+----------------
+A link's twist in the world frame is the sum over the tree joints from ground to it of
+``+-Ad(D_parent) X_k dq_k``, ``X_k = Ad(prefix_k) S_k`` the joint's primitive screws
+(space Jacobian: Lynch & Park, *Modern Robotics*, 2017, sec. 5.1.1); the velocity of a
+point ``p`` of the link is ``v + w x p`` (ibid. sec. 3.3.2).
+
+Weights: point targets in length units; a link target as the displacement of a point
+of the link (the centroid of its joint points) plus its rotation times ``L`` (the
+mechanism's size), so a radian of turn weighs as much as ``L`` of travel.
+"""
+from __future__ import annotations
+
+import difflib
+import math
+
+import numpy as np
+
+from . import spatial
+from .errors import AssemblyError, SpecError
+
+__all__ = ["pose_to_targets", "REACHED", "parse_targets"]
+
+#: A target is reached when its error is at most this fraction of the mechanism's size.
+REACHED = 1e-6
+#: Iterations stop once every target is this close (fraction of the size) ...
+CLOSE = 1e-10
+#: ... or the step has shrunk below this (dimensionless: radians or sizes).
+STALL = 1e-11
+MAX_ITER = 400
+#: First step cap (dimensionless); grows while the closure correction stays tiny.
+FIRST_STEP = 0.2
+MAX_STEP = 2 * math.pi
+JUMP_SLACK = 0.01
+LAMBDA0 = 1e-3
+LAMBDA_MIN = 1e-7
+LAMBDA_MAX = 1e3
+
+
+# -- reading targets ---------------------------------------------------------------------------
+def parse_targets(mech, targets):
+    """Validate ``targets``: list of ``(name, kind, data)`` with kind "point" or "link".
+
+    Point targets: ``data = (link, at (3,), goal (3,))``; link targets:
+    ``data = (link, goal 4x4)`` with the rotation made orthonormal."""
+    out = []
+    if not isinstance(targets, dict):
+        raise SpecError(f"targets must map names to positions or 4x4 displacements, got {type(targets).__name__}",
+                        source=mech.source)
+    for name, value in targets.items():
+        meas = mech.measures.get(name)
+        is_point = meas is not None and meas.type == "point"
+        try:
+            arr = np.asarray(value, dtype=float)
+        except (TypeError, ValueError):
+            raise SpecError(f"target {name!r}: expected numbers, got {value!r}", source=mech.source) from None
+        if is_point and arr.shape == (3,):
+            kind = "point"
+        elif name in mech.links and arr.shape == (4, 4):
+            kind = "link"
+        elif is_point or name in mech.links:
+            want = "[x, y, z]" if is_point else "a 4x4 displacement from home"
+            raise SpecError(f"target {name!r}: expected {want}, got shape {arr.shape}", source=mech.source)
+        elif meas is not None:
+            raise SpecError(f"target {name!r} is a {meas.type} measure; a target must name a point "
+                            f"measure or a link", source=mech.source)
+        else:
+            names = [n for n, m in mech.measures.items() if m.type == "point"] + list(mech.links)
+            close = difflib.get_close_matches(str(name), names, n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else f"; point measures and links are: {', '.join(names)}"
+            raise SpecError(f"target {name!r} names no point measure or link{hint}", source=mech.source)
+        if not np.all(np.isfinite(arr)):
+            raise SpecError(f"target {name!r} must be finite, got {value!r}", source=mech.source)
+        if kind == "point":
+            out.append((name, "point", (meas.a[0], np.asarray(meas.a[1], float), arr)))
+        else:
+            if np.abs(arr[3] - [0, 0, 0, 1]).max() > 1e-9:
+                raise SpecError(f"target {name!r}: the last row of a displacement must be [0, 0, 0, 1]",
+                                source=mech.source)
+            u, s, vt = np.linalg.svd(arr[:3, :3])
+            if abs(np.linalg.det(u @ vt) - 1) > 1e-6 or abs(s - 1).max() > 1e-3:
+                raise SpecError(f"target {name!r}: the displacement must be a rigid motion (rotation and "
+                                f"translation), got singular values {np.round(s, 6).tolist()}", source=mech.source)
+            goal = arr.copy()
+            goal[:3, :3] = u @ vt
+            out.append((name, "link", (name, goal)))
+    return out
+
+
+def _right_jacobian_inverse(phi):
+    """Inverse right Jacobian of SO(3): d log(E exp(-[w] t)) / dt = -J_r^-1(log E) w.
+
+    ``J_r^-1(p) = I + [p]/2 + (1/|p|^2 - (1 + cos|p|) / (2 |p| sin|p|)) [p]^2`` (G. S.
+    Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*, vol. 2, 2011,
+    sec. 10.2), so orientation errors far from zero still get their exact derivative."""
+    a = float(np.linalg.norm(phi))
+    k = spatial.hat(phi)
+    if a < 1e-6:
+        coef = 1.0 / 12.0 + a * a / 720.0
+    elif a > math.pi - 1e-6:
+        coef = 1.0 / (a * a)
+    else:
+        coef = 1.0 / (a * a) - (1.0 + math.cos(a)) / (2.0 * a * math.sin(a))
+    return np.eye(3) + 0.5 * k + coef * (k @ k)
+
+
+# -- the solve -------------------------------------------------------------------------------
+class _Layout:
+    """Free columns for one set of fixed masters: global and per loop block."""
+
+    def __init__(self, solver, fixed):
+        m = solver.m
+        self.fixed = fixed
+        rot = set()
+        for jn, j in m.joints.items():
+            if j.type != "spherical":
+                continue
+            idx = range(m._slices[jn].start, m._slices[jn].stop)
+            if all(solver.master[i] == i and len(solver.members[i]) == 1 and i not in fixed
+                   and j.limits[i - m._slices[jn].start] is None for i in idx):
+                rot.add(jn)
+        cols = []
+        for g in sorted(solver.members):
+            if g in fixed or m._owner[m.coordinates[g]] in rot:
+                continue
+            cols.append(("m", g))
+        for jn in m.joints:
+            if jn in rot:
+                cols.extend(("s", jn, k) for k in range(3))
+        self.cols, self.rot = cols, rot
+        self.cs = np.array([1.0 / solver.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+        self.blocks = []
+        for b in solver.blocks:
+            groups = set(b.groups)
+            idx = [k for k, c in enumerate(cols)
+                   if (c[0] == "m" and c[1] in groups) or (c[0] == "s" and c[1] in b.joints)]
+            self.blocks.append((b, [cols[k] for k in idx], np.array(idx, dtype=int),
+                                rot & set(b.joints)))
+        self.col_of = {c: k for k, c in enumerate(cols)}
+
+
+class _Targets:
+    def __init__(self, mech, held, parsed):
+        self.m = mech
+        self.s = mech.solver
+        self.L = mech.size
+        self.parsed = parsed
+        self.held = frozenset(int(self.s.master[i]) for i in held)
+        self._layouts = {}
+        # limits of each master, in master units
+        s = self.s
+        self.bounds = {}
+        for g, members in s.members.items():
+            lo, hi = -math.inf, math.inf
+            for i in members:
+                j = mech.joints[mech._owner[mech.coordinates[i]]]
+                lim = j.limits[mech._local(i)]
+                if lim is None:
+                    continue
+                a, b = (lim[0] - s.beta[i]) / s.alpha[i], (lim[1] - s.beta[i]) / s.alpha[i]
+                lo, hi = max(lo, min(a, b)), min(hi, max(a, b))
+            if lo > -math.inf or hi < math.inf:
+                self.bounds[g] = (lo, hi)
+        # tree paths and reference points
+        self.paths = {}
+        self.refs = {}
+        for name, kind, data in parsed:
+            link = data[0]
+            if link not in self.paths:
+                self.paths[link] = [(jn, sg) for _, jn, sg in mech._path_up(link)]
+            if kind == "link":
+                pts = np.array([j.point for j in mech.joints.values() if link in (j.parent, j.child)])
+                self.refs[name] = pts
+
+    def layout(self, fixed):
+        key = frozenset(fixed) | self.held
+        lay = self._layouts.get(key)
+        if lay is None:
+            lay = self._layouts[key] = _Layout(self.s, key)
+        return lay
+
+    # -- evaluation ----------------------------------------------------------------------------
+    def errors(self, links):
+        """Target error vector (dimensionless) and each target's distance left (length unit)."""
+        e, dist = [], {}
+        L = self.L
+        for name, kind, data in self.parsed:
+            if kind == "point":
+                link, at, goal = data
+                D = links[link]
+                p = D[:3, :3] @ at + D[:3, 3]
+                d = goal - p
+                e.append(d / L)
+                dist[name] = float(np.linalg.norm(d))
+            else:
+                link, goal = data
+                D = links[link]
+                pts = self.refs[name]
+                c0 = pts.mean(axis=0)
+                w = spatial.log3(goal[:3, :3] @ D[:3, :3].T)
+                dp = (goal[:3, :3] @ c0 + goal[:3, 3]) - (D[:3, :3] @ c0 + D[:3, 3])
+                e.append(w)
+                e.append(dp / L)
+                miss = (pts @ goal[:3, :3].T + goal[:3, 3]) - (pts @ D[:3, :3].T + D[:3, 3])
+                dist[name] = float(np.linalg.norm(miss, axis=1).max())
+        return np.concatenate(e), dist
+
+    def twists(self, q, links, link, lay):
+        """World twist of ``link`` per unit of each free column, (6, ncols), physical units."""
+        m, s = self.m, self.s
+        out = np.zeros((6, len(lay.cols)))
+        for jn, sign in self.paths[link]:
+            j = m.joints[jn]
+            sl = m._slices[jn]
+            ad = spatial.adjoint(links[j.parent]) * sign
+            if jn in lay.rot:
+                x = j.rotation_twists()
+                for k in range(3):
+                    out[:, lay.col_of[("s", jn, k)]] += ad @ x[k]
+                continue
+            if sl.stop - sl.start == 1:
+                xs = [j.primitives[0].screw]
+            else:
+                xs = j.partials(q[sl])[1]
+            for k, x in enumerate(xs):
+                i = sl.start + k
+                col = lay.col_of.get(("m", int(s.master[i])))
+                if col is not None:
+                    out[:, col] += s.alpha[i] * (ad @ x)
+        return out
+
+    def jacobian(self, q, links, lay):
+        """Targets' Jacobian over the free columns, dimensionless."""
+        rows = []
+        cache = {}
+        for name, kind, data in self.parsed:
+            link = data[0]
+            tw = cache.get(link)
+            if tw is None:
+                tw = cache[link] = self.twists(q, links, link, lay)
+            D = links[link]
+            if kind == "point":
+                p = D[:3, :3] @ data[1] + D[:3, 3]
+                rows.append((tw[3:] - spatial.hat(p) @ tw[:3]) / self.L)
+            else:
+                c = D[:3, :3] @ self.refs[name].mean(axis=0) + D[:3, 3]
+                w = spatial.log3(data[1][:3, :3] @ D[:3, :3].T)
+                rows.append(_right_jacobian_inverse(w) @ tw[:3])
+                rows.append((tw[3:] - spatial.hat(c) @ tw[:3]) / self.L)
+        return np.vstack(rows) * lay.cs[None, :]
+
+    def constraints(self, q, lay):
+        """Loop residual and constraint Jacobian over the free columns, dimensionless."""
+        rs_all, A_all = [], []
+        n = len(lay.cols)
+        for b, cols_b, idx, rot_b in lay.blocks:
+            r, _, J = self.s._eval(b, q, cols_b, rot_b)
+            rs = self.s._row_scale(len(b.loops))
+            A = np.zeros((len(r), n))
+            if len(idx):
+                A[:, idx] = J * rs[:, None] * lay.cs[idx][None, :]
+            rs_all.append(r * rs)
+            A_all.append(A)
+        if not A_all:
+            return np.zeros(0), np.zeros((0, n))
+        return np.concatenate(rs_all), np.vstack(A_all)
+
+    def close(self, q, lay):
+        """Close every loop block from ``q`` (in place); True on success."""
+        for b, cols_b, idx, rot_b in lay.blocks:
+            ok = self.s._newton(b, q, cols_b, rot_b)[0]
+            if not ok:
+                return False
+        return True
+
+    # -- one step -------------------------------------------------------------------------------
+    def step(self, q, links, lay, lam, e):
+        """Damped least-squares step over ``lay``'s columns (dimensionless), or None."""
+        r, A = self.constraints(q, lay)
+        J = self.jacobian(q, links, lay)
+        n = len(lay.cols)
+        if n == 0:
+            return np.zeros(0)
+        if A.shape[0]:
+            U, sv, Vt = np.linalg.svd(A, full_matrices=True)
+            tol = 1e-9 * max(sv[0] if sv.size else 0.0, 1.0)
+            rank = int((sv > tol).sum())
+            du_c = -Vt[:rank].T @ ((U[:, :rank].T @ r) / sv[:rank])
+            N = Vt[rank:].T
+        else:
+            du_c = np.zeros(n)
+            N = np.eye(n)
+        if N.shape[1] == 0:
+            return du_c
+        JN = J @ N
+        res = e - J @ du_c
+        U2, s2, Vt2 = np.linalg.svd(JN, full_matrices=False)
+        z = Vt2.T @ ((s2 / (s2 * s2 + lam * lam)) * (U2.T @ res))
+        return du_c + N @ z
+
+    def apply(self, q, lay, du):
+        self.s._apply(q, lay.cols, lay.rot, du * lay.cs)
+
+    def motion(self, a, b, lay):
+        """Largest change between states (dimensionless) over the layout's master columns."""
+        d = 0.0
+        for c in lay.cols:
+            if c[0] == "m":
+                d = max(d, abs(a[c[1]] - b[c[1]]) * self.s.cscale[c[1]])
+        return d
+
+    def at_limit(self, q, du, lay):
+        """Masters at a limit that ``du`` would push past it."""
+        out = set()
+        for k, c in enumerate(lay.cols):
+            if c[0] != "m" or c[1] not in self.bounds:
+                continue
+            g = c[1]
+            lo, hi = self.bounds[g]
+            eps = 1e-12 * (1.0 / self.s.cscale[g])
+            if (q[g] <= lo + eps and du[k] < 0) or (q[g] >= hi - eps and du[k] > 0):
+                out.add(g)
+        return out
+
+    def clamp(self, q, lay):
+        """Clamp coordinates past their limits; returns the clamped masters."""
+        out = set()
+        for c in lay.cols:
+            if c[0] != "m" or c[1] not in self.bounds:
+                continue
+            g = c[1]
+            lo, hi = self.bounds[g]
+            if q[g] < lo or q[g] > hi:
+                q[g] = min(max(q[g], lo), hi)
+                self.s._derive(q, [g])
+                out.add(g)
+        return out
+
+    def within_limits(self, q, lay):
+        for c in lay.cols:
+            if c[0] == "m" and c[1] in self.bounds:
+                lo, hi = self.bounds[c[1]]
+                tol = 1e-9 / self.s.cscale[c[1]]
+                if not lo - tol <= q[c[1]] <= hi + tol:
+                    return False
+        return True
+
+    def solve(self, q):
+        """Move ``q`` (closed) towards the targets (in place); returns the number of steps."""
+        links = self.m.link_poses(q)
+        e, dist = self.errors(links)
+        merit = float(e @ e)
+        close = CLOSE * self.L
+        lam = LAMBDA0
+        cap = FIRST_STEP
+        steps = 0
+        for _ in range(MAX_ITER):
+            if max(dist.values(), default=0.0) <= close:
+                break
+            fixed = set()
+            lay = self.layout(fixed)
+            du = self.step(q, links, lay, lam, e)
+            for _active in range(len(lay.cols) + 1):
+                push = self.at_limit(q, du, lay)
+                if not push:
+                    break
+                fixed |= push
+                lay = self.layout(fixed)
+                du = self.step(q, links, lay, lam, e)
+            size = float(np.abs(du).max()) if du.size else 0.0
+            if size < STALL:
+                break
+            if size > cap:
+                du = du * (cap / size)
+                size = cap
+            trial = q.copy()
+            self.apply(trial, lay, du)
+            clamped = self.clamp(trial, lay)
+            lay_c = self.layout(fixed | clamped) if clamped else lay
+            before = trial.copy()
+            ok = self.close(trial, lay_c) and self.within_limits(trial, lay)
+            moved = self.motion(before, trial, lay) if ok else math.inf
+            new_merit = math.inf
+            if ok and moved <= 0.5 * size + JUMP_SLACK:
+                links_t = self.m.link_poses(trial)
+                e_t, dist_t = self.errors(links_t)
+                new_merit = float(e_t @ e_t)
+            if new_merit < merit:
+                q[:] = trial
+                links, e, dist, merit = links_t, e_t, dist_t, new_merit
+                steps += 1
+                lam = max(lam / 3.0, LAMBDA_MIN)
+                if moved < 0.01 * size:
+                    cap = min(2 * cap, MAX_STEP)
+                elif moved < 0.1 * size:
+                    cap = min(1.5 * cap, MAX_STEP)
+            else:
+                if moved > 0.5 * size + JUMP_SLACK or not ok:
+                    cap = 0.5 * min(cap, size)
+                else:
+                    lam = min(lam * 4.0, LAMBDA_MAX)
+                    cap = 0.5 * min(cap, size) if lam >= LAMBDA_MAX else cap
+                if cap < STALL:
+                    break
+        self.dist = dist
+        return steps
+
+
+def pose_to_targets(mech, values, start, targets):
+    """:meth:`Mechanism.pose` with targets (see the module docstring)."""
+    from .mechanism import Pose
+    parsed = parse_targets(mech, targets)
+    held = mech._held_from(values)
+    mech.check_limits(held)
+    if isinstance(start, dict):
+        start = mech.state(start)
+    s = mech.solver
+    q = s.home_state() if start is None else np.array(start.q, dtype=float)
+    notes = list(s._home_notes) if start is None else []
+    if held and any(abs(q[i] - v) > 0 for i, v in held.items()):
+        # first the held values, by the ordinary pose (continuation from the start)
+        q, info = s.pose(held, q)
+        notes.extend(info.get("notes", []))
+    else:
+        for i, v in held.items():
+            q[i] = v
+    t = _Targets(mech, held, parsed)
+    if not t.close(q, t.layout(set())):
+        err = s.closure(q)[0]
+        raise AssemblyError(f"cannot assemble the start placement: loops stay open by {err:.3g}",
+                            error=float(err))
+    t.solve(q)
+    err = s.closure(q)[0]
+    pose = Pose(joints=mech._values_out(q), links=mech.link_poses(q), converged=err <= 1e-9,
+                residual=float(err), q=q, notes=notes)
+    for name, v in (values or {}).items():
+        pose.joints[name] = float(v)
+    pose.target_error = {name: float(d) for name, d in t.dist.items()}
+    pose.reached = all(d <= REACHED * mech.size for d in pose.target_error.values())
+    return pose
