@@ -57,6 +57,8 @@ REACHED = 1e-6
 CLOSE = 1e-10
 #: ... or the step has shrunk below this (dimensionless: radians or sizes).
 STALL = 1e-11
+#: A refused step this small (dimensionless) is rounding noise: the nearest placement.
+NOISE = 1e-8
 MAX_ITER = 400
 #: First step cap (dimensionless); grows while the closure correction stays tiny.
 FIRST_STEP = 0.2
@@ -305,12 +307,13 @@ class _Targets:
 
     # -- one step -------------------------------------------------------------------------------
     def step(self, q, links, lay, lam, e):
-        """Damped least-squares step over ``lay``'s columns (dimensionless), or None."""
+        """Damped least-squares step over ``lay``'s columns (dimensionless), and the size of
+        its part towards the targets (the rest only closes the loops)."""
         r, A = self.constraints(q, lay)
         J = self.jacobian(q, links, lay)
         n = len(lay.cols)
         if n == 0:
-            return np.zeros(0)
+            return np.zeros(0), 0.0
         if A.shape[0]:
             U, sv, Vt = np.linalg.svd(A, full_matrices=True)
             tol = 1e-9 * max(sv[0] if sv.size else 0.0, 1.0)
@@ -321,12 +324,13 @@ class _Targets:
             du_c = np.zeros(n)
             N = np.eye(n)
         if N.shape[1] == 0:
-            return du_c
+            return du_c, 0.0
         JN = J @ N
         res = e - J @ du_c
         U2, s2, Vt2 = np.linalg.svd(JN, full_matrices=False)
         z = Vt2.T @ ((s2 / (s2 * s2 + lam * lam)) * (U2.T @ res))
-        return du_c + N @ z
+        dt = N @ z
+        return du_c + dt, float(np.abs(dt).max())
 
     def apply(self, q, lay, du):
         self.s._apply(q, lay.cols, lay.rot, du * lay.cs)
@@ -389,17 +393,17 @@ class _Targets:
                 break
             fixed = set()
             lay = self.layout(fixed)
-            du = self.step(q, links, lay, lam, e)
+            du, towards = self.step(q, links, lay, lam, e)
             for _active in range(len(lay.cols) + 1):
                 push = self.at_limit(q, du, lay)
                 if not push:
                     break
                 fixed |= push
                 lay = self.layout(fixed)
-                du = self.step(q, links, lay, lam, e)
-            size = float(np.abs(du).max()) if du.size else 0.0
-            if size < STALL:
+                du, towards = self.step(q, links, lay, lam, e)
+            if towards < STALL:
                 break
+            size = float(np.abs(du).max())
             if size > cap:
                 du = du * (cap / size)
                 size = cap
@@ -430,7 +434,7 @@ class _Targets:
                 else:
                     lam = min(lam * 4.0, LAMBDA_MAX)
                     cap = 0.5 * min(cap, size) if lam >= LAMBDA_MAX else cap
-                if cap < STALL:
+                if cap < STALL or size < NOISE:
                     break
         self.dist = dist
         return steps
