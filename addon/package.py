@@ -23,7 +23,8 @@ import zipfile
 ADDON = pathlib.Path(__file__).resolve().parent
 ROOT = ADDON.parent
 MODULES = ("__init__.py", "properties.py", "scene.py", "operators.py",
-           "panels.py", "bake.py", "handlers.py", "tomlwrite.py", "trace.py")
+           "panels.py", "bake.py", "handlers.py", "tomlwrite.py", "trace.py",
+           "clearance.py", "proximity.py")
 
 
 def project_version():

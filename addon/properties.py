@@ -166,6 +166,19 @@ def register_scene_property():
     bpy.types.Scene.jointwise = PointerProperty(type=JointwiseMechanism)
 
 
+def add_settings(props):
+    """Attach more settings ``{name: property}`` to the scene's mechanism, after the
+    classes are registered (for modules above this one, e.g. the clearance results)."""
+    for name, prop in props.items():
+        setattr(JointwiseMechanism, name, prop)
+
+
+def remove_settings(names):
+    for name in names:
+        if name in JointwiseMechanism.bl_rna.properties:
+            delattr(JointwiseMechanism, name)
+
+
 def unregister_scene_property():
     if hasattr(bpy.types.Scene, "jointwise"):
         del bpy.types.Scene.jointwise

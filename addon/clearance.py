@@ -1,0 +1,718 @@
+"""Clearance along the motion: which link objects touch, and how close the others come.
+
+``jointwise.clearance(frame_start, frame_end, drive, value_from, value_to, gap,
+include_jointed, filepath)`` solves the frames exactly as the bake does (the animated
+joint values, or a ramp of one coordinate; the scene's frame range when none is given)
+without writing keys, then checks every pair of link objects that carry a mesh.
+
+How a pair is checked (all lengths in scene units):
+
+1. Each object's mesh is taken as evaluated (modifiers applied) and placed where it is
+   now; one BVH tree of the host (``mathutils.bvhtree``) is built from it once. At frame
+   ``f`` the object sits at ``Rel(f) = W(f) @ W_now^-1`` (``W``: its world matrix from
+   the solved link displacement, a rigid motion), so the pair's relative placement is
+   ``T(f) = Rel_B(f)^-1 @ Rel_A(f)``: A's points are carried into B's frame and B's tree
+   is reused at every frame.
+2. Bounding spheres first: ``|c_A(f) - c_B| - r_A - r_B`` is a lower bound of the
+   distance. Frames where the spheres do not meet cannot touch.
+3. Overlap at each frame where the spheres meet: A's tree at ``T(f)`` against B's
+   (``BVHTree.overlap``: triangle pairs that intersect), and, for closed surfaces, one
+   point of each inside the other (ray parity), so a part wholly inside another counts.
+   This is exact for the meshes as modelled (up to the trees' single precision).
+4. Smallest distance, when the pair never touches: frames are visited in order of their
+   sphere bound and stop once the bound reaches the best distance found (branch and
+   bound, so the minimum over all frames is found without querying every frame). At a
+   visited frame: each vertex of one mesh to the nearest point of the other's surface
+   (``BVHTree.find_nearest``, both ways, recomputed in double precision on the triangle
+   it returns, Ericson 2005 §5.1.5). That vertex-to-face distance alone may miss an
+   edge-to-edge minimum by less than the longest edge's length, so it is refined: edges
+   of each mesh whose midpoint lies within (distance + half the edge's length) of the
+   other surface are paired and their closest points computed (Ericson, Real-Time
+   Collision Detection, 2005, §5.1.9). With both, the distance is the exact distance
+   between the triangle meshes at the solved frames (the minimum over frames is taken at
+   the frames themselves, not between them).
+
+Results (``scene.jointwise.clearance``) are written only when the whole check is done:
+a failure or a cancel leaves the earlier results, markers and CSV file as they were.
+"""
+from __future__ import annotations
+
+import itertools
+import math
+import os
+import time
+
+import bpy
+import numpy as np
+from bpy.props import (BoolProperty, CollectionProperty, FloatProperty, FloatVectorProperty,
+                       IntProperty, StringProperty)
+from mathutils import Vector
+from mathutils.bvhtree import BVHTree
+
+from . import bake as bk
+from . import properties
+from . import proximity as px
+from . import scene as sc
+from .operators import _Base, _errors
+
+MARKER_PREFIX = "contact "
+CSV_HEADER = ("object_a", "object_b", "min_gap", "min_frame", "contact_frames",
+              "point_a_x", "point_a_y", "point_a_z", "point_b_x", "point_b_y", "point_b_z",
+              "flagged")
+_RAY = Vector((0.5773502, 0.5773503, 0.5773504)).normalized()  # skew, to miss edges
+
+
+class Cancelled(Exception):
+    """The user stopped the check; nothing was written."""
+
+
+# -- solving: the one call into the bake's solving ------------------------------------------------
+
+def solve_motion(scene, frames, ramp=None):
+    """Link displacements ``{link: (N, 4, 4)}`` at ``frames``, solved exactly as the bake
+    solves them, without writing keys. The only call into the bake's solving."""
+    mech = sc.mechanism_from_scene(scene)
+    table = bk.value_table(scene, mech, frames, ramp)
+    solved = bk.solve_frames(scene, mech, frames, table)
+    fail = solved.first_failure()
+    if fail is not None:
+        raise sc.SceneError(f"frame {fail[0]}: {fail[1]}; no clearance results were written")
+    return solved.links
+
+
+# -- the parts --------------------------------------------------------------------------------
+
+class Body:
+    """One link object's mesh, placed where it is now, with its BVH tree."""
+
+    def __init__(self, link, obj, verts, tris, rel):
+        self.link = link
+        self.obj = obj
+        self.name = obj.name
+        self.verts = verts                      # (V, 3) float64, world now
+        self.tris = tris                        # (T, 3)
+        self.rel = rel                          # (N, 4, 4): world at frame = rel @ world now
+        self.edges, _ = px.triangle_edges(tris)
+        self.closed = px.is_closed(tris)
+        self.centre, self.radius = px.bounding_sphere(verts)
+        lengths = np.linalg.norm(verts[self.edges[:, 0]] - verts[self.edges[:, 1]], axis=1)
+        self.half_edge = 0.5 * lengths
+        self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
+        self.tree = BVHTree.FromPolygons(verts.tolist(), tris.tolist())
+
+
+def mesh_arrays(obj, depsgraph):
+    """(vertices (V, 3) world now, triangles (T, 3)) of the evaluated mesh, else None."""
+    if obj.type != 'MESH':
+        return None
+    ev = obj.evaluated_get(depsgraph)
+    me = ev.to_mesh()
+    if me is None:
+        return None
+    try:
+        me.calc_loop_triangles()
+        nv, nt = len(me.vertices), len(me.loop_triangles)
+        if nv == 0 or nt == 0:
+            return None
+        co = np.empty(3 * nv, dtype=np.float32)
+        me.vertices.foreach_get("co", co)
+        tri = np.empty(3 * nt, dtype=np.int32)
+        me.loop_triangles.foreach_get("vertices", tri)
+        world = sc.matrix_host_to_core(ev.matrix_world)
+    finally:
+        ev.to_mesh_clear()
+    return px.transform_points(world, co.reshape(-1, 3).astype(float)), tri.reshape(-1, 3)
+
+
+def jointed_pairs(scene):
+    """Link name pairs joined directly by a joint (frozensets)."""
+    return {frozenset((it.parent, it.child)) for it in scene.jointwise.joints
+            if it.parent and it.child and it.parent != it.child}
+
+
+# -- one pair ---------------------------------------------------------------------------------
+
+def _inside(tree, point, size):
+    """Is ``point`` inside the closed surface of ``tree``? (parity of ray crossings)"""
+    origin = Vector(point)
+    step = 1e-7 * max(size, 1e-9)
+    n = 0
+    for _ in range(100000):
+        loc, _nor, _idx, _dist = tree.ray_cast(origin, _RAY)
+        if loc is None:
+            break
+        n += 1
+        origin = loc + _RAY * step
+    return n % 2 == 1
+
+
+def _nearest_to_surface(points, body, limit):
+    """Smallest distance from ``points`` (body's frame now) to ``body``'s surface, if
+    below ``limit``: (distance, point, point on surface) in double precision, else None."""
+    keep = np.linalg.norm(points - body.centre, axis=1) < body.radius + limit
+    pts = points[keep]
+    if not len(pts):
+        return None
+    find = body.tree.find_nearest
+    hit_p, hit_i = [], []
+    if math.isfinite(limit):
+        lim = limit * (1 + 1e-6) + 1e-9
+        for p in pts.tolist():
+            loc, _n, idx, _d = find(p, lim)
+            if idx is not None:
+                hit_p.append(p)
+                hit_i.append(idx)
+    else:
+        for p in pts.tolist():
+            loc, _n, idx, _d = find(p)
+            if idx is not None:
+                hit_p.append(p)
+                hit_i.append(idx)
+    if not hit_i:
+        return None
+    p = np.asarray(hit_p)
+    t = body.tris[np.asarray(hit_i)]
+    v = body.verts
+    q = px.triangle_closest_points(p, v[t[:, 0]], v[t[:, 1]], v[t[:, 2]])
+    d = np.linalg.norm(p - q, axis=1)
+    k = int(np.argmin(d))
+    if d[k] >= limit:
+        return None
+    return float(d[k]), p[k], q[k]
+
+
+def _near_edges(body_pts, half, other, limit):
+    """Indices of edges (midpoints ``body_pts``, half-lengths ``half``, in ``other``'s
+    frame) that may come within ``limit`` of ``other``'s surface."""
+    reach = limit + half
+    keep = np.flatnonzero(np.linalg.norm(body_pts - other.centre, axis=1) < other.radius + reach)
+    find = other.tree.find_nearest
+    out = []
+    for i, p in zip(keep.tolist(), body_pts[keep].tolist()):
+        if find(p, float(reach[i]) * (1 + 1e-6) + 1e-9)[2] is not None:
+            out.append(i)
+    return np.asarray(out, dtype=np.int64)
+
+
+def _edge_edge(a_pts, a_edges, b_pts, b_edges, limit, chunk=400_000):
+    """Smallest edge-to-edge distance below ``limit``: (d, point on A, point on B) or None."""
+    if not len(a_edges) or not len(b_edges):
+        return None
+    best = None
+    pa, qa = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
+    pb, qb = b_pts[b_edges[:, 0]], b_pts[b_edges[:, 1]]
+    rows = max(1, chunk // len(b_edges))
+    for s in range(0, len(a_edges), rows):
+        d, c1, c2 = px.segment_closest_points(pa[s:s + rows, None], qa[s:s + rows, None], pb[None], qb[None])
+        k = np.unravel_index(int(np.argmin(d)), d.shape)
+        if d[k] < limit and (best is None or d[k] < best[0]):
+            best = (float(d[k]), c1[k], c2[k])
+    return best
+
+
+class PairResult:
+    def __init__(self, a, b):
+        self.a, self.b = a, b
+        self.contact = []           # frames where the pair overlaps
+        self.min_gap = math.inf
+        self.min_frame = None
+        self.point_a = self.point_b = (0.0, 0.0, 0.0)
+
+
+class Timer:
+    def __init__(self):
+        self.solve = self.trees = self.queries = 0.0
+
+
+def check_pair(a, b, frames, timer, limit=math.inf):
+    """Overlap at every frame and smallest distance over the frames for bodies ``a``, ``b``."""
+    res = PairResult(a, b)
+    n = len(frames)
+    # T(f): a's points (world now) -> b's frame now, at frame f
+    t = np.linalg.inv(b.rel) @ a.rel
+    ca = np.einsum("nij,j->ni", t[:, :3, :3], a.centre) + t[:, :3, 3]
+    bound = np.linalg.norm(ca - b.centre, axis=1) - a.radius - b.radius
+    tris_a = a.tris.tolist()
+    size = max(a.radius, b.radius)
+    for i in np.flatnonzero(bound <= 0.0):
+        t0 = time.perf_counter()
+        va = px.transform_points(t[i], a.verts)
+        tree = BVHTree.FromPolygons(va.tolist(), tris_a)
+        t1 = time.perf_counter()
+        pairs = tree.overlap(b.tree)
+        touch = bool(pairs)
+        if not touch and a.closed and b.closed:
+            touch = _inside(b.tree, va[0], size) or _inside(tree, b.verts[0], size)
+        timer.trees += t1 - t0
+        timer.queries += time.perf_counter() - t1
+        if touch:
+            res.contact.append(int(frames[i]))
+            if res.min_frame is None:
+                res.min_gap, res.min_frame = 0.0, int(frames[i])
+                if pairs:
+                    ia, ib = pairs[0]
+                    pa_ = va[a.tris[ia]].mean(axis=0)
+                    pb_ = b.verts[b.tris[ib]].mean(axis=0)
+                else:
+                    pa_ = pb_ = va[0]
+                res.point_a = tuple(px.transform_points(b.rel[i], pa_[None])[0])
+                res.point_b = tuple(px.transform_points(b.rel[i], pb_[None])[0])
+    if res.contact:
+        return res
+    t0 = time.perf_counter()
+    best = limit
+    tinv = np.linalg.inv(t)
+    for i in np.argsort(bound, kind="stable"):
+        if bound[i] >= best:
+            break
+        va = px.transform_points(t[i], a.verts)        # a in b's frame
+        vb = px.transform_points(tinv[i], b.verts)     # b in a's frame
+        found = None
+        r = _nearest_to_surface(va, b, best)
+        if r is not None:
+            found = (r[0], r[1], r[2], b.rel[i])          # a's vertex, b's surface; b's frame
+        r = _nearest_to_surface(vb, a, found[0] if found else best)
+        if r is not None:
+            found = (r[0], r[2], r[1], a.rel[i])          # a's surface, b's vertex; a's frame
+        lim = found[0] if found else best
+        ea = _near_edges(0.5 * (va[a.edges[:, 0]] + va[a.edges[:, 1]]), a.half_edge, b, lim)
+        if len(ea):
+            eb = _near_edges(0.5 * (vb[b.edges[:, 0]] + vb[b.edges[:, 1]]), b.half_edge, a, lim)
+            r = _edge_edge(va, a.edges[ea], b.verts, b.edges[eb], lim)
+            if r is not None:
+                found = (r[0], r[1], r[2], b.rel[i])
+        if found is not None and found[0] < best:
+            best = found[0]
+            res.min_gap, res.min_frame = found[0], int(frames[i])
+            res.point_a = tuple(px.transform_points(found[3], found[1][None])[0])
+            res.point_b = tuple(px.transform_points(found[3], found[2][None])[0])
+    timer.queries += time.perf_counter() - t0
+    if res.min_frame is None:  # nothing below the limit: report the closest sphere bound's frame
+        i = int(np.argmin(bound))
+        res.min_frame = int(frames[i])
+    return res
+
+
+# -- the whole check --------------------------------------------------------------------------
+
+class Check:
+    """The clearance check as a sequence of steps (one per pair), so a modal operator can
+    run it in slices and stop it; nothing is written to the scene until :meth:`apply`."""
+
+    def __init__(self, scene, frames, ramp=None, gap=0.0, include_jointed=False):
+        self.scene = scene
+        self.frames = np.asarray(frames)
+        self.ramp = ramp
+        self.gap = float(gap)
+        self.include_jointed = include_jointed
+        self.timer = Timer()
+        self.notes = []
+        self.results = []
+        self.bodies = []
+        self.pairs = []
+        self.skipped_jointed = 0
+
+    def prepare(self):
+        scene = self.scene
+        jw = scene.jointwise
+        if not jw.links:
+            raise sc.SceneError("the scene has no mechanism: import a mechanism file first")
+        t0 = time.perf_counter()
+        links = solve_motion(scene, self.frames, self.ramp)
+        worlds = sc.world_matrices(scene, links)
+        self.timer.solve += time.perf_counter() - t0
+        t0 = time.perf_counter()
+        depsgraph = bpy.context.evaluated_depsgraph_get()
+        n = len(self.frames)
+        for link in jw.links:
+            obj = sc.link_object(scene, link, required=False)
+            if obj is None:
+                continue  # the world as ground, or an object that is gone (noted below)
+            arrays = mesh_arrays(obj, depsgraph)
+            if arrays is None:
+                self.notes.append(f"link {link.name!r} ({obj.name}) has no mesh: skipped")
+                continue
+            if link.name in worlds:
+                w = worlds[link.name][1]
+                now = sc.matrix_host_to_core(obj.matrix_world)
+                rel = w @ np.linalg.inv(now)
+            else:  # the ground stays where it is
+                rel = np.tile(np.eye(4), (n, 1, 1))
+            if not np.all(np.isfinite(rel)):
+                raise sc.SceneError(f"link {link.name!r}: non-finite placement; no clearance results were written")
+            self.bodies.append(Body(link.name, obj, arrays[0], arrays[1], rel))
+        self.timer.trees += time.perf_counter() - t0
+        joined = jointed_pairs(scene)
+        for a, b in itertools.combinations(self.bodies, 2):
+            if not self.include_jointed and frozenset((a.link, b.link)) in joined:
+                self.skipped_jointed += 1
+                continue
+            self.pairs.append((a, b))
+
+    def steps(self):
+        """Generator: prepares, then checks one pair per step, yielding (done, total)."""
+        self.prepare()
+        total = len(self.pairs)
+        yield 0, total
+        for k, (a, b) in enumerate(self.pairs):
+            # carry the one with fewer vertices (its tree is rebuilt at touching frames)
+            if len(a.verts) > len(b.verts):
+                r = check_pair(b, a, self.frames, self.timer)
+                r.a, r.b = a, b
+                r.point_a, r.point_b = r.point_b, r.point_a
+            else:
+                r = check_pair(a, b, self.frames, self.timer)
+            self.results.append(r)
+            yield k + 1, total
+
+    def run(self, progress=None, stop=None):
+        for done, total in self.steps():
+            if progress is not None:
+                progress(done, total)
+            if stop is not None and stop():
+                raise Cancelled()
+        return self
+
+    def rows(self):
+        """Results worst first: touching pairs (earliest first), then by smallest gap."""
+        out = []
+        for r in self.results:
+            flagged = bool(r.contact) or r.min_gap < self.gap
+            gap = 0.0 if r.contact else r.min_gap
+            out.append(dict(object_a=r.a.name, object_b=r.b.name, link_a=r.a.link, link_b=r.b.link,
+                            min_gap=gap, min_frame=int(r.min_frame), contact=bool(r.contact),
+                            contact_frames=px.contact_text(r.contact),
+                            first_frames=[s for s, _ in px.contact_intervals(r.contact)],
+                            point_a=tuple(float(x) for x in r.point_a),
+                            point_b=tuple(float(x) for x in r.point_b), flagged=flagged))
+        out.sort(key=lambda d: (not d["contact"], d["min_gap"], d["min_frame"], d["object_a"], d["object_b"]))
+        for d in out:
+            if not (math.isfinite(d["min_gap"]) and all(map(math.isfinite, d["point_a"] + d["point_b"]))):
+                raise sc.SceneError(f"pair {d['object_a']} / {d['object_b']}: non-finite distance; "
+                                    f"no clearance results were written")
+        return out
+
+    def summary(self, rows):
+        touching = sum(d["contact"] for d in rows)
+        close = sum(d["flagged"] and not d["contact"] for d in rows)
+        parts = [f"{len(rows)} pairs checked over frames {int(self.frames[0])}-{int(self.frames[-1])}",
+                 f"{touching} touching"]
+        if self.gap > 0:
+            parts.append(f"{close} closer than the gap")
+        if self.skipped_jointed:
+            parts.append(f"{self.skipped_jointed} jointed pairs skipped")
+        return ", ".join(parts)
+
+
+# -- results into the scene ---------------------------------------------------------------------
+
+def write_csv(path, rows):
+    """The results as CSV (scene units), written atomically."""
+    px.write_csv_atomic(path, CSV_HEADER, (
+        [d["object_a"], d["object_b"], repr(d["min_gap"]), d["min_frame"], d["contact_frames"],
+         *(repr(x) for x in d["point_a"]), *(repr(x) for x in d["point_b"]), int(d["flagged"])]
+        for d in rows))
+
+
+def apply(scene, rows, note=""):
+    """Replace the scene's clearance results and contact markers by ``rows``."""
+    jw = scene.jointwise
+    jw.clearance.clear()
+    for d in rows:
+        it = jw.clearance.add()
+        it.name = f"{d['object_a']} / {d['object_b']}"
+        it.object_a, it.object_b = d["object_a"], d["object_b"]
+        it.link_a, it.link_b = d["link_a"], d["link_b"]
+        it.min_gap = d["min_gap"]
+        it.min_frame = d["min_frame"]
+        it.contact_frames = d["contact_frames"]
+        it.point_a, it.point_b = d["point_a"], d["point_b"]
+        it.contact, it.flagged = d["contact"], d["flagged"]
+    remove_markers(scene)
+    for d in rows:
+        for f in d["first_frames"]:
+            scene.timeline_markers.new(f"{MARKER_PREFIX}{d['object_a']} / {d['object_b']}", frame=f)
+    jw.clearance_note = note
+    jw.clearance_index = -1
+
+
+def remove_markers(scene):
+    for m in [m for m in scene.timeline_markers if m.name.startswith(MARKER_PREFIX)]:
+        scene.timeline_markers.remove(m)
+
+
+def show_pair(scene, item, context=None):
+    """Jump to the item's frame and select its two objects (A active)."""
+    scene.frame_set(int(item.min_frame))
+    objs = [scene.objects.get(item.object_a), scene.objects.get(item.object_b)]
+    if not all(objs):
+        return False
+    view_layer = context.view_layer if context is not None else bpy.context.view_layer
+    for o in view_layer.objects:
+        if o.select_get(view_layer=view_layer):
+            o.select_set(False, view_layer=view_layer)
+    for o in objs:
+        if o.name in view_layer.objects:
+            o.select_set(True, view_layer=view_layer)
+    if objs[0].name in view_layer.objects:
+        view_layer.objects.active = objs[0]
+    return True
+
+
+def _index_update(self, context):
+    jw = self
+    if 0 <= jw.clearance_index < len(jw.clearance):
+        show_pair(context.scene, jw.clearance[jw.clearance_index], context)
+
+
+def length_text(scene, value):
+    """A scene length in the scene's display unit (the host's own unit formatting)."""
+    us = scene.unit_settings
+    try:
+        return bpy.utils.units.to_string(us.system, 'LENGTH', value * us.scale_length, precision=4)
+    except (TypeError, ValueError, AttributeError):
+        return f"{value:.6g}"
+
+
+# -- properties ------------------------------------------------------------------------------
+
+class JointwiseClearancePair(bpy.types.PropertyGroup):
+    """One checked pair of link objects (lengths in scene units)."""
+    object_a: StringProperty(name="Object A")
+    object_b: StringProperty(name="Object B")
+    link_a: StringProperty(name="Link A")
+    link_b: StringProperty(name="Link B")
+    min_gap: FloatProperty(name="Smallest gap", subtype='DISTANCE', unit='LENGTH', precision=6,
+                           description="Smallest distance over the frames (0 while overlapping)")
+    min_frame: IntProperty(name="Frame", description="Frame of the smallest gap (first contact if touching)")
+    contact_frames: StringProperty(name="Contact frames", description="Frames where the two overlap, e.g. 12-18, 40")
+    point_a: FloatVectorProperty(name="Point on A", size=3, subtype='XYZ', unit='LENGTH',
+                                 description="World point on A at the frame of the smallest gap")
+    point_b: FloatVectorProperty(name="Point on B", size=3, subtype='XYZ', unit='LENGTH',
+                                 description="World point on B at the frame of the smallest gap")
+    contact: BoolProperty(name="Touching")
+    flagged: BoolProperty(name="Flagged", description="Touching, or closer than the gap asked for")
+
+
+SETTINGS = {
+    "clearance": lambda: CollectionProperty(type=JointwiseClearancePair),
+    "clearance_index": lambda: IntProperty(name="Active pair", default=-1, update=_index_update),
+    "clearance_note": lambda: StringProperty(name="Clearance note", default=""),
+}
+
+
+# -- operators and panel -------------------------------------------------------------------------
+
+class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
+    """Solve the motion over a frame range (no keys written) and check every pair of link
+    meshes for overlap and smallest distance"""
+    bl_idname = "jointwise.clearance"
+    bl_label = "Check Clearance"
+    frame_start: IntProperty(name="Start", default=1)
+    frame_end: IntProperty(name="End", default=250)
+    drive: StringProperty(name="Ramp coordinate", default="",
+                          description="Optional: run this coordinate linearly from a value to a value")
+    value_from: FloatProperty(name="From", default=0.0)
+    value_to: FloatProperty(name="To", default=0.0)
+    gap: FloatProperty(name="Gap", default=0.0, min=0.0, subtype='DISTANCE', unit='LENGTH',
+                       description="Also flag pairs that come closer than this (scene units)")
+    include_jointed: BoolProperty(name="Include jointed pairs", default=False,
+                                  description="Also check pairs joined directly by a joint (they touch by design)")
+    filepath: StringProperty(name="CSV file", default="", subtype='FILE_PATH',
+                             description="Optional: also write the results to this CSV file")
+
+    _timer = None
+    _job = None
+
+    def _check(self, context):
+        scene = context.scene
+        p = self.properties
+        start = self.frame_start if p.is_property_set("frame_start") else scene.frame_start
+        end = self.frame_end if p.is_property_set("frame_end") else scene.frame_end
+        self.frame_start, self.frame_end = start, end
+        if end < start:
+            raise sc.SceneError(f"frame range {start}..{end} is empty")
+        if not (math.isfinite(self.gap) and self.gap >= 0):
+            raise sc.SceneError("gap must be a finite length of 0 or more")
+        ramp = None
+        if self.drive:
+            if self.drive not in scene.jointwise.joints:
+                raise sc.SceneError(f"ramp coordinate {self.drive!r} is not a joint coordinate")
+            if not (math.isfinite(self.value_from) and math.isfinite(self.value_to)):
+                raise sc.SceneError("ramp values must be finite")
+            ramp = (self.drive, self.value_from, self.value_to)
+        return Check(scene, np.arange(start, end + 1), ramp, self.gap, self.include_jointed)
+
+    def _finish(self, context, check):
+        scene = context.scene
+        rows = check.rows()
+        if self.filepath:
+            path = bpy.path.abspath(self.filepath)
+            try:
+                write_csv(path, rows)
+            except OSError as exc:
+                return self.fail(f"cannot write {path}: {exc}; no clearance results were written")
+        note = "; ".join(check.notes)
+        apply(scene, rows, note)
+        t = check.timer
+        msg = (f"{check.summary(rows)} (solve {t.solve:.2f} s, trees {t.trees:.2f} s, "
+               f"queries {t.queries:.2f} s)")
+        self.report({'INFO'}, msg)
+        for n in check.notes:
+            self.report({'WARNING'}, n)
+        return {'FINISHED'}
+
+    def run(self, context):
+        wm = context.window_manager
+        try:
+            check = self._check(context)
+            wm.progress_begin(0, 1)
+            try:
+                check.run(progress=lambda d, t: wm.progress_update(d / max(t, 1)))
+            finally:
+                wm.progress_end()
+        except _errors() as exc:
+            return self.fail(f"clearance check failed: {exc}")
+        return self._finish(context, check)
+
+    def invoke(self, context, event):
+        if context.window is None or bpy.app.background:
+            return self.execute(context)
+        try:
+            self._job_check = self._check(context)
+            self._job = self._job_check.steps()
+        except _errors() as exc:
+            return self.fail(f"clearance check failed: {exc}")
+        wm = context.window_manager
+        wm.progress_begin(0, 1)
+        self._timer = wm.event_timer_add(0.01, window=context.window)
+        wm.modal_handler_add(self)
+        context.workspace.status_text_set("Checking clearance: Esc to stop")
+        return {'RUNNING_MODAL'}
+
+    def _end(self, context):
+        wm = context.window_manager
+        if self._timer is not None:
+            wm.event_timer_remove(self._timer)
+            self._timer = None
+        wm.progress_end()
+        context.workspace.status_text_set(None)
+        if self._job is not None:
+            self._job.close()
+            self._job = None
+
+    def modal(self, context, event):
+        if event.type == 'ESC':
+            self._end(context)
+            self.report({'WARNING'}, "clearance check stopped; earlier results kept")
+            return {'CANCELLED'}
+        if event.type != 'TIMER':
+            return {'PASS_THROUGH'}
+        wm = context.window_manager
+        t_end = time.perf_counter() + 0.1
+        try:
+            while time.perf_counter() < t_end:
+                done, total = next(self._job)
+                wm.progress_update(done / max(total, 1))
+        except StopIteration:
+            check = self._job_check
+            self._end(context)
+            return self._finish(context, check)
+        except Exception as exc:  # noqa: BLE001 - reported, nothing written
+            self._end(context)
+            if not isinstance(exc, _errors()):
+                import traceback
+                traceback.print_exc()
+            return self.fail(f"clearance check failed: {exc}")
+        return {'RUNNING_MODAL'}
+
+    def cancel(self, context):
+        self._end(context)
+
+
+class JOINTWISE_OT_clearance_show(_Base, bpy.types.Operator):
+    """Go to the frame of this pair's smallest gap and select the two objects"""
+    bl_idname = "jointwise.clearance_show"
+    bl_label = "Show Pair"
+    index: IntProperty(name="Index", default=0)
+
+    def run(self, context):
+        jw = context.scene.jointwise
+        if not 0 <= self.index < len(jw.clearance):
+            return self.fail(f"no clearance result number {self.index}")
+        if not show_pair(context.scene, jw.clearance[self.index], context):
+            return self.fail("one of the pair's objects is no longer in the scene")
+        return {'FINISHED'}
+
+
+class JOINTWISE_OT_clearance_clear(_Base, bpy.types.Operator):
+    """Remove the clearance results and their timeline markers"""
+    bl_idname = "jointwise.clearance_clear"
+    bl_label = "Clear Clearance Results"
+
+    def run(self, context):
+        scene = context.scene
+        scene.jointwise.clearance.clear()
+        scene.jointwise.clearance_note = ""
+        remove_markers(scene)
+        return {'FINISHED'}
+
+
+def item_text(scene, it):
+    if it.contact:
+        return f"{it.object_a} / {it.object_b}: touching at {it.contact_frames}"
+    return f"{it.object_a} / {it.object_b}: {length_text(scene, it.min_gap)} at frame {it.min_frame}"
+
+
+class JOINTWISE_UL_clearance(bpy.types.UIList):
+    """One row per checked pair, worst first (the collection is kept in that order)."""
+
+    def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
+        row = layout.row(align=True)
+        icon = 'ERROR' if item.contact else ('INFO' if item.flagged else 'CHECKMARK')
+        row.label(text=item_text(context.scene, item), icon=icon)
+        row.operator("jointwise.clearance_show", text="", icon='RESTRICT_SELECT_OFF', emboss=False).index = index
+
+
+class JOINTWISE_PT_clearance(bpy.types.Panel):
+    """Checked pairs, worst first; click one to go to its frame and select the pair."""
+    bl_space_type = 'VIEW_3D'
+    bl_region_type = 'UI'
+    bl_category = "Jointwise"
+    bl_label = "Clearance"
+    bl_options = {'DEFAULT_CLOSED'}
+
+    def draw(self, context):
+        layout = self.layout
+        scene = context.scene
+        jw = scene.jointwise
+        row = layout.row(align=True)
+        row.operator("jointwise.clearance", text="Check Clearance", icon='MOD_PHYSICS')
+        row.operator("jointwise.clearance_clear", text="", icon='X')
+        if not len(jw.clearance):
+            layout.label(text="No results yet")
+        else:
+            layout.template_list("JOINTWISE_UL_clearance", "", jw, "clearance", jw, "clearance_index", rows=4)
+            if 0 <= jw.clearance_index < len(jw.clearance):
+                it = jw.clearance[jw.clearance_index]
+                box = layout.box()
+                box.label(text=item_text(scene, it))
+                a = ", ".join(length_text(scene, v) for v in it.point_a)
+                b = ", ".join(length_text(scene, v) for v in it.point_b)
+                box.label(text=f"on {it.object_a}: {a}")
+                box.label(text=f"on {it.object_b}: {b}")
+        if jw.clearance_note:
+            layout.label(text=jw.clearance_note, icon='INFO')
+
+
+CLASSES = (JointwiseClearancePair, JOINTWISE_OT_clearance, JOINTWISE_OT_clearance_show,
+           JOINTWISE_OT_clearance_clear, JOINTWISE_UL_clearance, JOINTWISE_PT_clearance)
+
+
+def register():
+    """After the classes: the results on the scene's mechanism settings."""
+    properties.add_settings({k: make() for k, make in SETTINGS.items()})
+
+
+def unregister():
+    properties.remove_settings(SETTINGS)

