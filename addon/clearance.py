@@ -98,6 +98,7 @@ class Body:
         lengths = np.linalg.norm(verts[self.edges[:, 0]] - verts[self.edges[:, 1]], axis=1)
         self.half_edge = 0.5 * lengths
         self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
+        self.group_centres, self.group_radii = px.sphere_clusters(verts, tris)
         self.tree = BVHTree.FromPolygons(verts.tolist(), tris.tolist())
 
 
@@ -146,68 +147,83 @@ def _inside(tree, point, size):
     return n % 2 == 1
 
 
-def _nearest_to_surface(points, body, limit):
-    """Smallest distance from ``points`` (body's frame now) to ``body``'s surface, if
-    below ``limit``: (distance, point, point on surface) in double precision, else None."""
-    keep = np.linalg.norm(points - body.centre, axis=1) < body.radius + limit
-    pts = points[keep]
-    if not len(pts):
-        return None
+def _vertex_distances(points, body, limit):
+    """Distance of each of ``points`` (in ``body``'s frame now) to ``body``'s surface
+    where it is below ``limit``, else inf; with the nearest surface points. Recomputed in
+    double precision on the triangle the tree returns (Ericson 2005, §5.1.5)."""
+    n = len(points)
+    dist = np.full(n, math.inf)
+    near = np.zeros((n, 3))
+    keep = np.flatnonzero(px.point_gaps(points, body.group_centres, body.group_radii) < limit)
+    if not len(keep):
+        return dist, near
     find = body.tree.find_nearest
-    hit_p, hit_i = [], []
+    ks, ids = [], []
     if math.isfinite(limit):
         lim = limit * (1 + 1e-6) + 1e-9
-        for p in pts.tolist():
-            loc, _n, idx, _d = find(p, lim)
+        for k, p in zip(keep.tolist(), points[keep].tolist()):
+            idx = find(p, lim)[2]
             if idx is not None:
-                hit_p.append(p)
-                hit_i.append(idx)
+                ks.append(k)
+                ids.append(idx)
     else:
-        for p in pts.tolist():
-            loc, _n, idx, _d = find(p)
+        for k, p in zip(keep.tolist(), points[keep].tolist()):
+            idx = find(p)[2]
             if idx is not None:
-                hit_p.append(p)
-                hit_i.append(idx)
-    if not hit_i:
+                ks.append(k)
+                ids.append(idx)
+    if ks:
+        ks = np.asarray(ks)
+        t = body.tris[np.asarray(ids)]
+        v = body.verts
+        p = points[ks]
+        q = px.triangle_closest_points(p, v[t[:, 0]], v[t[:, 1]], v[t[:, 2]])
+        d = np.linalg.norm(p - q, axis=1)
+        ok = d < limit
+        dist[ks[ok]] = d[ok]
+        near[ks[ok]] = q[ok]
+    return dist, near
+
+
+def _edge_edge(a_pts, a_edges, b, limit):
+    """Smallest distance below ``limit`` between an edge of ``a_edges`` (points
+    ``a_pts``, in b's frame) and an edge of ``b``: (d, point on A, point on B) or None.
+
+    B's candidate edges for an edge of A are those of B's triangles within ``limit`` +
+    half the edge's length of its midpoint (``BVHTree.find_nearest_range``): a closer
+    pair has its point on B's edge that near. Closest points between the segments:
+    Ericson, Real-Time Collision Detection (2005), §5.1.9."""
+    if not len(a_edges):
         return None
-    p = np.asarray(hit_p)
-    t = body.tris[np.asarray(hit_i)]
-    v = body.verts
-    q = px.triangle_closest_points(p, v[t[:, 0]], v[t[:, 1]], v[t[:, 2]])
-    d = np.linalg.norm(p - q, axis=1)
+    p, q = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
+    mid = 0.5 * (p + q)
+    reach = limit + 0.5 * np.linalg.norm(q - p, axis=1)
+    rng = b.tree.find_nearest_range
+    ia, tb = [], []
+    for k, (m, r) in enumerate(zip(mid.tolist(), reach.tolist())):
+        hits = rng(m, r * (1 + 1e-6) + 1e-9)
+        if hits:
+            ia.extend([k] * len(hits))
+            tb.extend(h[2] for h in hits)
+    if not ia:
+        return None
+    ia = np.repeat(np.asarray(ia), 3)
+    tri = b.tris[np.asarray(tb)]
+    e0 = tri.reshape(-1)
+    e1 = tri[:, [1, 2, 0]].reshape(-1)
+    pb, qb = b.verts[e0], b.verts[e1]
+    # midpoints farther apart than the limit plus both half-lengths cannot be closer
+    gap = (np.linalg.norm(mid[ia] - 0.5 * (pb + qb), axis=1) - (reach[ia] - limit)
+           - 0.5 * np.linalg.norm(qb - pb, axis=1))
+    keep = gap < limit
+    if not keep.any():
+        return None
+    ia, pb, qb = ia[keep], pb[keep], qb[keep]
+    d, c1, c2 = px.segment_closest_points(p[ia], q[ia], pb, qb)
     k = int(np.argmin(d))
-    if d[k] >= limit:
-        return None
-    return float(d[k]), p[k], q[k]
-
-
-def _near_edges(body_pts, half, other, limit):
-    """Indices of edges (midpoints ``body_pts``, half-lengths ``half``, in ``other``'s
-    frame) that may come within ``limit`` of ``other``'s surface."""
-    reach = limit + half
-    keep = np.flatnonzero(np.linalg.norm(body_pts - other.centre, axis=1) < other.radius + reach)
-    find = other.tree.find_nearest
-    out = []
-    for i, p in zip(keep.tolist(), body_pts[keep].tolist()):
-        if find(p, float(reach[i]) * (1 + 1e-6) + 1e-9)[2] is not None:
-            out.append(i)
-    return np.asarray(out, dtype=np.int64)
-
-
-def _edge_edge(a_pts, a_edges, b_pts, b_edges, limit, chunk=400_000):
-    """Smallest edge-to-edge distance below ``limit``: (d, point on A, point on B) or None."""
-    if not len(a_edges) or not len(b_edges):
-        return None
-    best = None
-    pa, qa = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
-    pb, qb = b_pts[b_edges[:, 0]], b_pts[b_edges[:, 1]]
-    rows = max(1, chunk // len(b_edges))
-    for s in range(0, len(a_edges), rows):
-        d, c1, c2 = px.segment_closest_points(pa[s:s + rows, None], qa[s:s + rows, None], pb[None], qb[None])
-        k = np.unravel_index(int(np.argmin(d)), d.shape)
-        if d[k] < limit and (best is None or d[k] < best[0]):
-            best = (float(d[k]), c1[k], c2[k])
-    return best
+    if d[k] < limit:
+        return float(d[k]), c1[k], c2[k]
+    return None
 
 
 class PairResult:
@@ -217,6 +233,7 @@ class PairResult:
         self.min_gap = math.inf
         self.min_frame = None
         self.point_a = self.point_b = (0.0, 0.0, 0.0)
+        self.visited = 0            # frames whose distance or overlap was computed
 
 
 class Timer:
@@ -224,72 +241,119 @@ class Timer:
         self.solve = self.trees = self.queries = 0.0
 
 
-def check_pair(a, b, frames, timer, limit=math.inf):
-    """Overlap at every frame and smallest distance over the frames for bodies ``a``, ``b``."""
+def _upper_bound(a, b, va):
+    """A distance between a point of A and a point of B (so at least the smallest one):
+    the vertex of A nearest to B's groups, to its nearest point on B."""
+    k = int(np.argmin(px.point_gaps(va, b.group_centres, b.group_radii)))
+    idx = b.tree.find_nearest(va[k].tolist())[2]
+    t = b.tris[idx]
+    q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
+    return float(np.linalg.norm(va[k] - q))
+
+
+def _distance(a, b, va, vb, limit):
+    """Distance between ``a`` (points ``va``, in b's frame) and ``b`` (``vb``: b's points
+    in a's frame) when below ``limit``: (d, point on A, point on B, frame) with the
+    frame 'b' or 'a' the points are in, else None.
+
+    Vertex-to-face both ways (vertex distances taken up to ``limit`` + the longest edge),
+    then edge to edge for the edges of A that can still be closer than that."""
+    if not math.isfinite(limit):
+        limit = _upper_bound(a, b, va) * (1 + 1e-9) + 1e-12
+    reach = limit + max(a.longest_edge, b.longest_edge)
+    da, qa = _vertex_distances(va, b, reach)
+    db, qb = _vertex_distances(vb, a, reach)
+    found = None
+    ka, kb = int(np.argmin(da)), int(np.argmin(db))
+    if da[ka] < limit and da[ka] <= db[kb]:
+        found = (float(da[ka]), va[ka], qa[ka], "b")
+    elif db[kb] < limit:
+        found = (float(db[kb]), qb[kb], vb[kb], "a")
+    lim = found[0] if found else limit
+    # an edge closer than ``lim`` has both ends within ``lim`` + its length (known: the
+    # vertex distances above reach that far)
+    length = 2 * a.half_edge
+    near = (da[a.edges[:, 0]] < lim + length) & (da[a.edges[:, 1]] < lim + length)
+    r = _edge_edge(va, a.edges[near], b, lim)
+    if r is not None:
+        found = (r[0], r[1], r[2], "b")
+    return found
+
+
+def check_pair(a, b, frames, timer):
+    """Overlap at every frame and smallest distance over the frames for bodies ``a``, ``b``.
+
+    Frames are visited lowest lower bound first. The bound of a frame starts as the
+    bounding spheres' gap and is raised by every frame ``g`` whose distance ``d_g`` is
+    known: between two frames no point of A moves relative to B by more than
+    ``|c(f) - c(g)| + |R(f) - R(g)|_F r_A`` (centre and rotation of A in B's frame), and
+    distance changes no faster than the points move. Frames whose bound is above zero
+    cannot touch; frames whose bound is above the best distance cannot hold the
+    minimum. So every frame is decided without querying most of them."""
     res = PairResult(a, b)
+    t = np.linalg.inv(b.rel) @ a.rel                       # a (world now) -> b's frame now
+    tinv = np.linalg.inv(t)                                # b (world now) -> a's frame now
+    rot = t[:, :3, :3]
+    ca = np.einsum("nij,j->ni", rot, a.centre) + t[:, :3, 3]
+    cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
+    groups = np.einsum("nij,kj->nki", rot, a.group_centres) + t[:, None, :3, 3]
+    low = px.cluster_gaps(groups, a.group_radii, b.group_centres, b.group_radii)
     n = len(frames)
-    # T(f): a's points (world now) -> b's frame now, at frame f
-    t = np.linalg.inv(b.rel) @ a.rel
-    ca = np.einsum("nij,j->ni", t[:, :3, :3], a.centre) + t[:, :3, 3]
-    bound = np.linalg.norm(ca - b.centre, axis=1) - a.radius - b.radius
+    undecided = np.ones(n, dtype=bool)
     tris_a = a.tris.tolist()
     size = max(a.radius, b.radius)
-    for i in np.flatnonzero(bound <= 0.0):
-        t0 = time.perf_counter()
-        va = px.transform_points(t[i], a.verts)
-        tree = BVHTree.FromPolygons(va.tolist(), tris_a)
-        t1 = time.perf_counter()
-        pairs = tree.overlap(b.tree)
-        touch = bool(pairs)
-        if not touch and a.closed and b.closed:
-            touch = _inside(b.tree, va[0], size) or _inside(tree, b.verts[0], size)
-        timer.trees += t1 - t0
-        timer.queries += time.perf_counter() - t1
-        if touch:
-            res.contact.append(int(frames[i]))
-            if res.min_frame is None:
-                res.min_gap, res.min_frame = 0.0, int(frames[i])
-                if pairs:
-                    ia, ib = pairs[0]
-                    pa_ = va[a.tris[ia]].mean(axis=0)
-                    pb_ = b.verts[b.tris[ib]].mean(axis=0)
-                else:
-                    pa_ = pb_ = va[0]
-                res.point_a = tuple(px.transform_points(b.rel[i], pa_[None])[0])
-                res.point_b = tuple(px.transform_points(b.rel[i], pb_[None])[0])
-    if res.contact:
-        return res
-    t0 = time.perf_counter()
-    best = limit
-    tinv = np.linalg.inv(t)
-    for i in np.argsort(bound, kind="stable"):
-        if bound[i] >= best:
+    best = math.inf
+    while True:
+        need = undecided & ((low <= 0.0) | (low < best))
+        if not need.any():
             break
-        va = px.transform_points(t[i], a.verts)        # a in b's frame
-        vb = px.transform_points(tinv[i], b.verts)     # b in a's frame
-        found = None
-        r = _nearest_to_surface(va, b, best)
-        if r is not None:
-            found = (r[0], r[1], r[2], b.rel[i])          # a's vertex, b's surface; b's frame
-        r = _nearest_to_surface(vb, a, found[0] if found else best)
-        if r is not None:
-            found = (r[0], r[2], r[1], a.rel[i])          # a's surface, b's vertex; a's frame
-        lim = found[0] if found else best
-        ea = _near_edges(0.5 * (va[a.edges[:, 0]] + va[a.edges[:, 1]]), a.half_edge, b, lim)
-        if len(ea):
-            eb = _near_edges(0.5 * (vb[b.edges[:, 0]] + vb[b.edges[:, 1]]), b.half_edge, a, lim)
-            r = _edge_edge(va, a.edges[ea], b.verts, b.edges[eb], lim)
-            if r is not None:
-                found = (r[0], r[1], r[2], b.rel[i])
+        i = int(np.argmin(np.where(need, low, np.inf)))
+        undecided[i] = False
+        res.visited += 1
+        va = px.transform_points(t[i], a.verts)              # a in b's frame
+        if low[i] <= 0.0:
+            t0 = time.perf_counter()
+            tree = BVHTree.FromPolygons(va.tolist(), tris_a)
+            t1 = time.perf_counter()
+            pairs = tree.overlap(b.tree)
+            touch = bool(pairs)
+            if not touch and a.closed and b.closed:
+                touch = _inside(b.tree, va[0], size) or _inside(tree, b.verts[0], size)
+            timer.trees += t1 - t0
+            timer.queries += time.perf_counter() - t1
+            if touch:
+                res.contact.append(int(frames[i]))
+                if best > 0.0 or int(frames[i]) < res.min_frame:
+                    best = 0.0
+                    res.min_gap, res.min_frame = 0.0, int(frames[i])
+                    if pairs:
+                        ia, ib = pairs[0]
+                        pa_, pb_ = va[a.tris[ia]].mean(axis=0), b.verts[b.tris[ib]].mean(axis=0)
+                    else:
+                        pa_ = pb_ = va[0]
+                    res.point_a = tuple(px.transform_points(b.rel[i], pa_[None])[0])
+                    res.point_b = tuple(px.transform_points(b.rel[i], pb_[None])[0])
+                continue
+        t0 = time.perf_counter()
+        vb = px.transform_points(tinv[i], b.verts)           # b in a's frame
+        limit = best if best > 0.0 else math.inf
+        found = _distance(a, b, va, vb, limit)
+        d = found[0] if found else limit
         if found is not None and found[0] < best:
             best = found[0]
+            rel = b.rel[i] if found[3] == "b" else a.rel[i]
             res.min_gap, res.min_frame = found[0], int(frames[i])
-            res.point_a = tuple(px.transform_points(found[3], found[1][None])[0])
-            res.point_b = tuple(px.transform_points(found[3], found[2][None])[0])
-    timer.queries += time.perf_counter() - t0
-    if res.min_frame is None:  # nothing below the limit: report the closest sphere bound's frame
-        i = int(np.argmin(bound))
-        res.min_frame = int(frames[i])
+            res.point_a = tuple(px.transform_points(rel, found[1][None])[0])
+            res.point_b = tuple(px.transform_points(rel, found[2][None])[0])
+        if math.isfinite(d):
+            turn = np.linalg.norm(rot - rot[i], axis=(1, 2))
+            move = np.minimum(np.linalg.norm(ca - ca[i], axis=1) + turn * a.radius,
+                              np.linalg.norm(cb - cb[i], axis=1) + turn * b.radius)
+            low = np.maximum(low, d - move)
+        timer.queries += time.perf_counter() - t0
+    res.contact.sort()
+    if res.min_frame is None:  # cannot happen with finite meshes; keep the result defined
+        res.min_frame = int(frames[int(np.argmin(low))])
     return res
 
 

@@ -202,3 +202,50 @@ def write_csv_atomic(path, header, rows):
         except OSError:
             pass
         raise
+
+
+# -- bounds ---------------------------------------------------------------------------------------
+
+def sphere_clusters(verts, tris, leaf=None, max_leaves=16):
+    """Split a triangle mesh into up to ``max_leaves`` groups of nearby triangles (median
+    cuts of the triangles' centroids along the widest axis) and bound each group by a
+    sphere: centres ``(K, 3)`` and radii ``(K,)``. Every triangle lies in its group's
+    sphere, so ``min |c_i - c_j| - r_i - r_j`` over two meshes' groups is a lower bound
+    of the distance between the meshes (negative: they may touch)."""
+    verts = np.asarray(verts, dtype=float)
+    tris = np.asarray(tris, dtype=np.int64).reshape(-1, 3)
+    cent = verts[tris].mean(axis=1)
+    leaf = leaf or max(1, -(-len(tris) // max_leaves))
+    groups = [np.arange(len(tris))]
+    while True:
+        k = max(range(len(groups)), key=lambda i: len(groups[i]))
+        if len(groups[k]) <= leaf or len(groups) >= max_leaves:
+            break
+        g = groups.pop(k)
+        c = cent[g]
+        axis = int(np.argmax(c.max(axis=0) - c.min(axis=0)))
+        order = g[np.argsort(c[:, axis], kind="stable")]
+        half = len(order) // 2
+        groups += [order[:half], order[half:]]
+    centres, radii = [], []
+    for g in groups:
+        pts = verts[np.unique(tris[g])]
+        c, r = bounding_sphere(pts)
+        centres.append(c)
+        radii.append(r)
+    return np.array(centres), np.array(radii)
+
+
+def cluster_gaps(ca, ra, cb, rb):
+    """Lower bound of the distance between two meshes from their groups' spheres:
+    ``ca`` ``(..., Ka, 3)`` (may carry a leading stack of placements), ``cb`` ``(Kb, 3)``;
+    returns ``(...)``."""
+    d = np.linalg.norm(np.asarray(ca)[..., :, None, :] - cb, axis=-1)
+    return (d - ra[:, None] - rb[None, :]).min(axis=(-2, -1))
+
+
+def point_gaps(points, centres, radii):
+    """Lower bound of each point's distance to a mesh from its groups' spheres, ``(N,)``."""
+    d = np.linalg.norm(np.asarray(points)[:, None, :] - centres[None], axis=2) - radii[None]
+    return d.min(axis=1)
+

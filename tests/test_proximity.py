@@ -142,3 +142,30 @@ def test_write_csv_atomic(tmp_path):
         px.write_csv_atomic(path, ["a", "b"], Boom())
     assert path.read_text().splitlines() == ["a,b", "1,2.5", "x,y"]  # earlier file kept
     assert sorted(os.listdir(tmp_path)) == ["gaps.csv"]  # no temporary left behind
+
+
+def test_sphere_clusters_bound_every_triangle_and_the_distance():
+    rng = np.random.default_rng(5)
+    va = rng.normal(size=(300, 3))
+    ta = rng.integers(0, 300, size=(500, 3))
+    vb = rng.normal(size=(200, 3)) + [6.0, 0, 0]
+    tb = rng.integers(0, 200, size=(300, 3))
+    ca, ra = px.sphere_clusters(va, ta)
+    cb, rb = px.sphere_clusters(vb, tb)
+    assert len(ca) <= 16 and len(cb) <= 16
+    # every vertex used by a triangle lies in some group's sphere
+    used = np.unique(ta)
+    inside = np.linalg.norm(va[used][:, None] - ca[None], axis=2) <= ra[None] + 1e-12
+    assert inside.any(axis=1).all()
+    # the groups' bound is below the true smallest vertex distance (a distance between
+    # points on the two meshes, so an upper bound of the mesh distance)
+    low = px.cluster_gaps(ca, ra, cb, rb)
+    true_upper = np.linalg.norm(va[used][:, None] - vb[np.unique(tb)][None], axis=2).min()
+    assert low <= true_upper
+    # stacked placements give the same as one at a time
+    stack = np.stack([ca, ca + 1.0])
+    np.testing.assert_allclose(px.cluster_gaps(stack, ra, cb, rb),
+                               [px.cluster_gaps(ca, ra, cb, rb), px.cluster_gaps(ca + 1.0, ra, cb, rb)])
+    pg = px.point_gaps(va[:5], cb, rb)
+    np.testing.assert_allclose(pg, (np.linalg.norm(va[:5, None] - cb[None], axis=2) - rb).min(axis=1))
+

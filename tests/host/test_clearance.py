@@ -267,3 +267,198 @@ def test_cancelled_run_writes_nothing(fresh, tmp_path):
     with pytest.raises(RuntimeError, match="frame"):
         bpy.ops.jointwise.clearance(frame_start=1, frame_end=10)
     assert [(it.name, it.min_gap, it.min_frame, it.contact_frames) for it in jw.clearance] == before
+
+
+def test_edge_to_edge_minimum_found(fresh, tmp_path):
+    # Left turned 45 deg about Z: its +X extreme is a vertical edge at x = sqrt(2)/2.
+    # Right turned 45 deg about Y: its -X extreme is an edge along Y at x = c - sqrt(2)/2.
+    # The two edges cross at right angles, so by hand the smallest distance is
+    # c - sqrt(2), between the edges' middles, while every vertex is much farther
+    # (vertex-to-face alone would report about 0.42 for c - sqrt(2) = 0.1).
+    c = math.sqrt(2) + 0.1
+    left = ws.cube("Left", (0, 0, 0), turn=math.pi / 4)
+    right = ws.cube("Right", (3, 0, 0))
+    right.rotation_euler = (0, math.pi / 4, 0)
+    bpy.context.view_layer.update()
+    path = tmp_path / "bench.toml"
+    path.write_text(BENCH.format(links="", joints=""))
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    jw = fresh.jointwise
+    # slide value 0 -> c - 3 - 0.2 over frames 1..5, then a check over 1..4: at frame 4
+    # Right's centre is at 3 + 3/4 (c - 3.2) ... by hand: x(f) = 3 + (f - 1) (c - 3.2) / 4
+    x = [3 + (f - 1) * (c - 3.2) / 4 for f in range(1, 6)]
+    r = bpy.ops.jointwise.clearance(frame_start=1, frame_end=5, drive="s", value_from=0.0,
+                                    value_to=c - 3.2)
+    assert r == {"FINISHED"}
+    it = pair(jw, "Left", "Right")
+    # frame 5: centre at c - 0.2, so the edges would overlap by 0.1: contact at 5 only
+    assert it.contact_frames == "5"
+    r = bpy.ops.jointwise.clearance(frame_start=1, frame_end=4, drive="s", value_from=0.0,
+                                    value_to=(c - 3.2) * 3 / 4)
+    it = pair(jw, "Left", "Right")
+    assert it.min_frame == 4
+    want = x[3] - math.sqrt(2)
+    assert abs(it.min_gap - want) < 1e-6
+    np.testing.assert_allclose(it.point_a, (math.sqrt(2) / 2, 0, 0), atol=1e-6)
+    np.testing.assert_allclose(it.point_b, (x[3] - math.sqrt(2) / 2, 0, 0), atol=1e-6)
+
+
+def icosphere(name, radius, subdivisions, centre):
+    import bmesh
+    bm = bmesh.new()
+    bmesh.ops.create_icosphere(bm, subdivisions=subdivisions, radius=radius)
+    mesh = bpy.data.meshes.new(name)
+    bm.to_mesh(mesh)
+    bm.free()
+    obj = bpy.data.objects.new(name, mesh)
+    bpy.context.scene.collection.objects.link(obj)
+    obj.location = centre
+    bpy.context.view_layer.update()
+    return obj
+
+
+PLATE = """format = 1
+[mechanism]
+name = "Fennwick Row plate bench"
+length_unit = "m"
+angle_unit = "deg"
+ground = "world"
+
+[links.world]
+[links.plate]
+object = "Plate"
+[links.ball]
+object = "Ball"
+
+[joints.hold]
+type = "fixed"
+parent = "world"
+child = "plate"
+point = [0, 0, 0]
+axis = [0, 0, 1]
+
+[joints.s]
+type = "prismatic"
+parent = "world"
+child = "ball"
+point = [-4, 0, {h}]
+axis = [1, 0, 0]
+drive = true
+"""
+
+
+@pytest.mark.parametrize("subdivisions", [1, 2, 3])
+def test_icosphere_passing_a_plate(fresh, tmp_path, subdivisions):
+    # Plate: 4 x 4, 0.1 thick, top face at z = 0. Ball: icosphere of radius R whose
+    # centre passes at height h over the plate, from x = -4 to x = 4 (frames 1..33).
+    # A sphere would clear the plate by h - R; the icosphere lies between its inner
+    # radius r_in (the nearest face plane) and R, so the smallest gap is within
+    # R - r_in of h - R (the faceting error). Exactly, for this convex mesh over the top
+    # face it is h minus the mesh's reach straight down (its lowest vertex).
+    R, h = 0.5, 0.8
+    ws.cube("Plate", (0, 0, -0.05), (4, 4, 0.1))
+    ball = icosphere("Ball", R, subdivisions, (-4, 0, h))
+    path = tmp_path / "plate.toml"
+    path.write_text(PLATE.format(h=h))
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=33, drive="s", value_from=0.0,
+                                       value_to=8.0) == {"FINISHED"}
+    it = pair(fresh.jointwise, "Ball", "Plate")
+    v = np.array([tuple(p.co) for p in ball.data.vertices], dtype=float)
+    tris = [tuple(p.vertices) for p in ball.data.polygons]
+    normals = np.cross(v[[t[1] for t in tris]] - v[[t[0] for t in tris]],
+                       v[[t[2] for t in tris]] - v[[t[0] for t in tris]])
+    normals /= np.linalg.norm(normals, axis=1)[:, None]
+    r_in = float(np.abs(np.einsum("ij,ij->i", normals, v[[t[0] for t in tris]])).min())
+    if subdivisions == 1:
+        # a regular icosahedron: inradius / circumradius = sqrt(3) (3 + sqrt 5) / (3 sqrt(10 + 2 sqrt 5))
+        # (in- and circumradius of the regular icosahedron, a (3 + sqrt 5) sqrt(3) / 12 and
+        # a sqrt(10 + 2 sqrt 5) / 4; standard solid geometry)
+        ratio = math.sqrt(3) * (3 + math.sqrt(5)) / (3 * math.sqrt(10 + 2 * math.sqrt(5)))
+        # Blender builds the icosahedron from a table of six-digit coordinates: 1e-4
+        assert r_in / R == pytest.approx(ratio, rel=1e-4)
+    assert not it.contact
+    assert abs(it.min_gap - (h - R)) <= (R - r_in) + 1e-6
+    assert abs(it.min_gap - (h + v[:, 2].min())) < 1e-6
+    # the ball is over the plate then: its centre's x within the plate less its radius
+    x_centre = -4 + 8 * (it.min_frame - 1) / 32
+    assert abs(x_centre) <= 2 - R + 1e-9
+    on_plate = it.point_a if it.object_a == "Plate" else it.point_b
+    assert on_plate[2] == pytest.approx(0.0, abs=1e-6)
+
+
+def _post(name, centre_xy, radius, z0, z1, n=64):
+    """A capped upright prism of ``n`` sides, vertices on the circle of ``radius``."""
+    t = np.linspace(0, 2 * math.pi, n, endpoint=False)
+    ring = [(radius * math.cos(a), radius * math.sin(a)) for a in t]
+    verts = [(x, y, z0) for x, y in ring] + [(x, y, z1) for x, y in ring]
+    faces = [(i, (i + 1) % n, n + (i + 1) % n, n + i) for i in range(n)]
+    faces += [tuple(reversed(range(n))), tuple(range(n, 2 * n))]
+    mesh = bpy.data.meshes.new(name)
+    mesh.from_pydata(verts, [], faces)
+    obj = bpy.data.objects.new(name, mesh)
+    bpy.context.scene.collection.objects.link(obj)
+    obj.location = (centre_xy[0], centre_xy[1], 0.0)
+    bpy.context.view_layer.update()
+    return obj
+
+
+def test_sample_post_on_the_coupler_curve(installed, tmp_path):
+    """Wagtail rocker sample: a post placed on the path of the coupler point (sign_hook)
+    between two frames. The coupler carries an upright pin of radius 1.4 mm (24 sides)
+    at that point (blend_samples/build.py); the post has radius 2 mm (64 sides) and
+    stands only above the coupler's bars, so only the pin can reach it. The pin and the
+    post touch exactly at the frames where the point's distance to the post's axis,
+    from the core's poses of the sample's keyed crank values, is below the reach
+    1.4 + 2 mm (less the sides' faceting, a band no frame falls in: checked)."""
+    import jointwise
+    r = bpy.ops.wm.open_mainfile(filepath=str(ROOT / "blend_samples" / "wagtail_rocker.blend"))
+    assert r == {"FINISHED"}
+    import addon_utils
+    if not addon_utils.check(MODULE)[1]:
+        bpy.ops.preferences.addon_enable(module=MODULE)
+    scene = bpy.context.scene
+    jw = scene.jointwise
+    mech = jointwise.load(ROOT / "blend_samples" / "wagtail_rocker.toml")
+    hook = np.append(np.asarray(mech.measures["sign_hook"].a[1], float), 1.0)
+    # the ground object sits at its home (so core millimetres are scene units here)
+    sc = ext("scene")
+    np.testing.assert_allclose(sc.ground_displacement(scene), np.eye(4), atol=1e-6)
+    assert scene.unit_settings.scale_length == pytest.approx(0.001)
+    # crank values per frame as the scene animates them; hook path from the core
+    curves = ext("bake").coordinate_fcurves(scene)
+    fc = curves["crank_pin"][0]
+    frames = np.arange(scene.frame_start, scene.frame_end + 1)
+    deg = [math.degrees(fc.evaluate(f)) for f in frames]
+    path, prev = [], None
+    for a in deg:
+        prev = mech.pose({"crank_pin": a}, start=prev)
+        path.append((prev.links["coupler"] @ hook)[:2])
+    path = np.array(path)
+    # the post: on the curve halfway between frames 37 and 38 (by the crank angle)
+    mid = mech.pose({"crank_pin": 0.5 * (deg[36] + deg[37])}, start=None).links["coupler"] @ hook
+    post = _post("Post", mid[:2], 2.0, 7.0, 12.0)
+    for o in scene.objects:
+        o.select_set(False)
+    post.select_set(True)
+    bpy.context.view_layer.objects.active = post
+    assert bpy.ops.jointwise.joint_add(name="post_hold", type='fixed') == {"FINISHED"}
+    reach = 1.4 + 2.0
+    inner = 1.4 * math.cos(math.pi / 24) + 2.0 * math.cos(math.pi / 64)
+    d = np.linalg.norm(path - mid[:2], axis=1)
+    assert not np.any((d > inner - 1e-6) & (d < reach + 1e-6)), "a frame in the faceting band"
+    want = [int(f) for f in frames[d < reach]]
+    assert want, "the post must be reached"
+    r = bpy.ops.jointwise.clearance()
+    assert r == {"FINISHED"}
+    px = importlib.import_module(f"{MODULE}.proximity")
+    it = pair(jw, "rocker_coupler", "Post")
+    assert it.contact
+    assert px.frames_from_text(it.contact_frames) == want
+    assert any(m.frame == want[0] and "Post" in m.name for m in scene.timeline_markers)
+    # the post is fixed to the frame: that pair is jointed and skipped
+    assert all({i.object_a, i.object_b} != {"rocker_frame", "Post"} for i in jw.clearance)
+    # the sample's own parts: the four-bar's links touch only where they are jointed
+    for i in jw.clearance:
+        if "Post" not in (i.object_a, i.object_b):
+            assert not i.contact, i.name
