@@ -1,4 +1,4 @@
-"""Command line: ``jointwise check | pose | sweep | range``.
+"""Command line: ``jointwise check | pose | sweep | range | tidy``.
 
 Exit codes: 0 success; 2 bad command line or bad file; 3 cannot assemble, or a value
 outside its limits.  Messages go to stderr, without a traceback.
@@ -33,6 +33,7 @@ examples:
   jointwise pose vise.toml --set handle=1260 --format json
   jointwise sweep crank.toml --drive crank --from 0 --to 360 --steps 361 --out crank.csv
   jointwise range crank.toml --drive rocker --format json
+  jointwise tidy crank.toml --out crank-tidy.toml --angle-tolerance 1
 """
 
 
@@ -140,6 +141,17 @@ def build_parser():
     r.add_argument("--drive", required=True, metavar="NAME")
     r.add_argument("--set", action="append", default=[], type=_setting, metavar="NAME=VALUE")
     r.add_argument("--format", choices=("text", "json"), default="text")
+
+    t = sub.add_parser("tidy", help="make nearly parallel loop axes exactly parallel and write a new file",
+                       description="Find loop joints whose axes are nearly but not exactly parallel (or "
+                                   "slides nearly perpendicular to them), which lock the loop; make them "
+                                   "exact within the angle tolerance and write the file to PATH, the rest "
+                                   "kept as written.  Exit 3 and nothing written when a tilt exceeds "
+                                   "the tolerance.")
+    t.add_argument("file", metavar="FILE")
+    t.add_argument("--out", required=True, metavar="PATH", help="where to write the tidied file")
+    t.add_argument("--angle-tolerance", dest="angle_tolerance", type=_finite, metavar="DEG",
+                   default=2.0, help="largest tilt to correct, degrees (default 2)")
     return p
 
 
@@ -204,6 +216,7 @@ def cmd_check(mech, args):
                  f"redundant constraints {mob['redundant']}",
                  f"  closure error at home: {info['home_closure']:.3g} ({mech.length_unit} / rad)"]
         lines += [f"  problem: {p}" for p in info["problems"]] or ["  no problems found"]
+        lines += [f"  cause: {t['text']}" for t in info.get("tilts", [])]
         _emit("\n".join(lines) + "\n")
     return EXIT_OK
 
@@ -241,7 +254,41 @@ def check_report(mech):
         "problems": problems,
         "mobility": {k: mob[k] for k in ("kutzbach", "form", "numeric", "redundant")},
         "home_closure": closure,
+        "tilts": _tilt_causes(mech),
     }
+
+
+def _tilt_causes(mech):
+    """Loop axes nearly but not exactly parallel (as settled on reading): each a cause of
+    a locked loop, named with its tilt (``jointwise.tidy``)."""
+    from .tidy import find_tilts
+    out = []
+    for t in find_tilts(mech, {n: j.axis for n, j in mech.joints.items()}):
+        d = t.to_json()
+        d["text"] = (f"{t.describe()}; a loop whose axes are not exactly parallel is rigid, "
+                     f"so it locks: `jointwise tidy FILE --out FIXED.toml` makes them exact")
+        out.append(d)
+    return out
+
+
+def cmd_tidy(mech, args):
+    from .tidy import tidy_file
+    if args.angle_tolerance < 0:
+        print("jointwise: --angle-tolerance: expected degrees >= 0, got "
+              f"{args.angle_tolerance:g}", file=sys.stderr)
+        return EXIT_USAGE
+    tilts, _ = tidy_file(args.file, args.out, args.angle_tolerance, mech=mech)
+    name = os.path.basename(args.file)
+    if not tilts:
+        print(f"{name}: every loop axis is already exact; wrote an unchanged copy to {args.out}")
+        return EXIT_OK
+    from .tidy import new_axis
+    for t in tilts:
+        what = "parallel to" if t.relation == "parallel" else "perpendicular to"
+        print(f"{name}: joints.{t.joint}.axis turned {t.degrees:.3g} deg to lie {what} the axis of "
+              f"{t.reference}: {[float(x) for x in t.axis]} -> {new_axis(mech, t)}")
+    print(f"wrote {args.out}")
+    return EXIT_OK
 
 
 def cmd_pose(mech, args):
@@ -295,7 +342,8 @@ def cmd_range(mech, args):
     return range_command(mech, args, _emit)
 
 
-COMMANDS = {"check": cmd_check, "pose": cmd_pose, "sweep": cmd_sweep, "range": cmd_range}
+COMMANDS = {"check": cmd_check, "pose": cmd_pose, "sweep": cmd_sweep, "range": cmd_range,
+            "tidy": cmd_tidy}
 
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())
