@@ -216,7 +216,6 @@ def cmd_check(mech, args):
                  f"redundant constraints {mob['redundant']}",
                  f"  closure error at home: {info['home_closure']:.3g} ({mech.length_unit} / rad)"]
         lines += [f"  problem: {p}" for p in info["problems"]] or ["  no problems found"]
-        lines += [f"  cause: {t['text']}" for t in info.get("tilts", [])]
         _emit("\n".join(lines) + "\n")
     return EXIT_OK
 
@@ -241,6 +240,7 @@ def check_report(mech):
                         f"special geometry (parallel, coaxial or meeting axes)")
     if mob["numeric"] <= 0 and mech.loops:
         problems.append(f"the mechanism cannot move (numeric mobility {mob['numeric']}): it is a structure")
+    problems.extend(_tilt_causes(mech))
     loop_coords = {c for lp in mech.loops for jn, _ in lp.steps for c in mech.joints[jn].coordinates}
     held = [c for c in mech.driven if c in loop_coords]
     if mech.loops and 0 < mob["numeric"] != len(held) and held:
@@ -254,7 +254,6 @@ def check_report(mech):
         "problems": problems,
         "mobility": {k: mob[k] for k in ("kutzbach", "form", "numeric", "redundant")},
         "home_closure": closure,
-        "tilts": _tilt_causes(mech),
     }
 
 
@@ -262,13 +261,9 @@ def _tilt_causes(mech):
     """Loop axes nearly but not exactly parallel (as settled on reading): each a cause of
     a locked loop, named with its tilt (``jointwise.tidy``)."""
     from .tidy import find_tilts
-    out = []
-    for t in find_tilts(mech, {n: j.axis for n, j in mech.joints.items()}):
-        d = t.to_json()
-        d["text"] = (f"{t.describe()}; a loop whose axes are not exactly parallel is rigid, "
-                     f"so it locks: `jointwise tidy FILE --out FIXED.toml` makes them exact")
-        out.append(d)
-    return out
+    return [f"{t.describe()}: a loop whose axes are not exactly parallel is rigid, so it locks; "
+            f"`jointwise tidy FILE --out FIXED.toml` makes them exact"
+            for t in find_tilts(mech, {n: j.axis for n, j in mech.joints.items()})]
 
 
 def cmd_tidy(mech, args):

@@ -32,17 +32,19 @@ def test_check_names_the_tilted_joint_and_its_tilt(cli, mech_file):
     r = cli("check", f)
     M.no_traceback(r)
     assert r.code == 0
-    assert "cause: joint rocker: axis tilted 0.17 deg out of parallel with the axis of joint crank" in r.out
+    assert "problem: joint rocker: axis tilted 0.17 deg out of parallel with the axis of joint crank" in r.out
     j = cli("check", f, "--format", "json").json()
-    assert [t["joint"] for t in j["tilts"]] == ["rocker"]
-    assert j["tilts"][0]["tilt_deg"] == pytest.approx(TILT, rel=1e-9)
-    assert j["tilts"][0]["reference"] == "crank"
+    causes = [p for p in j["problems"] if "tilted" in p]
+    assert len(causes) == 1 and causes[0].startswith("joint rocker: axis tilted 0.17 deg")
     assert j["mobility"]["numeric"] == 0  # the tilt is what locks it
+    tilts = find_tilts(load(f))
+    assert [(t.joint, t.reference) for t in tilts] == [("rocker", "crank")]
+    assert tilts[0].degrees == pytest.approx(TILT, rel=1e-9)
 
 
 def test_check_of_an_exact_four_bar_has_no_tilt(cli, mech_file):
     j = cli("check", mech_file(M.four_bar(20.0, 70.0, 50.0, 60.0)), "--format", "json").json()
-    assert j["tilts"] == [] and j["mobility"]["numeric"] == 1
+    assert not [p for p in j["problems"] if "tilted" in p] and j["mobility"]["numeric"] == 1
 
 
 def test_tilted_four_bar_locks_then_tidy_fixes_it_and_it_sweeps_a_full_turn(cli, mech_file, tmp_path):
