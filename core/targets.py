@@ -57,15 +57,18 @@ REACHED = 1e-6
 CLOSE = 1e-10
 #: ... or the step has shrunk below this (dimensionless: radians or sizes).
 STALL = 1e-11
-#: A refused step this small (dimensionless) is rounding noise: the nearest placement.
+#: A refused step this small (dimensionless), or one that promised to lower the squared
+#: error by less than this fraction, is rounding noise: the nearest placement is found.
 NOISE = 1e-8
+#: ... and a step that promises less than this fraction is not taken at all.
+FLAT = 1e-15
 MAX_ITER = 400
 #: First step cap (dimensionless); grows while the closure correction stays tiny.
 FIRST_STEP = 0.2
 MAX_STEP = 2 * math.pi
 JUMP_SLACK = 0.01
-LAMBDA0 = 1e-3
-LAMBDA_MIN = 1e-7
+LAMBDA0 = 1e-4
+LAMBDA_MIN = 1e-9
 LAMBDA_MAX = 1e3
 
 
@@ -179,6 +182,7 @@ class _Targets:
         self.parsed = parsed
         self.held = frozenset(int(self.s.master[i]) for i in held)
         self._layouts = {}
+        self._closed = None
         # limits of each master, in master units
         s = self.s
         self.bounds = {}
@@ -285,8 +289,13 @@ class _Targets:
         """Loop residual and constraint Jacobian over the free columns, dimensionless."""
         rs_all, A_all = [], []
         n = len(lay.cols)
-        for b, cols_b, idx, rot_b in lay.blocks:
-            r, _, J = self.s._eval(b, q, cols_b, rot_b)
+        known = self._closed if self._closed is not None and self._closed[0] is lay \
+            and self._closed[1] == q.tobytes() else None
+        for k, (b, cols_b, idx, rot_b) in enumerate(lay.blocks):
+            if known is not None:  # just closed: the corrector's Jacobian, residual below tolerance
+                r, J = np.zeros(6 * len(b.loops)), known[2][k]
+            else:
+                r, _, J = self.s._eval(b, q, cols_b, rot_b)
             rs = self.s._row_scale(len(b.loops))
             A = np.zeros((len(r), n))
             if len(idx):
@@ -298,11 +307,18 @@ class _Targets:
         return np.concatenate(rs_all), np.vstack(A_all)
 
     def close(self, q, lay):
-        """Close every loop block from ``q`` (in place); True on success."""
+        """Close every loop block from ``q`` (in place); True on success.  The corrector's
+        Jacobians are kept for the next step from the closed state."""
+        Js = []
+        worst = 0.0
         for b, cols_b, idx, rot_b in lay.blocks:
-            ok = self.s._newton(b, q, cols_b, rot_b)[0]
+            ok, err, _, J = self.s._newton(b, q, cols_b, rot_b)
             if not ok:
                 return False
+            Js.append(J)
+            worst = max(worst, float(err))
+        self._closed = (lay, q.tobytes(), Js)
+        self.residual = worst
         return True
 
     # -- one step -------------------------------------------------------------------------------
@@ -313,7 +329,7 @@ class _Targets:
         J = self.jacobian(q, links, lay)
         n = len(lay.cols)
         if n == 0:
-            return np.zeros(0), 0.0
+            return np.zeros(0), 0.0, 0.0
         if A.shape[0]:
             U, sv, Vt = np.linalg.svd(A, full_matrices=True)
             tol = 1e-9 * max(sv[0] if sv.size else 0.0, 1.0)
@@ -324,13 +340,15 @@ class _Targets:
             du_c = np.zeros(n)
             N = np.eye(n)
         if N.shape[1] == 0:
-            return du_c, 0.0
+            return du_c, 0.0, 0.0
         JN = J @ N
         res = e - J @ du_c
         U2, s2, Vt2 = np.linalg.svd(JN, full_matrices=False)
         z = Vt2.T @ ((s2 / (s2 * s2 + lam * lam)) * (U2.T @ res))
         dt = N @ z
-        return du_c + dt, float(np.abs(dt).max())
+        after = res - JN @ z
+        gain = (float(res @ res) - float(after @ after)) / max(float(e @ e), 1e-300)
+        return du_c + dt, float(np.abs(dt).max()), gain
 
     def apply(self, q, lay, du):
         self.s._apply(q, lay.cols, lay.rot, du * lay.cs)
@@ -393,15 +411,15 @@ class _Targets:
                 break
             fixed = set()
             lay = self.layout(fixed)
-            du, towards = self.step(q, links, lay, lam, e)
+            du, towards, gain = self.step(q, links, lay, lam, e)
             for _active in range(len(lay.cols) + 1):
                 push = self.at_limit(q, du, lay)
                 if not push:
                     break
                 fixed |= push
                 lay = self.layout(fixed)
-                du, towards = self.step(q, links, lay, lam, e)
-            if towards < STALL:
+                du, towards, gain = self.step(q, links, lay, lam, e)
+            if towards < STALL or gain < FLAT:
                 break
             size = float(np.abs(du).max())
             if size > cap:
@@ -423,7 +441,7 @@ class _Targets:
                 q[:] = trial
                 links, e, dist, merit = links_t, e_t, dist_t, new_merit
                 steps += 1
-                lam = max(lam / 3.0, LAMBDA_MIN)
+                lam = max(lam / 10.0, LAMBDA_MIN)
                 if moved < 0.01 * size:
                     cap = min(2 * cap, MAX_STEP)
                 elif moved < 0.1 * size:
@@ -434,7 +452,7 @@ class _Targets:
                 else:
                     lam = min(lam * 4.0, LAMBDA_MAX)
                     cap = 0.5 * min(cap, size) if lam >= LAMBDA_MAX else cap
-                if cap < STALL or size < NOISE:
+                if cap < STALL or size < NOISE or gain < NOISE:
                     break
         self.dist = dist
         return steps
@@ -464,7 +482,7 @@ def pose_to_targets(mech, values, start, targets):
         raise AssemblyError(f"cannot assemble the start placement: loops stay open by {err:.3g}",
                             error=float(err))
     t.solve(q)
-    err = s.closure(q)[0]
+    err = t.residual if t._closed is not None and t._closed[1] == q.tobytes() else s.closure(q)[0]
     pose = Pose(joints=mech._values_out(q), links=mech.link_poses(q), converged=err <= 1e-9,
                 residual=float(err), q=q, notes=notes)
     for name, v in (values or {}).items():
