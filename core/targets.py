@@ -402,12 +402,12 @@ class _Targets:
         links = self.m.link_poses(q)
         e, dist = self.errors(links)
         merit = float(e @ e)
-        close = CLOSE * self.L
         lam = LAMBDA0
         cap = FIRST_STEP
         steps = 0
         for _ in range(MAX_ITER):
-            if max(dist.values(), default=0.0) <= close:
+            # every row, so a link's turn about the line of its joint points counts too
+            if float(np.abs(e).max()) <= CLOSE:
                 break
             fixed = set()
             lay = self.layout(fixed)

@@ -333,3 +333,15 @@ def test_cli_bad_target_exits_2(tmp_path, arg, words):
     no_traceback(run)
     assert run.code == 2, run
     assert words in run.err
+
+
+def test_link_turn_about_its_joint_line_is_followed():
+    # the middle shaft of a double Hooke's joint turns about the line through its two
+    # crosses: its joint points do not move, its orientation does (reference: the pose
+    # by value, input turned 20 deg)
+    m = jointwise.load("blend_samples/heron_twin_shaft.toml")
+    aim = m.pose({"input_bearing": 20.0})
+    p = m.pose(targets={"middle": aim.links["middle"]})
+    assert p.reached
+    assert p.joints["input_bearing"] == pytest.approx(20.0, abs=1e-6)
+    np.testing.assert_allclose(p.links["middle"], aim.links["middle"], atol=1e-9)
