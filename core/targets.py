@@ -61,10 +61,13 @@ STALL = 1e-11
 #: error by less than this fraction, is rounding noise: the nearest placement is found.
 NOISE = 1e-8
 #: ... and a step that promises less than this fraction is not taken at all.
-FLAT = 1e-15
+FLAT = 1e-10
 MAX_ITER = 400
+#: Closure error of a start (dimensionless: radian, or length / size) above which it is
+#: closed before the first step.
+START_GAP = 1e-6
 #: First step cap (dimensionless); grows while the closure correction stays tiny.
-FIRST_STEP = 0.2
+FIRST_STEP = 2.0
 MAX_STEP = 2 * math.pi
 JUMP_SLACK = 0.01
 LAMBDA0 = 1e-4
@@ -322,10 +325,10 @@ class _Targets:
         return True
 
     # -- one step -------------------------------------------------------------------------------
-    def step(self, q, links, lay, lam, e):
+    def step(self, q, links, lay, lam, e, ra=None):
         """Damped least-squares step over ``lay``'s columns (dimensionless), and the size of
         its part towards the targets (the rest only closes the loops)."""
-        r, A = self.constraints(q, lay)
+        r, A = self.constraints(q, lay) if ra is None else ra
         J = self.jacobian(q, links, lay)
         n = len(lay.cols)
         if n == 0:
@@ -405,13 +408,26 @@ class _Targets:
         lam = LAMBDA0
         cap = FIRST_STEP
         steps = 0
-        for _ in range(MAX_ITER):
+        for it in range(MAX_ITER):
             # every row, so a link's turn about the line of its joint points counts too
             if float(np.abs(e).max()) <= CLOSE:
                 break
             fixed = set()
             lay = self.layout(fixed)
-            du, towards, gain = self.step(q, links, lay, lam, e)
+            ra = None
+            if it == 0 and self._closed is None:
+                # a start closed up to stored-value noise (float32) is closed by the first
+                # step's own closure part; one farther off is closed first
+                ra = self.constraints(q, lay)
+                if ra[0].size and float(np.abs(ra[0]).max()) > START_GAP:
+                    if not self.close(q, lay):
+                        raise AssemblyError(f"cannot assemble the start placement: loops stay open by "
+                                            f"{self.s.closure(q)[0]:.3g}", error=float(self.s.closure(q)[0]))
+                    links = self.m.link_poses(q)
+                    e, dist = self.errors(links)
+                    merit = float(e @ e)
+                    ra = None
+            du, towards, gain = self.step(q, links, lay, lam, e, ra)
             for _active in range(len(lay.cols) + 1):
                 push = self.at_limit(q, du, lay)
                 if not push:
@@ -477,11 +493,9 @@ def pose_to_targets(mech, values, start, targets):
         for i, v in held.items():
             q[i] = v
     t = _Targets(mech, held, parsed)
-    if not t.close(q, t.layout(set())):
-        err = s.closure(q)[0]
-        raise AssemblyError(f"cannot assemble the start placement: loops stay open by {err:.3g}",
-                            error=float(err))
     t.solve(q)
+    if t._closed is None or t._closed[1] != q.tobytes():  # no step taken: close where it is
+        t.close(q, t.layout(set()))
     err = t.residual if t._closed is not None and t._closed[1] == q.tobytes() else s.closure(q)[0]
     pose = Pose(joints=mech._values_out(q), links=mech.link_poses(q), converged=err <= 1e-9,
                 residual=float(err), q=q, notes=notes)
