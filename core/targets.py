@@ -125,6 +125,20 @@ def parse_targets(mech, targets):
     return out
 
 
+def _joint_twists(j, qj):
+    """``X_k = Ad(prefix_k) S_k``: the twist of the child relative to the parent per unit
+    of each coordinate of joint ``j``, in the parent's home-aligned world frame
+    (Lynch & Park 2017, sec. 5.1.1)."""
+    prims = j.primitives
+    if len(prims) == 1:
+        return [prims[0].screw]
+    out, acc = [], np.eye(4)
+    for k, (prim, qi, hi) in enumerate(zip(prims, qj, j.home)):
+        out.append(prim.screw if k == 0 else spatial.adjoint(acc) @ prim.screw)
+        acc = acc @ spatial.exp6(prim.screw, qi - hi)
+    return out
+
+
 def _right_jacobian_inverse(phi):
     """Inverse right Jacobian of SO(3): d log(E exp(-[w] t)) / dt = -J_r^-1(log E) w.
 
@@ -257,10 +271,7 @@ class _Targets:
                 for k in range(3):
                     out[:, lay.col_of[("s", jn, k)]] += ad @ x[k]
                 continue
-            if sl.stop - sl.start == 1:
-                xs = [j.primitives[0].screw]
-            else:
-                xs = j.partials(q[sl])[1]
+            xs = _joint_twists(j, q[sl])
             for k, x in enumerate(xs):
                 i = sl.start + k
                 col = lay.col_of.get(("m", int(s.master[i])))
