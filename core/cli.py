@@ -1,7 +1,10 @@
 """Command line: ``jointwise check | pose | sweep | range | tidy``.
 
-Exit codes: 0 success; 2 bad command line or bad file; 3 cannot assemble, or a value
-outside its limits.  Messages go to stderr, without a traceback.
+Exit codes: 0 success; 2 bad command line or bad file, or an input beyond a documented
+limit (:data:`jointwise.spec.LIMITS`); 3 cannot assemble, a value outside its joint's
+limits, or a numeric failure while solving.  Messages go to stderr, never a traceback:
+every subcommand runs inside :func:`_guarded`, which turns any failure into a message
+naming the file and one of those exit codes.
 """
 from __future__ import annotations
 
@@ -13,7 +16,9 @@ import sys
 
 import numpy as np
 
+from . import __version__
 from .errors import AssemblyError, JointwiseError, SpecError
+from .spec import LIMITS
 
 EXIT_OK, EXIT_USAGE, EXIT_ASSEMBLY = 0, 2, 3
 
@@ -27,7 +32,8 @@ stability or guarding.
 """
 
 EPILOG = """\
-exit codes: 0 success, 2 bad command line or bad file, 3 cannot assemble or value outside limits
+exit codes: 0 success, 2 bad command line or bad file (or beyond an input limit),
+  3 cannot assemble, value outside its limits or numeric failure
 examples:
   jointwise check vise.toml
   jointwise pose vise.toml --set handle=1260 --format json
@@ -44,17 +50,23 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_USAGE)
 
 
+def _number(text, what):
+    """A finite number, or an argparse error.  (Values far out are the solver's to refuse:
+    "too far", exit 3; a sweep's span has its own limit.)"""
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{what} must be a number, got {text!r}") from None
+    if not math.isfinite(v):
+        raise argparse.ArgumentTypeError(f"{what} must be finite, got {text!r}")
+    return v
+
+
 def _setting(text):
     if "=" not in text:
         raise argparse.ArgumentTypeError(f"expected NAME=VALUE, got {text!r}")
     name, value = text.split("=", 1)
-    try:
-        v = float(value)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"value of {name!r} must be a number, got {value!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"value of {name!r} must be finite, got {value!r}")
-    return name.strip(), v
+    return name.strip(), _number(value, f"value of {name!r}")
 
 
 def _target(text):
@@ -78,28 +90,32 @@ def _target(text):
 
 
 def _finite(text):
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return v
+    return _number(text, "value")
 
 
 def _steps(text):
     try:
         v = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        try:
+            f = float(text)
+        except ValueError:
+            f = math.nan
+        if not (math.isfinite(f) and f.is_integer()):
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        v = int(f)
     if v < 2:
         raise argparse.ArgumentTypeError(f"need at least 2 steps (both ends), got {v}")
+    if v > LIMITS["steps"]:
+        raise argparse.ArgumentTypeError(f"{text} steps is beyond the limit of {LIMITS['steps']} steps "
+                                         f"of one sweep")
     return v
 
 
 def build_parser():
     p = _Parser(prog="jointwise", description=DESCRIPTION, epilog=EPILOG,
                 formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--version", action="version", version=f"jointwise {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
@@ -166,22 +182,63 @@ def main(argv=None):
     ttwice = sorted({n for n in tnames if tnames.count(n) > 1})
     if ttwice:
         parser.error(f"--target {ttwice[0]} given more than once")
+    return _guarded(_run, args)
+
+
+def _run(args):
+    from .spec import load
+    mech = load(args.file)
+    return COMMANDS[args.command](mech, args)
+
+
+def _guarded(fn, args):
+    """Run ``fn(args)`` (a subcommand) and turn every failure into a message and an exit
+    code: 2 for input (file, arguments, limits, memory), 3 for assembly and numeric
+    failures.  New subcommands get the same handling by going through here."""
+    where = os.path.basename(str(getattr(args, "file", "") or "")) or "jointwise"
+
+    def say(message):
+        print(f"jointwise: {message}", file=sys.stderr)
+
     try:
-        from .spec import load
-        mech = load(args.file)
-        return COMMANDS[args.command](mech, args)
+        return fn(args)
     except SpecError as exc:
-        print(f"jointwise: {exc}", file=sys.stderr)
+        say(exc)
         return EXIT_USAGE
     except AssemblyError as exc:
-        print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
+        say(f"{where}: {exc}")
         return EXIT_ASSEMBLY
     except JointwiseError as exc:
-        print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
+        say(f"{where}: {exc}")
         return EXIT_USAGE
+    except BrokenPipeError:  # the reader went away (e.g. piped into head): not an error of ours
+        try:
+            sys.stdout = open(os.devnull, "w")
+        except OSError:
+            pass
+        return EXIT_OK
     except OSError as exc:
-        print(f"jointwise: {exc}", file=sys.stderr)
+        name = f" {exc.filename!r}" if getattr(exc, "filename", None) else ""
+        say(f"{where}: cannot read or write{name}: {exc.strerror or exc}")
         return EXIT_USAGE
+    except MemoryError:
+        say(f"{where}: ran out of memory; the input is too large for this machine (see the input "
+            f"limits in the README)")
+        return EXIT_USAGE
+    except RecursionError:
+        say(f"{where}: the input is nested too deeply (limit {LIMITS['nesting']} levels)")
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        say("interrupted; nothing was written")
+        return EXIT_USAGE
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        say(f"{where}: numeric failure while solving ({type(exc).__name__}: {exc}); the mechanism's "
+            f"numbers may be too large, too small or degenerate")
+        return EXIT_ASSEMBLY
+    except Exception as exc:  # noqa: BLE001 - the last guard: a message, never a traceback
+        say(f"{where}: internal error ({type(exc).__name__}: {exc}); please report it with the file "
+            f"and the command")
+        return EXIT_ASSEMBLY
 
 
 def _emit(text, path=None):
@@ -216,28 +273,33 @@ def cmd_check(mech, args):
                  f"redundant constraints {mob['redundant']}",
                  f"  closure error at home: {info['home_closure']:.3g} ({mech.length_unit} / rad)"]
         lines += [f"  problem: {p}" for p in info["problems"]] or ["  no problems found"]
+        lines += [f"  note: {n}" for n in info["notes"]]
         _emit("\n".join(lines) + "\n")
     return EXIT_OK
 
 
 def check_report(mech):
-    """The ``check`` report as a dict (the JSON keys of ``jointwise check``)."""
+    """The ``check`` report as a dict (the JSON keys of ``jointwise check``).
+
+    ``problems`` holds only what stops the mechanism or misleads (home out of reach, a
+    structure that cannot move, drives that do not match the freedoms); ``notes`` holds
+    information: a settled home, an overconstraint explained by special geometry."""
     from .solver import TOLERANCE
-    problems = [f"settled: {n}" for n in mech.settle_notes]
+    problems, notes = [], [f"settled: {n}" for n in mech.settle_notes]
     closure = float(mech.home_closure())
     q = mech.home
     if closure > TOLERANCE:
         try:
             q = mech.solver.home_state()
-            problems.append(f"home placement is off closure by {closure:.3g}; within the assembly tolerance, "
-                            f"pose settles it onto the nearest closed placement")
+            notes.append(f"home placement is off closure by {closure:.3g}; within the assembly tolerance, "
+                         f"pose settles it onto the nearest closed placement")
         except AssemblyError as exc:
             problems.append(str(exc))
     mob = mech.mobility(q)
     if mob["redundant"] > 0:
-        problems.append(f"overconstrained as counted: Kutzbach {mob['kutzbach']} ({mob['form']}), actual "
-                        f"{mob['numeric']}; {mob['redundant']} constraint(s) are redundant because of "
-                        f"special geometry (parallel, coaxial or meeting axes)")
+        notes.append(f"overconstrained as counted: Kutzbach {mob['kutzbach']} ({mob['form']}), actual "
+                     f"{mob['numeric']}; {mob['redundant']} constraint(s) are redundant because of "
+                     f"special geometry (parallel, coaxial or meeting axes)")
     if mob["numeric"] <= 0 and mech.loops:
         problems.append(f"the mechanism cannot move (numeric mobility {mob['numeric']}): it is a structure")
     problems.extend(_tilt_causes(mech))
@@ -252,6 +314,7 @@ def check_report(mech):
         "loops": len(mech.loops),
         "driven": mech.driven,
         "problems": problems,
+        "notes": notes,
         "mobility": {k: mob[k] for k in ("kutzbach", "form", "numeric", "redundant")},
         "home_closure": closure,
     }
@@ -310,13 +373,10 @@ def cmd_pose(mech, args):
                  f"singular: {'yes' if pose.singular else 'no'}", "joints:"]
         for c, v in pose.joints.items():
             unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
-            lines.append(f"  {c:<16} {v:14.6f} {unit}")
-        lines.append(f"links (displacement from home; translation in {mech.length_unit}):")
+            lines.append(f"  {c:<16} {v:+15.6f} {unit}")
+        lines.append("links (displacement from home, world axes):")
         for name, mat in pose.links.items():
-            t = mat[:3, 3]
-            from .spatial import log3
-            ang = math.degrees(float(np.linalg.norm(log3(mat[:3, :3]))))
-            lines.append(f"  {name:<16} moved [{t[0]:.6g}, {t[1]:.6g}, {t[2]:.6g}], turned {ang:.6g} deg")
+            lines.append(f"  {name:<16} {_motion_text(mat, mech)}")
         if pose.target_error:
             lines.append(f"targets: {'all reached' if pose.reached else 'not all reached'}")
             for name, d in pose.target_error.items():
@@ -325,6 +385,26 @@ def cmd_pose(mech, args):
     if not pose.converged:
         return EXIT_ASSEMBLY
     return EXIT_OK
+
+
+def _motion_text(mat, mech):
+    """A link's displacement as signed text: moved [x, y, z] <length unit>, turned +a <angle
+    unit> about [u, v, w] (the axis pointed so that its largest component is positive, the
+    sign of the turn by the right-hand rule about it)."""
+    from .spatial import log3
+    t = mat[:3, 3]
+    w = np.asarray(log3(mat[:3, :3]), float)
+    ang = float(np.linalg.norm(w))
+    text = f"moved [{t[0]:+.6g}, {t[1]:+.6g}, {t[2]:+.6g}] {mech.length_unit}"
+    if ang < 1e-12:
+        return text + f", turned +0 {mech.angle_unit}"
+    axis = w / ang
+    if axis[int(np.argmax(np.abs(axis)))] < 0:
+        axis, ang = -axis, -ang
+    turn = math.degrees(ang) if mech.angle_unit == "deg" else ang
+    axis = [0.0 if abs(a) < 1e-12 else float(a) for a in axis]
+    return text + (f", turned {turn:+.6g} {mech.angle_unit} about "
+                   f"[{axis[0]:.6g}, {axis[1]:.6g}, {axis[2]:.6g}]")
 
 
 def cmd_sweep(mech, args):

@@ -18,13 +18,20 @@ import json
 import math
 import os
 import sys
+import tempfile
+from types import SimpleNamespace
 
 import numpy as np
 
 from .errors import JointwiseError, SpecError
 
 __all__ = ["sweep_table", "sweep_json", "sweep_command", "range_command", "plot_sweep",
-           "PLOT_INSTALL"]
+           "PLOT_INSTALL", "Outputs", "sweep_chunks", "SWEEP_CHUNK"]
+
+#: Steps solved, written and dropped at a time by ``jointwise sweep`` (memory stays bounded).
+SWEEP_CHUNK = 10_000
+#: Most points per line the plot draws; longer sweeps are thinned (flagged steps all kept).
+PLOT_POINTS = 20_000
 
 PLOT_INSTALL = "--plot needs matplotlib, which comes with the plot extra: pip install 'jointwise[plot]'"
 
@@ -43,11 +50,8 @@ def header(mech, drive):
     return ["step", drive] + list(mech.coordinates) + columns(mech) + ["converged", "singular"]
 
 
-def sweep_table(mech, sw, drive):
-    """CSV text of a sweep."""
-    out = io.StringIO()
-    cols = header(mech, drive)
-    out.write(",".join(cols) + "\n")
+def _csv_rows(mech, sw, first=0):
+    """CSV lines (no header) of a sweep's rows, numbered from ``first``."""
     meas = []
     for name, m in mech.measures.items():
         v = sw.measures[name]
@@ -56,15 +60,133 @@ def sweep_table(mech, sw, drive):
         else:
             meas.append(v)
     coords = [sw.joints[c] for c in mech.coordinates]
+    out = []
     for i in range(len(sw.values)):
-        row = [str(i), _num(sw.values[i])] + [_num(c[i]) for c in coords] + [_num(m[i]) for m in meas]
+        row = [str(first + i), _num(sw.values[i])] + [_num(c[i]) for c in coords] + [_num(m[i]) for m in meas]
         row += ["1" if sw.converged[i] else "0", "1" if sw.singular[i] else "0"]
-        out.write(",".join(row) + "\n")
-    return out.getvalue()
+        out.append(",".join(row) + "\n")
+    return "".join(out)
+
+
+def sweep_table(mech, sw, drive):
+    """CSV text of a sweep."""
+    return ",".join(header(mech, drive)) + "\n" + _csv_rows(mech, sw)
+
+
+def _json_rows(sw):
+    return ", ".join(json.dumps(sw.pose(i)) for i in range(len(sw.values)))
 
 
 def sweep_json(mech, sw, drive):
     return json.dumps({"drive": drive, "poses": [sw.pose(i) for i in range(len(sw.values))]}) + "\n"
+
+
+def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None):
+    """Yield ``(first_index, Sweep)`` for the ``steps`` samples of ``np.linspace(start, end,
+    steps)``, ``chunk`` at a time, each chunk continuing from the last solved state of the
+    one before (:meth:`Mechanism.sweep` with ``start``).  Only one chunk is held at a time.
+    The values equal ``np.linspace``'s bit for bit (same formula, end point exact)."""
+    from .sweep import sweep
+    chunk = chunk or SWEEP_CHUNK
+    div = steps - 1
+    delta = end - start
+    step = delta / div
+    state = None
+    for k0 in range(0, steps, chunk):
+        k1 = min(k0 + chunk, steps)
+        idx = np.arange(k0, k1, dtype=float)
+        vals = idx * step + start if step != 0 else idx / div * delta + start
+        if k1 == steps:
+            vals[-1] = end
+        sw = sweep(mech, drive, vals, held, start=state)
+        state = sw.q[-1]
+        yield k0, sw
+
+
+class _PlotData:
+    """What the plot needs from a streamed sweep: every step's flags, values thinned to
+    about ``PLOT_POINTS`` per line (flagged steps always kept)."""
+
+    def __init__(self, steps):
+        self.steps = steps
+        self.every = max(1, -(-steps // PLOT_POINTS))
+        self.parts = []
+
+    def add(self, first, sw):
+        i = np.arange(len(sw.values))
+        keep = ((first + i) % self.every == 0) | ~sw.converged | sw.singular
+        if first + len(i) == self.steps:
+            keep[-1] = True
+        self.parts.append(SimpleNamespace(
+            values=sw.values[keep], converged=sw.converged[keep], singular=sw.singular[keep],
+            joints={k: v[keep] for k, v in sw.joints.items()},
+            measures={k: v[keep] for k, v in sw.measures.items()},
+            advantage={k: np.asarray(v)[keep] for k, v in sw.advantage.items()}))
+
+    def sweep(self):
+        p = self.parts
+        return SimpleNamespace(
+            values=np.concatenate([x.values for x in p]),
+            converged=np.concatenate([x.converged for x in p]),
+            singular=np.concatenate([x.singular for x in p]),
+            joints={k: np.concatenate([x.joints[k] for x in p]) for k in p[0].joints},
+            measures={k: np.concatenate([x.measures[k] for x in p]) for k in p[0].measures},
+            advantage={k: np.concatenate([x.advantage[k] for x in p]) for k in p[0].advantage})
+
+
+class Outputs:
+    """The files one command writes, kept under temporary names in their target folders
+    and moved into place together by :meth:`commit`; leaving the ``with`` block without a
+    commit removes them, so a failure leaves no file and no half of a pair (table and plot)
+    behind.  ``reserve`` creates the temporary file at once: an unwritable folder is found
+    before any work is done."""
+
+    def __init__(self):
+        self._items = []
+
+    def reserve(self, path, option):
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise SpecError(f"{option} {path!r}: folder {folder!r} does not exist")
+        if os.path.isdir(path):
+            raise SpecError(f"{option} {path!r} is a folder")
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".part", dir=folder)
+        except OSError as exc:
+            raise SpecError(f"{option} {path!r}: cannot write in folder {folder!r}: "
+                            f"{exc.strerror or exc}") from None
+        os.close(fd)
+        mask = os.umask(0)
+        os.umask(mask)
+        try:
+            os.chmod(tmp, 0o666 & ~mask)
+        except OSError:
+            pass
+        self._items.append((tmp, path, option))
+        return tmp
+
+    def commit(self):
+        for tmp, path, option in self._items:
+            try:
+                os.replace(tmp, path)
+            except OSError as exc:
+                raise SpecError(f"{option} {path!r}: cannot write: {exc.strerror or exc}") from None
+        self._items = []
+
+    def discard(self):
+        for tmp, _, _ in self._items:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+        self._items = []
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.discard()
+        return False
 
 
 def _plot_available():
@@ -174,17 +296,32 @@ def plot_sweep(mech, sw, drive, path):
             os.unlink(tmp)
 
 
-def _check_out(path, what):
-    d = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(d):
-        raise SpecError(f"{what} {path!r}: folder {d!r} does not exist")
-    if os.path.isdir(path):
-        raise SpecError(f"{what} {path!r} is a folder")
+def _check_span(mech, drive, start, end):
+    """Refuse a sweep span beyond the documented limits (turns for an angle drive,
+    mechanism sizes for a length drive) before anything is solved."""
+    from .spec import LIMITS
+    span = abs(end - start)
+    if mech.coordinate_kind(drive) == "angle":
+        turns = span * mech._unit(mech._require(drive)) / (2 * math.pi)
+        if turns > LIMITS["turns"]:
+            raise SpecError(f"--from {start:g} --to {end:g}: a span of {turns:.4g} turns of {drive!r} is "
+                            f"beyond the limit of {LIMITS['turns']:g} turns of one sweep")
+    else:
+        size = float(getattr(mech, "size", 0.0) or 0.0) or 1.0
+        if span > LIMITS["sizes"] * size:
+            raise SpecError(f"--from {start:g} --to {end:g}: a span of {span:.4g} {mech.length_unit} of "
+                            f"{drive!r} is beyond the limit of {LIMITS['sizes']:g} mechanism sizes "
+                            f"({LIMITS['sizes'] * size:.4g} {mech.length_unit}) of one sweep")
 
 
-def sweep_command(mech, args, emit):
-    """``jointwise sweep``: returns the exit code."""
-    from .sweep import sweep
+def sweep_command(mech, args, emit=None):
+    """``jointwise sweep``: returns the exit code.
+
+    Streams: the rows are solved ``SWEEP_CHUNK`` at a time (each chunk continuing from the
+    last state of the one before) and written as they come, so memory stays bounded
+    whatever the number of steps.  ``--out`` and ``--plot`` are written under temporary
+    names and moved into place only when both could be written; a sweep with unreachable
+    rows is a complete answer: it is written, and the exit code is 3."""
     drive = args.drive
     mech._require(drive)
     held = {}
@@ -194,28 +331,52 @@ def sweep_command(mech, args, emit):
                             source=mech.source)
         mech._require(name)
         held[name] = v
-    if args.out:
-        _check_out(args.out, "--out")
+    _check_span(mech, drive, args.start, args.end)
     if args.plot:
-        _check_out(args.plot, "--plot")
         if not args.plot.lower().endswith(".png"):
             raise SpecError(f"--plot {args.plot!r}: the plot is a PNG image; give a name ending in .png")
         if not _plot_available():
             print(f"jointwise: {PLOT_INSTALL}", file=sys.stderr)
             return EXIT_USAGE
     mech.check_limits(mech._held_from(held))
-    values = np.linspace(args.start, args.end, args.steps)
-    sw = sweep(mech, drive, values, held)
-    text = sweep_json(mech, sw, drive) if args.format == "json" else sweep_table(mech, sw, drive)
-    emit(text, args.out)
-    if args.plot:
-        plot_sweep(mech, sw, drive, args.plot)
-    bad = np.flatnonzero(~sw.converged)
-    if len(bad):
-        i = int(bad[0])
-        why = sw.reasons.get(i, "the loops do not close there")
-        print(f"jointwise: {len(bad)} of {len(values)} steps did not converge (first: step {i}, "
-              f"{drive} = {values[i]:g}: {why}); those rows repeat the last good pose and are "
+    steps = args.steps
+    with Outputs() as outs:
+        out_tmp = outs.reserve(args.out, "--out") if args.out else None
+        plot_tmp = outs.reserve(args.plot, "--plot") if args.plot else None
+        fh = open(out_tmp, "w", encoding="utf-8", newline="") if out_tmp else sys.stdout
+        plot = _PlotData(steps) if args.plot else None
+        bad, first_bad = 0, None
+        try:
+            if args.format == "json":
+                fh.write(json.dumps({"drive": drive, "poses": []})[:-2])
+            else:
+                fh.write(",".join(header(mech, drive)) + "\n")
+            for k0, sw in sweep_chunks(mech, drive, args.start, args.end, steps, held):
+                if args.format == "json":
+                    fh.write((", " if k0 else "") + _json_rows(sw))
+                else:
+                    fh.write(_csv_rows(mech, sw, k0))
+                nb = np.flatnonzero(~sw.converged)
+                if len(nb) and first_bad is None:
+                    i = int(nb[0])
+                    first_bad = (k0 + i, float(sw.values[i]), sw.reasons.get(i, "the loops do not close there"))
+                bad += len(nb)
+                if plot is not None:
+                    plot.add(k0, sw)
+                del sw
+            if args.format == "json":
+                fh.write("]}\n")
+            fh.flush()
+        finally:
+            if fh is not sys.stdout:
+                fh.close()
+        if plot is not None:
+            plot_sweep(mech, plot.sweep(), drive, plot_tmp)
+        outs.commit()
+    if bad:
+        i, v, why = first_bad
+        print(f"jointwise: {bad} of {steps} steps did not converge (first: step {i}, "
+              f"{drive} = {v:g}: {why}); those rows repeat the last good pose and are "
               f"flagged converged = 0", file=sys.stderr)
         return EXIT_ASSEMBLY
     return EXIT_OK

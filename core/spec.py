@@ -3,6 +3,11 @@
 Every problem raises :class:`SpecError` whose message names the file, the key path
 and what is wrong, e.g. ``vise.toml: joints.screw.axis: axis has zero length``.
 Loaders only parse data (``tomllib``, ``json``); nothing in a file is executed.
+
+Inputs are bounded (:data:`LIMITS`, listed in the README): a file is read with a cap, so
+a device file or a pipe cannot exhaust memory; nesting, list lengths and the magnitude of
+numbers are checked before anything is built from them.  Beyond a limit the loader raises
+:class:`SpecError` naming the limit.
 """
 from __future__ import annotations
 
@@ -10,14 +15,28 @@ import difflib
 import json
 import math
 import os
+import re
 import tomllib
+
+import numpy as np
 
 from .errors import JointwiseError, SpecError
 from .joints import JOINT_TYPES, Joint, lead_from_angle, thread_lead
 
-__all__ = ["load", "loads", "from_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT"]
+__all__ = ["load", "loads", "from_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT", "LIMITS"]
 
 FORMAT = 1
+#: Documented input limits (README, "Input limits").  Beyond them input is refused with
+#: exit 2 before any large allocation.
+LIMITS = {
+    "file_bytes": 16 * 1024 * 1024,   # a mechanism file is read with this cap
+    "nesting": 64,                    # levels of lists and tables
+    "items": 100_000,                 # entries of one list or table
+    "magnitude": 1e12,                # any number in a file (coordinates in file units)
+    "steps": 100_000_000,             # samples of one sweep
+    "turns": 1e4,                     # span of an angle drive in one sweep, in turns
+    "sizes": 1e6,                     # span of a length drive, in mechanism sizes
+}
 #: Length units accepted, with their size in millimetres.
 LENGTH_UNITS = {"mm": 1.0, "cm": 10.0, "m": 1000.0, "in": 25.4}
 #: Angle units accepted, with their size in radians.
@@ -61,8 +80,10 @@ class _Reader:
     def number(self, value, key):
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             self.fail(key, f"expected a number, got {value!r}")
-        if not math.isfinite(value):
+        if isinstance(value, float) and not math.isfinite(value):
             self.fail(key, f"number must be finite, got {value!r}")
+        if abs(value) > LIMITS["magnitude"]:
+            self.fail(key, f"{_short(value)} is beyond the limit of {LIMITS['magnitude']:g} in magnitude")
         return float(value)
 
     def vector(self, value, key):
@@ -87,6 +108,11 @@ class _Reader:
             hint = f"; did you mean {close[0]!r}?" if close else ""
             self.fail(key, f"{value!r} is not one of {', '.join(options)}{hint}")
         return value
+
+
+def _short(value):
+    text = repr(value)
+    return text if len(text) <= 24 else f"{text[:10]}...({len(text)} digits)"
 
 
 class _Object(dict):
@@ -124,21 +150,32 @@ def _find_duplicate(data, path=""):
 def load(path):
     """Read a mechanism file (``.toml`` or ``.json``) and return a :class:`Mechanism`."""
     name = os.path.basename(str(path))
+    cap = LIMITS["file_bytes"]
     try:
         with open(path, "rb") as fh:
-            raw = fh.read()
+            raw = fh.read(cap + 1)
     except OSError as exc:
         raise SpecError(f"cannot read file: {exc.strerror or exc}", source=name) from None
+    if len(raw) > cap:
+        raise SpecError(f"larger than the limit of {cap // (1024 * 1024)} MB for a mechanism file",
+                        source=name)
     return loads(raw, source=name, fmt="json" if name.lower().endswith(".json") else "toml")
 
 
 def loads(text, *, source="<text>", fmt="toml"):
     """Parse mechanism text (TOML or JSON) and return a :class:`Mechanism`."""
+    cap = LIMITS["file_bytes"]
+    if len(text) > cap:  # characters or bytes: either way beyond the cap of a file
+        raise SpecError(f"larger than the limit of {cap // (1024 * 1024)} MB for a mechanism file",
+                        source=source)
     if isinstance(text, bytes):
         try:
             text = text.decode("utf-8")
         except UnicodeDecodeError as exc:
             raise SpecError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", source=source) from None
+    depth = _nesting(text, fmt)
+    if depth > LIMITS["nesting"]:
+        raise SpecError(f"nested {depth} levels deep, beyond the limit of {LIMITS['nesting']}", source=source)
     try:
         if fmt == "json":
             data = json.loads(text, parse_constant=lambda c: float(c), object_pairs_hook=_no_duplicates)
@@ -148,12 +185,61 @@ def loads(text, *, source="<text>", fmt="toml"):
         raise SpecError(f"not valid TOML: {exc}", source=source) from None
     except json.JSONDecodeError as exc:
         raise SpecError(f"not valid JSON: {exc.msg} (line {exc.lineno}, column {exc.colno})", source=source) from None
+    except RecursionError:  # cannot happen below the nesting limit; kept as a last guard
+        raise SpecError(f"nested beyond the limit of {LIMITS['nesting']} levels", source=source) from None
+    except (ValueError, OverflowError) as exc:  # e.g. an integer with thousands of digits
+        raise SpecError(f"not a valid {fmt.upper()} file: {exc}", source=source) from None
+    _check_sizes(data, source)
     if fmt == "json":
         dup = _find_duplicate(data)
         if dup:
             raise SpecError("duplicate key: given more than once (each link, joint and key may appear once)",
                             source=source, key=dup)
     return from_dict(data, source=source)
+
+
+# strings and comments, skipped when brackets are counted
+_SKIP = {
+    "toml": re.compile(r'"""(?:[^"\\]|\\.|"(?!""))*"""|\'\'\'[\s\S]*?\'\'\'|"(?:[^"\\\n]|\\.)*"|\'[^\'\n]*\'|#[^\n]*'),
+    "json": re.compile(r'"(?:[^"\\]|\\.)*"'),
+}
+
+
+def _nesting(text, fmt):
+    """Deepest nesting of brackets in ``text`` (strings and comments skipped).  The parsers
+    recurse once per level, so the depth is measured before parsing (vectorised: a 16 MB
+    file takes a fraction of a second)."""
+    if isinstance(text, bytes):
+        text = text.decode("utf-8", errors="replace")
+    if text.count("[") + text.count("{") <= LIMITS["nesting"]:
+        return 0
+    if any(c in text for c in "\"'#"):
+        text = _SKIP.get(fmt, _SKIP["toml"]).sub(" ", text)
+    code = np.frombuffer(text.encode("utf-8", "replace"), np.uint8)
+    step = (code == ord("[")).astype(np.int8)
+    step += code == ord("{")
+    step -= code == ord("]")
+    step -= code == ord("}")
+    return int(np.cumsum(step, dtype=np.int32).max(initial=0))
+
+
+def _check_sizes(data, source):
+    """Refuse nesting beyond ``LIMITS['nesting']`` (dotted TOML keys nest too) and lists or
+    tables beyond ``LIMITS['items']``, naming the key path; iterative, never recursive."""
+    stack = [(data, "", 0)]
+    while stack:
+        node, path, depth = stack.pop()
+        if len(node) > LIMITS["items"]:
+            raise SpecError(f"{len(node)} entries, beyond the limit of {LIMITS['items']}",
+                            source=source, key=path or None)
+        pairs = node.items() if isinstance(node, dict) else enumerate(node)
+        for k, v in pairs:
+            if isinstance(v, (dict, list)):
+                key = (f"{path}.{k}" if path else str(k)) if isinstance(node, dict) else f"{path}[{k}]"
+                if depth + 1 > LIMITS["nesting"]:
+                    raise SpecError(f"nested deeper than the limit of {LIMITS['nesting']} levels",
+                                    source=source, key=key)
+                stack.append((v, key, depth + 1))
 
 
 def from_dict(data, source="<data>"):
@@ -370,8 +456,8 @@ def _lead(r, key, jd, deg, mm):
     elif way == "pitch":
         pitch = r.number(jd["pitch"], f"{key}.pitch")
         starts = jd.get("starts", 1)
-        if isinstance(starts, bool) or not isinstance(starts, int) or starts < 1:
-            r.fail(f"{key}.starts", f"expected a whole number >= 1, got {starts!r}")
+        if isinstance(starts, bool) or not isinstance(starts, int) or not 1 <= starts <= 1000:
+            r.fail(f"{key}.starts", f"expected a whole number from 1 to 1000, got {_short(starts)}")
         lead = pitch * starts
     elif way == "lead_angle":
         if "diameter" not in jd:
@@ -389,6 +475,8 @@ def _lead(r, key, jd, deg, mm):
         except JointwiseError as exc:
             r.fail(f"{key}.thread", str(exc))
         lead = t["lead"] / mm  # presets are in millimetres
+    if math.isfinite(lead) and abs(lead) > LIMITS["magnitude"]:
+        r.fail(f"{key}.{way}", f"lead {lead:g} is beyond the limit of {LIMITS['magnitude']:g} in magnitude")
     if not lead >= 0:
         r.fail(f"{key}.{way}", "lead must not be negative; use hand = \"left\" for a left-hand thread")
     hand = jd.get("hand", "right")

@@ -18,11 +18,11 @@ def run(*args, cwd=None):
 
 
 def test_check_json_has_exactly_the_interface_keys():
-    # issue 2 and 3 interfaces: these keys, no others
+    # issue 2 and 3 interfaces, plus issue 14's "notes": these keys, no others
     r = run("check", ROCKER, "--format", "json")
     assert r.returncode == 0
     assert set(json.loads(r.stdout)) == {"links", "joints", "coordinates", "loops", "driven", "problems",
-                                         "mobility", "home_closure"}
+                                         "notes", "mobility", "home_closure"}
 
 
 def test_set_given_twice_is_refused():

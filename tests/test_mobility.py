@@ -81,7 +81,7 @@ def test_check_explains_overconstrained_case(name, kz, num, mech_file):
     assert r.code == 0, r
     info = r.json()
     assert info["mobility"]["kutzbach"] == kz and info["mobility"]["numeric"] == num
-    explained = [p for p in info["problems"] if "Kutzbach" in p]
+    explained = [p for p in info["notes"] if "Kutzbach" in p]  # information, not a problem (issue 14)
     assert len(explained) == 1
     sentence = explained[0]
     assert f"Kutzbach {kz}" in sentence and f"actual {num}" in sentence
