@@ -718,8 +718,7 @@ def import_mechanism(scene, mech, objects, marker_collection):
     jw.file_length_unit = mech.length_unit
     jw.file_angle_unit = mech.angle_unit
     jw.measures_json = json.dumps(data.get("measures", {}))
-    jw.geometry_json = json.dumps({n: {k: list(j[k]) for k in ("point", "axis", "axis2") if k in j}
-                                   for n, j in data.get("joints", {}).items()})
+    jw.geometry_json = json.dumps(_file_numbers(mech, data))
     for name in mech.links:
         link = jw.links.add()
         link.name = name
@@ -839,11 +838,22 @@ def export_dict(scene, length_unit=None, angle_unit=None):
         if "axis2" in jd:
             e["axis2"] = [_tidy(v) for v in jd["axis2"]]
         _keep_file_geometry(e, geometry.get(jname, {}), lu == jw.file_length_unit)
+        same = lu == jw.file_length_unit and au == jw.file_angle_unit
+        original = geometry.get(jname, {}) if same else {}
         homes = [_tidy(it.home * f(it)) for it in items]
         e["home"] = homes[0] if len(homes) == 1 else homes
+        if "home" in original:  # a number for every coordinate, or one per coordinate
+            old = original["home"]
+            e["home"] = _file_number(e["home"], old if isinstance(old, list) or len(homes) == 1
+                                     else [old] * len(homes))
         if any(it.use_limits for it in items):
             lims = [[_tidy(it.limit_min * f(it)), _tidy(it.limit_max * f(it))] for it in items]
             e["limits"] = lims[0] if len(lims) == 1 else lims
+            if "limits" in original:
+                old = original["limits"]
+                if len(lims) > 1 and isinstance(old, list) and old and not isinstance(old[0], list):
+                    old = [old] * len(lims)
+                e["limits"] = _file_number(e["limits"], old)
         if first.drive:
             e["drive"] = True
         if first.type == "helical":
@@ -851,17 +861,20 @@ def export_dict(scene, length_unit=None, angle_unit=None):
             if first.thread and _thread_matches(first.thread, lead, lu):
                 e["thread"] = first.thread
             else:
-                e["lead"] = _tidy(lead)
+                e["lead"] = _file_number(_tidy(lead), original.get("lead"))
             e["hand"] = first.hand
         out["joints"][jname] = e
+    same_units = lu == jw.file_length_unit and au == jw.file_angle_unit
     if jw.couplings:
         out["couplings"] = {}
         for c in jw.couplings:
             fi, li = jw.joints.get(c.follower), jw.joints.get(c.leader)
             ff = (k if fi.kind == "length" else a) if fi else 1.0
             lf = (k if li.kind == "length" else a) if li else 1.0
+            exact = geometry.get(_COUPLINGS, {}).get(c.name, {}) if same_units else {}
             out["couplings"][c.name] = {"leader": c.leader, "follower": c.follower,
-                                        "ratio": _tidy(c.ratio * ff / lf), "offset": _tidy(c.offset * ff)}
+                                        "ratio": _file_number(_tidy(c.ratio * ff / lf), exact.get("ratio")),
+                                        "offset": _file_number(_tidy(c.offset * ff), exact.get("offset"))}
     if jw.measures_json:
         try:
             measures = json.loads(jw.measures_json)
@@ -870,6 +883,41 @@ def export_dict(scene, length_unit=None, angle_unit=None):
         if measures and lu == jw.file_length_unit:
             out["measures"] = measures
     return out
+
+
+#: Key of the couplings' exact numbers in ``geometry_json`` (not a possible joint name).
+_COUPLINGS = "\u0000couplings"
+
+
+def _file_numbers(mech, data):
+    """The imported file's own numbers, kept for export (``geometry_json``): per joint its
+    point and axes, home, limits and lead (file units); the couplings' ratio and offset."""
+    out = {}
+    for n, j in data.get("joints", {}).items():
+        e = {k: list(j[k]) for k in ("point", "axis", "axis2") if k in j}
+        for k in ("home", "limits"):
+            if k in j:
+                e[k] = j[k]
+        joint = mech.joints.get(n)
+        if joint is not None and joint.type == "helical" and math.isfinite(float(joint.lead)):
+            e["lead"] = abs(float(joint.lead))
+        out[n] = e
+    if data.get("couplings"):
+        out[_COUPLINGS] = {n: {"ratio": c["ratio"], "offset": c.get("offset", 0.0)}
+                           for n, c in data["couplings"].items()}
+    return out
+
+
+def _file_number(new, old):
+    """``old`` (the file's own number, or nested lists of them) where ``new`` (read back from a
+    float32 property) says the same to float32 precision; else ``new``."""
+    if isinstance(new, list):
+        if not isinstance(old, list) or len(old) != len(new):
+            return new
+        return [_file_number(a, b) for a, b in zip(new, old)]
+    if isinstance(old, bool) or not isinstance(old, (int, float)) or not math.isfinite(old):
+        return new
+    return float(old) if abs(new - old) <= 1e-6 * max(1.0, abs(old)) else new
 
 
 def _keep_file_geometry(entry, original, same_unit):

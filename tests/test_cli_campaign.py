@@ -7,7 +7,7 @@ few hundred cases run in seconds.  Every case asserts:
 
 * no traceback: nothing but ``SystemExit`` / a return code leaves ``main``;
 * only documented exit codes (0, 2, 3);
-* no NaN or infinity in anything written (stdout, ``--out``, the plot's existence aside);
+* no NaN or infinity in anything written (stdout, ``--out``);
 * after a failure (exit 2, or 3 of a command other than ``sweep``) no output file and no
   temporary file is left behind in the output folder; a sweep that exits 3 has written
   its complete, flagged table.
@@ -54,7 +54,8 @@ ODD_VALUES = ODD_NUMBERS + ["", "x", "revolute", "nan", True, False, [], [1], [0
                             [[1, 2], [3, 4]], {}, {"link": "frame"}, "\u00e9\u0000"]
 ARG_NUMBERS = ["0", "1", "-1", "90", "1e20", "-1e300", "1e400", "nan", "inf", "-inf", "abc", "", "1e6",
                "3600000", "0x10", "1_000"]
-STEP_ARGS = ["2", "3", "17", "1", "0", "-5", "1e20", "1000000000", "100000001", "2.5", "abc", "1e2"]
+STEP_ARGS = ["2", "3", "17", "9", "9", "17", "1", "0", "-5", "1e20", "1000000000", "100000001", "2.5", "abc",
+             "1e1"]
 
 
 def _paths(d, prefix=()):
@@ -82,8 +83,8 @@ def mutated_file(draw):
     """(sample name, file name, bytes) of a mutated sample."""
     name = draw(st.sampled_from(NAMES))
     data = copy.deepcopy(DATA[name])
-    kind = draw(st.sampled_from(["none", "replace", "replace", "replace", "delete", "add", "cut", "bytes",
-                                 "deep", "long", "json"]))
+    kind = draw(st.sampled_from(["none"] * 5 + ["replace"] * 4 + ["delete", "add", "cut", "bytes", "deep",
+                                                                "json"]))
     paths = _paths(data)
     if kind == "replace":
         path = draw(st.sampled_from(paths))
@@ -116,9 +117,6 @@ def mutated_file(draw):
         if draw(st.booleans()):
             return name, f"{name}.json", ("[" * depth + "]" * depth).encode()
         text = "deep = " + "[" * depth + "]" * depth + "\n" + text
-    elif kind == "long":
-        n = draw(st.sampled_from([100_000, 100_001]))
-        text = "junk = [" + ", ".join(["0"] * n) + "]\n" + text
     raw = text.encode("utf-8", errors="surrogatepass")
     return name, f"{name}.toml", raw
 
@@ -163,7 +161,7 @@ def command(draw, name):
     if cmd == "check":
         args += draw(st.sampled_from([[], ["--format", "json"], ["--format", "text"], ["--format", "xml"]]))
         return args
-    sets = draw(st.lists(st.tuples(st.sampled_from(coords), st.sampled_from(ARG_NUMBERS)), max_size=2))
+    sets = draw(st.lists(st.tuples(st.sampled_from(coords), st.sampled_from(ARG_NUMBERS)), max_size=1))
     for c, v in sets:
         args += ["--set", f"{c}={v}"]
     if cmd == "pose":
@@ -174,8 +172,8 @@ def command(draw, name):
     if cmd == "range":
         args += draw(st.sampled_from([[], ["--format", "json"]]))
         return args
-    a = draw(st.sampled_from(["0", "60", "-30", "1e20", "nan", "1e6", "-1e12", "abc"]))
-    b = draw(st.sampled_from(["90", "420", "0", "1e9", "3600001", "inf", "36000000"]))
+    a = draw(st.sampled_from(["0", "60", "-30", "0", "60", "1e20", "nan", "1e6", "-1e12", "abc"]))
+    b = draw(st.sampled_from(["90", "420", "0", "90", "420", "1e9", "3600001", "inf", "36000000"]))
     args += ["--from", a, "--to", b, "--steps", draw(st.sampled_from(STEP_ARGS))]
     args += draw(st.sampled_from([[], ["--format", "json"], ["--format", "csv"]]))
     out = draw(st.sampled_from([None, None, "ok/t.csv", "missing/t.csv", "ro/t.csv", "ok"]))
@@ -223,8 +221,10 @@ def check_case(tmp, name, fname, raw, special, args):
     work = tmp / f"c{TALLY['cases']}"
     work.mkdir()
     (work / "ok").mkdir()
-    ro = work / "ro"
-    ro.mkdir()
+    root = os.geteuid() == 0
+    ro = Path("/sys") if root else work / "ro"  # root ignores permission bits; /sys refuses new files
+    if not root:
+        ro.mkdir()
     path = work / fname
     path.write_bytes(raw)
     if special == "folder":
@@ -238,14 +238,16 @@ def check_case(tmp, name, fname, raw, special, args):
     argv = [args[0], target] + [a.replace("ok/", f"{work}/ok/").replace("ro/", f"{ro}/")
                                 .replace("missing/", f"{work}/missing/") if a.endswith((".csv", ".png", ".txt"))
                                 else (str(work / "ok") if a == "ok" else a) for a in args[1:]]
-    os.chmod(ro, 0o555)
+    if not root:
+        os.chmod(ro, 0o555)
     before = {"ok": _listing(work / "ok"), "ro": _listing(ro)}
     t0 = time.perf_counter()
     try:
         code, crash, out, err = _run(argv)
         after = {"ok": _listing(work / "ok"), "ro": _listing(ro)}
     finally:
-        os.chmod(ro, 0o755)
+        if not root:
+            os.chmod(ro, 0o755)
     TALLY["cases"] += 1
     if os.environ.get("JOINTWISE_CAMPAIGN_LOG"):
         with open(os.environ["JOINTWISE_CAMPAIGN_LOG"], "a") as fh:
@@ -272,7 +274,8 @@ def check_case(tmp, name, fname, raw, special, args):
     if crash is not None or not kept:
         if written:
             problems.append(f"left behind after exit {code}: {[p.name for p in written]}")
-    leftovers = [n for n in (after["ok"] or []) + (after["ro"] or []) if "tmp" in n or n.startswith(".")]
+    leftovers = [n for n in (after["ok"] or []) if "tmp" in n or n.startswith(".")]
+    leftovers += sorted(set(after["ro"] or []) - set(before["ro"] or []))
     if leftovers:
         problems.append(f"temporary files left behind: {leftovers}")
     if problems:
