@@ -242,21 +242,16 @@ def _guarded(fn, args):
 
 
 def _emit(text, path=None):
-    """Write ``text`` to ``path`` atomically (temp file + rename), or to stdout."""
+    """Write ``text`` to stdout, or to ``path`` whole or not at all (:class:`report.Outputs`)."""
     if path is None:
         sys.stdout.write(text)
         return
-    tmp = f"{path}.tmp-{os.getpid()}"
-    try:
-        try:
-            with open(tmp, "w", encoding="utf-8", newline="") as fh:
-                fh.write(text)
-            os.replace(tmp, path)
-        except OSError as exc:
-            raise SpecError(f"cannot write {path!r}: {exc.strerror or exc}", key="--out") from None
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+    from .report import Outputs
+    with Outputs() as outs:
+        tmp = outs.reserve(path, "--out")
+        with open(tmp, "a" if tmp == path else "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        outs.commit()
 
 
 def cmd_check(mech, args):

@@ -150,6 +150,15 @@ class Outputs:
             raise SpecError(f"{option} {path!r}: folder {folder!r} does not exist")
         if os.path.isdir(path):
             raise SpecError(f"{option} {path!r} is a folder")
+        if os.path.islink(path) or (os.path.exists(path) and not os.path.isfile(path)):
+            # a device, a pipe or a link (/dev/null, /dev/stdout, a FIFO): written directly,
+            # never replaced by a rename (that would swap the device or link for a file)
+            try:
+                open(path, "a").close()
+            except OSError as exc:
+                raise SpecError(f"{option} {path!r}: cannot write: {exc.strerror or exc}") from None
+            self._items.append((None, path, option))
+            return path
         try:
             fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".part", dir=folder)
         except OSError as exc:
@@ -167,6 +176,8 @@ class Outputs:
 
     def commit(self):
         for tmp, path, option in self._items:
+            if tmp is None:
+                continue
             try:
                 os.replace(tmp, path)
             except OSError as exc:
@@ -175,6 +186,8 @@ class Outputs:
 
     def discard(self):
         for tmp, _, _ in self._items:
+            if tmp is None:
+                continue
             try:
                 os.unlink(tmp)
             except OSError:
@@ -335,6 +348,9 @@ def sweep_command(mech, args, emit=None):
     if args.plot:
         if not args.plot.lower().endswith(".png"):
             raise SpecError(f"--plot {args.plot!r}: the plot is a PNG image; give a name ending in .png")
+        if os.path.islink(args.plot) or (os.path.exists(args.plot) and not os.path.isfile(args.plot)
+                                         and not os.path.isdir(args.plot)):
+            raise SpecError(f"--plot {args.plot!r} is a link, a device or a pipe; give a file name")
         if not _plot_available():
             print(f"jointwise: {PLOT_INSTALL}", file=sys.stderr)
             return EXIT_USAGE
@@ -343,7 +359,8 @@ def sweep_command(mech, args, emit=None):
     with Outputs() as outs:
         out_tmp = outs.reserve(args.out, "--out") if args.out else None
         plot_tmp = outs.reserve(args.plot, "--plot") if args.plot else None
-        fh = open(out_tmp, "w", encoding="utf-8", newline="") if out_tmp else sys.stdout
+        fh = (open(out_tmp, "a" if out_tmp == args.out else "w", encoding="utf-8", newline="")
+              if out_tmp else sys.stdout)
         plot = _PlotData(steps) if args.plot else None
         bad, first_bad = 0, None
         try:
