@@ -249,7 +249,7 @@ def _emit(text, path=None):
     from .report import Outputs
     with Outputs() as outs:
         tmp = outs.reserve(path, "--out")
-        with open(tmp, "a" if tmp == path else "w", encoding="utf-8", newline="") as fh:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
         outs.commit()
 

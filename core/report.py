@@ -153,10 +153,8 @@ class Outputs:
         if os.path.islink(path) or (os.path.exists(path) and not os.path.isfile(path)):
             # a device, a pipe or a link (/dev/null, /dev/stdout, a FIFO): written directly,
             # never replaced by a rename (that would swap the device or link for a file)
-            try:
-                open(path, "a").close()
-            except OSError as exc:
-                raise SpecError(f"{option} {path!r}: cannot write: {exc.strerror or exc}") from None
+            if not os.access(path, os.W_OK):
+                raise SpecError(f"{option} {path!r}: cannot write there (no permission)")
             self._items.append((None, path, option))
             return path
         try:
@@ -359,7 +357,7 @@ def sweep_command(mech, args, emit=None):
     with Outputs() as outs:
         out_tmp = outs.reserve(args.out, "--out") if args.out else None
         plot_tmp = outs.reserve(args.plot, "--plot") if args.plot else None
-        fh = (open(out_tmp, "a" if out_tmp == args.out else "w", encoding="utf-8", newline="")
+        fh = (open(out_tmp, "w", encoding="utf-8", newline="")
               if out_tmp else sys.stdout)
         plot = _PlotData(steps) if args.plot else None
         bad, first_bad = 0, None

@@ -306,3 +306,21 @@ def test_version_matches_the_package():
     assert code == 0 and out.strip() == f"jointwise {jointwise.__version__}"
     meta = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]["version"]
     assert jointwise.__version__ == meta
+
+
+def test_device_or_link_as_out_is_written_in_place_never_replaced(tmp_path):
+    import stat
+    if stat.S_ISCHR(os.stat(os.devnull).st_mode):
+        code, _, err = run_in("sweep", ROCKER, "--drive", "crank_pin", "--from", "60", "--to", "420",
+                              "--steps", "3", "--out", os.devnull)
+        assert code == 0, err
+        assert stat.S_ISCHR(os.lstat(os.devnull).st_mode)  # still the device, not a file
+    target = tmp_path / "real.csv"
+    target.write_text("old\n")
+    link = tmp_path / "link.csv"
+    link.symlink_to(target)
+    code, _, err = run_in("sweep", ROCKER, "--drive", "crank_pin", "--from", "60", "--to", "420",
+                          "--steps", "3", "--out", link)
+    assert code == 0, err
+    assert link.is_symlink() and target.read_text().startswith("step,crank_pin")
+    assert sorted(os.listdir(tmp_path)) == ["link.csv", "real.csv"]
