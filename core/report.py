@@ -86,7 +86,6 @@ def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None):
     steps)``, ``chunk`` at a time, each chunk continuing from the last solved state of the
     one before (:meth:`Mechanism.sweep` with ``start``).  Only one chunk is held at a time.
     The values equal ``np.linspace``'s bit for bit (same formula, end point exact)."""
-    from .sweep import sweep
     chunk = chunk or SWEEP_CHUNK
     div = steps - 1
     delta = end - start
@@ -98,8 +97,8 @@ def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None):
         vals = idx * step + start if step != 0 else idx / div * delta + start
         if k1 == steps:
             vals[-1] = end
-        sw = sweep(mech, drive, vals, held, start=state)
-        state = sw.q[-1]
+        sw = mech.sweep(drive, vals, held, start=state)
+        state = sw.q[-1]  # the last solved state (a failed last row repeats the last good one)
         yield k0, sw
 
 
