@@ -48,6 +48,7 @@ import numpy as np
 
 from . import spatial
 from .errors import AssemblyError, SpecError
+from .spec import LIMITS
 
 __all__ = ["pose_to_targets", "REACHED", "parse_targets"]
 
@@ -109,6 +110,9 @@ def parse_targets(mech, targets):
             raise SpecError(f"target {name!r} names no point measure or link{hint}", source=mech.source)
         if not np.all(np.isfinite(arr)):
             raise SpecError(f"target {name!r} must be finite, got {value!r}", source=mech.source)
+        if np.abs(arr).max() > LIMITS["magnitude"]:
+            raise SpecError(f"target {name!r}: {np.abs(arr).max():g} is beyond the limit of "
+                            f"{LIMITS['magnitude']:g} in magnitude", source=mech.source)
         if kind == "point":
             out.append((name, "point", (meas.a[0], np.asarray(meas.a[1], float), arr)))
         else:

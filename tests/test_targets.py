@@ -282,6 +282,8 @@ def test_unknown_target_is_a_spec_error_naming_it():
         m.pose(targets={"coupler": [1, 2, 3]})
     with pytest.raises(SpecError, match="'hook' must be finite"):
         m.pose(targets={"hook": [0, math.nan, 0]})
+    with pytest.raises(SpecError, match="'hook': 1e\\+300 is beyond the limit"):
+        m.pose(targets={"hook": [1e300, 0, 0]})
     bad = np.eye(4)
     bad[0, 0] = 2.0
     with pytest.raises(SpecError, match="rigid motion"):
@@ -326,7 +328,8 @@ def test_cli_target_json_and_text(tmp_path):
 
 @pytest.mark.parametrize("arg, words", [("hok=1,2,3", "did you mean 'hook'"), ("hook=1,x,3", "not a number"),
                                         ("hook=1,2", "three numbers"), ("coupler=1,2,3", "is a link"),
-                                        ("hook=1,inf,3", "not finite"), ("hook", "NAME=X,Y,Z")])
+                                        ("hook=1,inf,3", "not finite"), ("hook", "NAME=X,Y,Z"),
+                                        ("hook=1e300,0,0", "beyond the limit")])
 def test_cli_bad_target_exits_2(tmp_path, arg, words):
     path = M.write(four_bar_with_point(), tmp_path / "hf.toml")
     run = run_cli("pose", path, "--target", arg)
