@@ -1,13 +1,17 @@
-"""Jointwise for Blender: registration only (see properties, scene, operators, panels,
-bake, handlers)."""
+"""Jointwise for Blender: registration only.
+
+Layers, bottom to top (each module imports only from modules below it; the order is
+written once, in tests/test_addon_pure.py): convert, keys, fit, proximity (pure, no bpy)
+-> properties -> scene -> animation -> posing -> live, bake -> trace, files ->
+operators -> panels, clearance -> __init__.
+"""
 from __future__ import annotations
 
 import bpy
 
-from . import clearance, handlers, operators, panels, properties, trace
+from . import clearance, live, operators, panels, properties
 
-CLASSES = (properties.CLASSES + operators.CLASSES + panels.CLASSES + trace.CLASSES
-           + clearance.CLASSES)
+CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + clearance.CLASSES
 
 
 def register():
@@ -15,11 +19,11 @@ def register():
         bpy.utils.register_class(cls)
     clearance.register()
     properties.register_scene_property()
-    handlers.register()
+    live.register()
 
 
 def unregister():
-    handlers.unregister()
+    live.unregister()
     properties.unregister_scene_property()
     clearance.unregister()
     for cls in reversed(CLASSES):

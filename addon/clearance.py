@@ -71,9 +71,7 @@ class Cancelled(Exception):
 def solve_motion(scene, frames, ramp=None):
     """Link displacements ``{link: (N, 4, 4)}`` at ``frames``, solved exactly as the bake
     solves them, without writing keys. The only call into the bake's solving."""
-    mech = sc.mechanism_from_scene(scene)
-    table = bk.value_table(scene, mech, frames, ramp)
-    solved = bk.solve_frames(scene, mech, frames, table)
+    solved = bk.solve_at(scene, frames, ramp)
     fail = solved.first_failure()
     if fail is not None:
         raise sc.SceneError(f"frame {fail[0]}: {fail[1]}; no clearance results were written")

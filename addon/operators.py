@@ -9,8 +9,8 @@ import numpy as np
 from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, StringProperty
 from bpy_extras.io_utils import ExportHelper, ImportHelper
 
+from . import animation, convert, files, posing, properties, trace
 from . import bake as bk
-from . import handlers
 from . import scene as sc
 from .properties import JOINT_TYPES
 
@@ -64,16 +64,16 @@ class JOINTWISE_OT_mechanism_import(_Base, bpy.types.Operator, ImportHelper):
         try:
             jw = sc.core()
             mech = jw.load(path)
-            objects = sc.validate_file_objects(scene, mech)
-            sc.import_mechanism(scene, mech, objects, marker_collection(scene))
+            objects = files.validate_file_objects(scene, mech)
+            files.import_mechanism(scene, mech, objects, marker_collection(scene))
         except _errors() as exc:
             return self.fail(f"cannot import {os.path.basename(path)}: {exc}")
         try:
             m = sc.mechanism_from_scene(scene)
-            sc.set_status(scene, message=f"imported {os.path.basename(path)}",
-                          mobility=sc.mobility_of(m))
+            posing.set_status(scene, message=f"imported {os.path.basename(path)}",
+                          mobility=posing.mobility_of(m))
         except _errors() as exc:
-            sc.set_status(scene, converged=False, message=str(exc))
+            posing.set_status(scene, converged=False, message=str(exc))
             self.report({'WARNING'}, f"imported, but the scene's mechanism does not build: {exc}")
         self.report({'INFO'}, f"imported mechanism with {len(mech.links)} links and "
                               f"{len(mech.joints)} joints")
@@ -90,7 +90,7 @@ class JOINTWISE_OT_mechanism_export(_Base, bpy.types.Operator, ExportHelper):
     def run(self, context):
         from . import tomlwrite
         try:
-            data = sc.export_dict(context.scene)
+            data = files.export_dict(context.scene)
             tomlwrite.write(self.filepath, data)
         except _errors() + (ValueError, TypeError) as exc:
             return self.fail(f"cannot export to {os.path.basename(self.filepath)}: {exc}")
@@ -118,27 +118,20 @@ class JOINTWISE_OT_bake(_Base, bpy.types.Operator):
         scene = context.scene
         if self.frame_end < self.frame_start:
             return self.fail(f"frame range {self.frame_start}..{self.frame_end} is empty")
-        jw = scene.jointwise
-        ramp = None
-        if self.drive:
-            if self.drive not in jw.joints:
-                return self.fail(f"ramp coordinate {self.drive!r} is not a joint coordinate")
-            if not (math.isfinite(self.value_from) and math.isfinite(self.value_to)):
-                return self.fail("ramp values must be finite")
-            ramp = (self.drive, self.value_from, self.value_to)
-        frames = np.arange(self.frame_start, self.frame_end + 1)
         wm = context.window_manager
-        wm.progress_begin(0, len(frames))
+        wm.progress_begin(0, self.frame_end - self.frame_start + 1)
         try:
-            count, t_solve, t_write = bk.bake(scene, frames, ramp, progress=wm.progress_update)
+            count, t_solve, t_write = bk.bake(scene, self.frame_start, self.frame_end, self.drive,
+                                              self.value_from, self.value_to,
+                                              progress=wm.progress_update)
         except _errors() as exc:
-            sc.set_status(scene, converged=False, message=f"bake failed: {exc}")
+            posing.set_status(scene, converged=False, message=f"bake failed: {exc}")
             return self.fail(f"bake failed: {exc}")
         finally:
             wm.progress_end()
         msg = (f"baked {count} objects over frames {self.frame_start}-{self.frame_end} "
                f"(solve {t_solve:.2f} s, write {t_write:.2f} s)")
-        sc.set_status(scene, message=msg)
+        posing.set_status(scene, message=msg)
         self.report({'INFO'}, msg)
         return {'FINISHED'}
 
@@ -153,7 +146,7 @@ class JOINTWISE_OT_bake_clear(_Base, bpy.types.Operator):
         n = 0
         for link in scene.jointwise.links:
             if sc.object_alive(scene, link.object):
-                n += bk.clear(link.object)
+                n += animation.clear(link.object)
         self.report({'INFO'}, f"cleared baked motion of {n} objects")
         return {'FINISHED'}
 
@@ -178,11 +171,11 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
         old = ([tuple(l.home) for l in jw.links], [(it.home, tuple(it.marker_home)) for it in jw.joints])
         for link, obj in links:
             if obj is not None:
-                link.home = sc.matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world))
+                link.home = convert.matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world))
         for item in jw.joints:
             item.home = item.last = item.value
             if item.marker is not None:
-                item.marker_home = sc.matrix_core_to_stored(sc.matrix_host_to_core(item.marker.matrix_world))
+                item.marker_home = convert.matrix_core_to_stored(sc.matrix_host_to_core(item.marker.matrix_world))
         try:
             sc.clear_cache()
             mech = sc.mechanism_from_scene(scene)
@@ -193,7 +186,7 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
                 item.home, item.marker_home = h, mh
             sc.clear_cache()
             return self.fail(f"cannot set home here: {exc}")
-        sc.set_status(scene, message="home set", mobility=sc.mobility_of(mech))
+        posing.set_status(scene, message="home set", mobility=posing.mobility_of(mech))
         return {'FINISHED'}
 
 
@@ -214,8 +207,8 @@ class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
         for it in jw.joints:  # markers on the world (not parented to a link) go back too
             m = it.marker
             if it.slot == 1 and sc.object_alive(scene, m) and m.parent is None:
-                m.matrix_world = sc.matrix_core_to_host(sc.matrix_stored_to_core(it.marker_home))
-        sc.set_status(scene, message="at home")
+                m.matrix_world = sc.matrix_core_to_host(convert.matrix_stored_to_core(it.marker_home))
+        posing.set_status(scene, message="at home")
         return {'FINISHED'}
 
 
@@ -225,7 +218,7 @@ class JOINTWISE_OT_pose(_Base, bpy.types.Operator):
     bl_label = "Solve Now"
 
     def run(self, context):
-        ok, msg = sc.pose_scene(context.scene)
+        ok, msg = posing.pose_scene(context.scene)
         if not ok:
             return self.fail(msg)
         return {'FINISHED'}
@@ -240,7 +233,7 @@ class JOINTWISE_OT_live_toggle(_Base, bpy.types.Operator):
         jw = context.scene.jointwise
         jw.live = not jw.live
         if jw.live:
-            ok, msg = sc.pose_scene(context.scene)
+            ok, msg = posing.pose_scene(context.scene)
             if not ok:
                 self.report({'WARNING'}, msg)
         return {'FINISHED'}
@@ -258,7 +251,7 @@ class JOINTWISE_OT_value_key(_Base, bpy.types.Operator):
         i = self.index if self.index >= 0 else jw.joint_index
         if not 0 <= i < len(jw.joints):
             return self.fail("no joint value to key")
-        bk.key_value(scene, f"jointwise.joints[{i}].value", scene.frame_current, jw.joints[i].value)
+        animation.key_value(scene, f"jointwise.joints[{i}].value", scene.frame_current, jw.joints[i].value)
         return {'FINISHED'}
 
 
@@ -287,7 +280,7 @@ def _ensure_link(jw, obj):
     link.name = name
     link.object = obj
     link.object_name = obj.name
-    link.home = sc.matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world))
+    link.home = convert.matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world))
     return name
 
 
@@ -335,12 +328,12 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
             axis = np.eye(3)[i] if src.startswith("GLOBAL") else cw[:3, i]
             if not np.linalg.norm(axis) > 1e-12:
                 return self.fail(f"object {child.name!r} has a zero-length local {src[-1]} axis")
-            frame[:3, :3] = sc._orientation(axis)
+            frame[:3, :3] = convert.orientation(axis)
             frame[:3, 3] = cw[:3, 3]
         z = frame[:3, 2]
         if not np.linalg.norm(z) > 1e-12:
             return self.fail("the chosen axis has zero length")
-        frame[:3, :3] = sc._orientation(z, frame[:3, 0] if np.linalg.norm(frame[:3, 0]) > 1e-12 else None)
+        frame[:3, :3] = convert.orientation(z, frame[:3, 0] if np.linalg.norm(frame[:3, 0]) > 1e-12 else None)
         # names and links
         if not jw.links:
             jw.ground = jw.ground or "ground"
@@ -372,7 +365,7 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
                 marker.parent = parent_obj
                 marker.matrix_parent_inverse = parent_obj.matrix_world.inverted()
                 marker.matrix_world = sc.matrix_core_to_host(frame)
-        with handlers.quiet():
+        with properties.quiet():
             for i, kind in enumerate(kinds):
                 it = jw.joints.add()
                 it.name = name if len(kinds) == 1 else f"{name}.{i + 1}"
@@ -384,7 +377,7 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
                 if self.type == "helical":
                     it.lead = 0.1 * max(max(child.dimensions), 1e-3)
                 if marker is not None:
-                    it.marker_home = sc.matrix_core_to_stored(frame)
+                    it.marker_home = convert.matrix_core_to_stored(frame)
         jw.joint_index = len(jw.joints) - 1
         sc.clear_cache()
         self.report({'INFO'}, f"added {self.type} joint {name!r} ({parent} -> {childname})")
@@ -417,7 +410,7 @@ class JOINTWISE_OT_joint_remove(_Base, bpy.types.Operator):
             else:
                 mapping[i] = j
                 j += 1
-        bk.remap_coordinate_paths(scene, mapping)
+        animation.remap_coordinate_paths(scene, mapping)
         for i in reversed(idx):
             jw.joints.remove(i)
         for ci in reversed(range(len(jw.couplings))):
@@ -480,9 +473,62 @@ class JOINTWISE_OT_coupling_remove(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
+class JOINTWISE_OT_trace_add(_Base, bpy.types.Operator):
+    """Draw the path of a point measure over a frame range as a curve object"""
+    bl_idname = "jointwise.trace_add"
+    bl_label = "Add Trace"
+    measure: StringProperty(name="Point measure", default="",
+                            description="Name of a point measure of the mechanism file")
+    frame_start: IntProperty(name="Start", default=1)
+    frame_end: IntProperty(name="End", default=250)
+    drive: StringProperty(name="Ramp coordinate", default="",
+                          description="Optional: run this coordinate linearly from a value to a value")
+    value_from: FloatProperty(name="From", default=0.0)
+    value_to: FloatProperty(name="To", default=0.0)
+    bevel: FloatProperty(name="Thickness", default=0.0, min=0.0,
+                         description="Bevel depth in scene units (0: from the mechanism's size)")
+
+    def invoke(self, context, event):
+        self.frame_start = context.scene.frame_start
+        self.frame_end = context.scene.frame_end
+        if not self.measure:
+            try:
+                names = sorted(trace.point_measures(context.scene))
+            except sc.SceneError:
+                names = []
+            self.measure = names[0] if names else ""
+        return context.window_manager.invoke_props_dialog(self)
+
+    def run(self, context):
+        scene = context.scene
+        jw = scene.jointwise
+        if not jw.joints:
+            return self.fail("the scene has no mechanism: import a mechanism file first")
+        if not self.measure:
+            return self.fail("name the point measure to trace")
+        if self.frame_end <= self.frame_start:
+            return self.fail(f"frame range {self.frame_start}..{self.frame_end} needs at least two frames")
+        try:
+            xyz = trace.trace_points(scene, self.measure, self.frame_start, self.frame_end,
+                                     self.drive, self.value_from, self.value_to)
+            bevel = self.bevel
+            if not bevel > 0:
+                mech = sc.mechanism_from_scene(scene)
+                size = float(getattr(mech, "size", 1.0))
+                bevel = 0.006 * (size if size > 0 and math.isfinite(size) else 1.0)
+            obj = trace.write_curve(scene, self.measure, xyz, bevel)
+        except _errors() as exc:
+            return self.fail(f"cannot trace {self.measure!r}: {exc}")
+        self.report({'INFO'}, f"traced {self.measure!r} over frames {self.frame_start}-"
+                              f"{self.frame_end} into {obj.name!r}")
+        return {'FINISHED'}
+
+
+
 CLASSES = (
     JOINTWISE_OT_mechanism_import, JOINTWISE_OT_mechanism_export, JOINTWISE_OT_bake,
     JOINTWISE_OT_bake_clear, JOINTWISE_OT_home_set, JOINTWISE_OT_home_restore, JOINTWISE_OT_pose,
     JOINTWISE_OT_live_toggle, JOINTWISE_OT_joint_add, JOINTWISE_OT_joint_remove,
     JOINTWISE_OT_coupling_add, JOINTWISE_OT_coupling_remove, JOINTWISE_OT_value_key,
+    JOINTWISE_OT_trace_add,
 )

@@ -22,9 +22,8 @@ import zipfile
 
 ADDON = pathlib.Path(__file__).resolve().parent
 ROOT = ADDON.parent
-MODULES = ("__init__.py", "properties.py", "scene.py", "operators.py",
-           "panels.py", "bake.py", "handlers.py", "tomlwrite.py", "trace.py",
-           "clearance.py", "proximity.py")
+# every module of the extension (all of addon/*.py but this script)
+MODULES = tuple(sorted(p.name for p in ADDON.glob("*.py") if p.name != "package.py"))
 
 
 def project_version():

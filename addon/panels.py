@@ -3,6 +3,10 @@ from __future__ import annotations
 
 import bpy
 
+from . import scene as sc
+from . import trace
+from .convert import SceneError
+
 
 class JOINTWISE_UL_joints(bpy.types.UIList):
     """One row per joint coordinate: name, value slider, drive flag."""
@@ -126,5 +130,34 @@ class JOINTWISE_PT_bake(_Tab, bpy.types.Panel):
         row.operator("jointwise.bake_clear", text="Clear", icon='X')
 
 
+class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
+    """Point measures of the mechanism file, each with a button drawing its path over the
+    scene's frame range."""
+    bl_label = "Traces"
+    bl_options = {'DEFAULT_CLOSED'}
+
+    def draw(self, context):
+        layout = self.layout
+        scene = context.scene
+        try:
+            names = sorted(trace.point_measures(scene))
+        except SceneError as exc:
+            layout.label(text=sc.message_core_to_host(str(exc)))
+            return
+        if not names:
+            layout.label(text="No point measures in the mechanism file")
+            return
+        traced = {o.get(trace.TAG) for o in scene.objects if o.get(trace.TAG)}
+        for name in names:
+            row = layout.row(align=True)
+            row.label(text=name + ("  (traced)" if name in traced else ""))
+            op = row.operator("jointwise.trace_add", text="Trace")
+            op.measure = name
+            op.frame_start = scene.frame_start
+            op.frame_end = scene.frame_end
+
+
+
 CLASSES = (JOINTWISE_UL_joints, JOINTWISE_UL_couplings, JOINTWISE_PT_mechanism,
-           JOINTWISE_PT_joints, JOINTWISE_PT_links, JOINTWISE_PT_couplings, JOINTWISE_PT_bake)
+           JOINTWISE_PT_joints, JOINTWISE_PT_links, JOINTWISE_PT_couplings, JOINTWISE_PT_bake,
+           JOINTWISE_PT_traces)

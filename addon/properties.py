@@ -25,6 +25,7 @@ turned at any pose and is always understood in the parent link's frame.
 ``marker_home`` keeps the marker's home placement from the last set-home, used by
 return-to-home.
 """
+import contextlib
 import math
 
 import bpy
@@ -45,9 +46,29 @@ JOINT_TYPES = (
 )
 
 
+_quiet = [0]
+VALUE_CHANGED = []  # set by ``live.register``: called as f(item, context) when a value changes
+
+
+@contextlib.contextmanager
+def quiet():
+    """Write properties without triggering posing."""
+    _quiet[0] += 1
+    try:
+        yield
+    finally:
+        _quiet[0] -= 1
+
+
+def is_quiet():
+    return _quiet[0] > 0
+
+
 def _value_update(self, context):
-    from . import handlers
-    handlers.value_changed(self, context)
+    if _quiet[0]:
+        return
+    for f in VALUE_CHANGED:
+        f(self, context)
 
 
 def _view(target, label, subtype, unit, precision):

@@ -19,15 +19,13 @@ All or nothing: a frame that cannot be solved is named and no curve is written.
 from __future__ import annotations
 
 import json
-import math
 
 import bpy
 import numpy as np
-from bpy.props import FloatProperty, IntProperty, StringProperty
 
 from . import bake as bk
 from . import scene as sc
-from .operators import _Base, _errors
+from .convert import SceneError
 
 TAG = "jointwise_trace"
 COLOUR = (0.85, 0.25, 0.55, 1.0)
@@ -39,7 +37,7 @@ def point_measures(scene):
     try:
         measures = json.loads(text) if text else {}
     except ValueError:
-        raise sc.SceneError("the stored measures of the mechanism cannot be read; "
+        raise SceneError("the stored measures of the mechanism cannot be read; "
                             "re-import the mechanism file") from None
     out = {}
     for name, m in measures.items():
@@ -48,27 +46,27 @@ def point_measures(scene):
     return out
 
 
-def trace_points(scene, measure, frames, ramp=None):
-    """World positions (N, 3), scene units, of point measure ``measure`` at ``frames``.
+def trace_points(scene, measure, frame_start, frame_end, drive="", value_from=0.0, value_to=0.0):
+    """World positions (N, 3), scene units, of point measure ``measure`` at the frames
+    ``frame_start..frame_end`` (solved as the bake solves them).
 
     Raises SceneError when the measure is unknown or a frame cannot be solved."""
     jw = scene.jointwise
     points = point_measures(scene)
     if measure not in points:
         known = ", ".join(sorted(points)) or "none"
-        raise sc.SceneError(f"no point measure named {measure!r} in the mechanism "
+        raise SceneError(f"no point measure named {measure!r} in the mechanism "
                             f"(point measures: {known})")
     link, at = points[measure]
     if link not in jw.links:
-        raise sc.SceneError(f"measure {measure!r}: its link {link!r} is not among the links")
+        raise SceneError(f"measure {measure!r}: its link {link!r} is not among the links")
     k = sc.length_file_to_host(scene, jw.file_length_unit)
     p = np.append(np.asarray(at, dtype=float) * k, 1.0)
-    mech = sc.mechanism_from_scene(scene)
-    table = bk.value_table(scene, mech, frames, ramp)
-    solved = bk.solve_frames(scene, mech, frames, table)
+    solved = bk.solve_frames(scene, frame_start, frame_end, drive, value_from, value_to)
+    frames = solved.frames
     fail = solved.first_failure()
     if fail is not None:
-        raise sc.SceneError(f"frame {fail[0]}: {fail[1]}; no trace was written")
+        raise SceneError(f"frame {fail[0]}: {fail[1]}; no trace was written")
     g = sc.ground_displacement(scene)
     if link == jw.ground:
         d = np.tile(np.eye(4), (len(frames), 1, 1))
@@ -76,7 +74,7 @@ def trace_points(scene, measure, frames, ramp=None):
         d = np.asarray(solved.links[link], dtype=float)
     xyz = np.einsum("ij,njk,k->ni", g, d, p)[:, :3]
     if not np.all(np.isfinite(xyz)):
-        raise sc.SceneError(f"measure {measure!r}: non-finite points; no trace was written")
+        raise SceneError(f"measure {measure!r}: non-finite points; no trace was written")
     return xyz
 
 
@@ -120,94 +118,3 @@ def write_curve(scene, measure, xyz, bevel):
         obj.parent = gobj
         obj.matrix_parent_inverse = gobj.matrix_world.inverted()
     return obj
-
-
-class JOINTWISE_OT_trace_add(_Base, bpy.types.Operator):
-    """Draw the path of a point measure over a frame range as a curve object"""
-    bl_idname = "jointwise.trace_add"
-    bl_label = "Add Trace"
-    measure: StringProperty(name="Point measure", default="",
-                            description="Name of a point measure of the mechanism file")
-    frame_start: IntProperty(name="Start", default=1)
-    frame_end: IntProperty(name="End", default=250)
-    drive: StringProperty(name="Ramp coordinate", default="",
-                          description="Optional: run this coordinate linearly from a value to a value")
-    value_from: FloatProperty(name="From", default=0.0)
-    value_to: FloatProperty(name="To", default=0.0)
-    bevel: FloatProperty(name="Thickness", default=0.0, min=0.0,
-                         description="Bevel depth in scene units (0: from the mechanism's size)")
-
-    def invoke(self, context, event):
-        self.frame_start = context.scene.frame_start
-        self.frame_end = context.scene.frame_end
-        if not self.measure:
-            try:
-                names = sorted(point_measures(context.scene))
-            except sc.SceneError:
-                names = []
-            self.measure = names[0] if names else ""
-        return context.window_manager.invoke_props_dialog(self)
-
-    def run(self, context):
-        scene = context.scene
-        jw = scene.jointwise
-        if not jw.joints:
-            return self.fail("the scene has no mechanism: import a mechanism file first")
-        if not self.measure:
-            return self.fail("name the point measure to trace")
-        if self.frame_end <= self.frame_start:
-            return self.fail(f"frame range {self.frame_start}..{self.frame_end} needs at least two frames")
-        ramp = None
-        if self.drive:
-            if self.drive not in jw.joints:
-                return self.fail(f"ramp coordinate {self.drive!r} is not a joint coordinate")
-            if not (math.isfinite(self.value_from) and math.isfinite(self.value_to)):
-                return self.fail("ramp values must be finite")
-            ramp = (self.drive, self.value_from, self.value_to)
-        frames = np.arange(self.frame_start, self.frame_end + 1)
-        try:
-            xyz = trace_points(scene, self.measure, frames, ramp)
-            bevel = self.bevel
-            if not bevel > 0:
-                mech = sc.mechanism_from_scene(scene)
-                size = float(getattr(mech, "size", 1.0))
-                bevel = 0.006 * (size if size > 0 and math.isfinite(size) else 1.0)
-            obj = write_curve(scene, self.measure, xyz, bevel)
-        except _errors() as exc:
-            return self.fail(f"cannot trace {self.measure!r}: {exc}")
-        self.report({'INFO'}, f"traced {self.measure!r} over frames {self.frame_start}-"
-                              f"{self.frame_end} into {obj.name!r}")
-        return {'FINISHED'}
-
-
-class JOINTWISE_PT_traces(bpy.types.Panel):
-    """Point measures of the mechanism file, each with a button drawing its path over the
-    scene's frame range."""
-    bl_space_type = 'VIEW_3D'
-    bl_region_type = 'UI'
-    bl_category = "Jointwise"
-    bl_label = "Traces"
-    bl_options = {'DEFAULT_CLOSED'}
-
-    def draw(self, context):
-        layout = self.layout
-        scene = context.scene
-        try:
-            names = sorted(point_measures(scene))
-        except sc.SceneError as exc:
-            layout.label(text=sc.message_core_to_host(str(exc)))
-            return
-        if not names:
-            layout.label(text="No point measures in the mechanism file")
-            return
-        traced = {o.get(TAG) for o in scene.objects if o.get(TAG)}
-        for name in names:
-            row = layout.row(align=True)
-            row.label(text=name + ("  (traced)" if name in traced else ""))
-            op = row.operator("jointwise.trace_add", text="Trace")
-            op.measure = name
-            op.frame_start = scene.frame_start
-            op.frame_end = scene.frame_end
-
-
-CLASSES = (JOINTWISE_OT_trace_add, JOINTWISE_PT_traces)

@@ -643,7 +643,7 @@ def build_scene(name, frames=None, trace=True):
     for frame, v in ((f0, ra), (f1, rb)):
         jw.joints[drive].value = v
         scene.keyframe_insert(f"jointwise.joints[{i}].value", frame=frame)
-    from bl_ext.user_default.jointwise import bake as bk  # noqa: E402 (the installed extension)
+    from bl_ext.user_default.jointwise import animation as bk  # noqa: E402 (the installed extension)
     for fc in bk.scene_fcurves(scene):
         for kp in fc.keyframe_points:
             kp.interpolation = 'LINEAR'

@@ -74,7 +74,7 @@ def key_linear(scene, name, frames_values):
     for f, v in frames_values:
         jw.joints[name].value = v
         scene.keyframe_insert(f'jointwise.joints["{name}"].value', frame=f)
-    for fc in ext("bake").scene_fcurves(scene):
+    for fc in ext("animation").scene_fcurves(scene):
         for k in fc.keyframe_points:
             k.interpolation = 'LINEAR'
         fc.update()
@@ -426,7 +426,7 @@ def test_sample_post_on_the_coupler_curve(installed, tmp_path):
     np.testing.assert_allclose(sc.ground_displacement(scene), np.eye(4), atol=1e-6)
     assert scene.unit_settings.scale_length == pytest.approx(0.001)
     # crank values per frame as the scene animates them; hook path from the core
-    curves = ext("bake").coordinate_fcurves(scene)
+    curves = ext("animation").coordinate_fcurves(scene)
     fc = curves["crank_pin"][0]
     frames = np.arange(scene.frame_start, scene.frame_end + 1)
     deg = [math.degrees(fc.evaluate(f)) for f in frames]

@@ -18,7 +18,7 @@ def test_zip_contents_and_manifest(extension_zip):
         version = tomllib.load(f)["project"]["version"]
     assert extension_zip.name == f"jointwise-{version}.zip"
     assert {"__init__.py", "properties.py", "scene.py", "operators.py", "panels.py", "bake.py",
-            "handlers.py"} <= names
+            "convert.py", "keys.py", "animation.py", "posing.py", "live.py", "files.py"} <= names
     assert "package.py" not in names
     wheel = f"wheels/jointwise-{version}-py3-none-any.whl"
     assert wheel in names

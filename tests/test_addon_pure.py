@@ -1,0 +1,161 @@
+"""The extension's pure modules (addon/convert.py, addon/keys.py) tested without Blender.
+
+They import no bpy, so they load straight from their files here. Rotations are checked
+against scipy.spatial.transform.Rotation (an independent implementation)."""
+from __future__ import annotations
+
+import ast
+import importlib.util
+import math
+import pathlib
+
+import numpy as np
+import pytest
+
+ADDON = pathlib.Path(__file__).resolve().parents[1] / "addon"
+
+
+def _load(name):
+    spec = importlib.util.spec_from_file_location(f"jointwise_addon_{name}", ADDON / f"{name}.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+convert = _load("convert")
+keys = _load("keys")
+Rotation = pytest.importorskip("scipy.spatial.transform").Rotation
+
+
+@pytest.mark.parametrize("name", ["convert", "keys"])
+def test_pure_modules_import_no_host(name):
+    tree = ast.parse((ADDON / f"{name}.py").read_text())
+    mods = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            mods |= {a.name.split(".")[0] for a in node.names}
+        elif isinstance(node, ast.ImportFrom):
+            assert node.level == 0, f"{name}.py: relative import (pure modules stand alone)"
+            mods.add(node.module.split(".")[0])
+    assert not mods & {"bpy", "mathutils", "bmesh", "bpy_extras"}, mods
+
+
+def random_rotations(n, seed):
+    return Rotation.random(n, random_state=seed).as_matrix()
+
+
+def test_quaternions_match_scipy_up_to_sign():
+    r = random_rotations(200, 3)
+    q = keys.quaternions_from_rotations(r)
+    ref = Rotation.from_matrix(r).as_quat()[:, [3, 0, 1, 2]]  # scipy: x, y, z, w
+    d = np.abs(np.einsum("ij,ij->i", q, ref))
+    assert np.allclose(d, 1.0, atol=1e-12)
+
+
+@pytest.mark.parametrize("order", ["XYZ", "XZY", "YXZ", "YZX", "ZXY", "ZYX"])
+def test_eulers_match_scipy_extrinsic(order):
+    # the host's Euler order 'XYZ' applies X first about fixed axes: R = Rz Ry Rx, which
+    # is scipy's extrinsic lower-case sequence 'xyz' with the angles in the same order
+    r = random_rotations(100, 5)
+    e = keys.eulers_from_rotations(r, order)
+    idx = ["XYZ".index(c) for c in order]
+    rebuilt = Rotation.from_euler(order.lower(), e[:, idx]).as_matrix()
+    assert np.abs(rebuilt - r).max() < 1e-10
+
+
+def test_continuous_quaternions_and_eulers_never_jump():
+    t = np.linspace(0, 6 * math.pi, 400)
+    r = Rotation.from_rotvec(np.outer(t, [0.3, 0.5, 0.81])).as_matrix()
+    q = keys.continuous_quaternions(keys.quaternions_from_rotations(r))
+    assert np.einsum("ij,ij->i", q[1:], q[:-1]).min() > 0.99
+    e = keys.continuous_eulers(keys.eulers_from_rotations(r, "XYZ"), order="XYZ")
+    assert np.abs(np.diff(e, axis=0)).max() < 0.2
+    rebuilt = Rotation.from_euler("xyz", e).as_matrix()
+    assert np.abs(rebuilt - r).max() < 1e-9
+
+
+def test_axis_angle_through_the_identity_stays_continuous():
+    t = np.radians(np.linspace(-40, 40, 81))
+    r = Rotation.from_rotvec(np.outer(t, [0, 0, 1])).as_matrix()
+    ang, axis = keys.continuous_axis_angles(keys.quaternions_from_rotations(r))
+    assert np.abs(np.diff(ang)).max() < math.radians(1.01)
+    assert np.allclose(Rotation.from_rotvec(axis * ang[:, None]).as_matrix(), r, atol=1e-12)
+
+
+def test_channels_rebuild_the_basis():
+    r = random_rotations(30, 9)
+    basis = np.tile(np.eye(4), (30, 1, 1))
+    basis[:, :3, :3] = r
+    basis[:, :3, 3] = np.arange(90).reshape(30, 3)
+    ch = keys.channels_from_basis(basis, "QUATERNION")
+    q = np.stack([ch[("rotation_quaternion", i)] for i in range(4)], axis=1)
+    assert np.allclose(Rotation.from_quat(q[:, [1, 2, 3, 0]]).as_matrix(), r, atol=1e-12)
+    assert np.allclose(np.stack([ch[("location", i)] for i in range(3)], axis=1), basis[:, :3, 3])
+
+
+def test_inverse_matches_numpy_and_refuses_zero_scale():
+    rng = np.random.default_rng(1)
+    for rigid in (True, False):
+        m = np.eye(4)
+        m[:3, :3] = random_rotations(1, 2)[0] @ (np.eye(3) if rigid else np.diag(rng.uniform(0.5, 3, 3)))
+        m[:3, 3] = rng.normal(size=3)
+        assert np.allclose(convert.inverse(m), np.linalg.inv(m), atol=1e-12)
+    m = np.diag([1.0, 0.0, 1.0, 1.0])
+    assert convert.is_singular(m)
+    with pytest.raises(convert.SceneError, match="scaled to zero"):
+        convert.inverse(m)
+
+
+def test_shear_is_found_only_where_keys_cannot_follow():
+    rot = Rotation.from_euler("z", 30, degrees=True).as_matrix()
+    good = np.eye(4)
+    good[:3, :3] = rot @ np.diag([1, 2, 3])  # rotation then scale: keys express it
+    assert not convert.shears(good)
+    bad = np.eye(4)
+    bad[:3, :3] = np.diag([1, 2, 1]) @ rot  # a non-uniform parent scale under a rotated child
+    assert convert.shears(bad)
+
+
+def test_units_and_messages():
+    # 1 mm file unit into a scene whose unit is 1 mm (scale_length 0.001): factor 1
+    assert convert.length_file_to_host("mm", 0.001) == pytest.approx(1.0)
+    assert convert.length_file_to_host("in", 1.0) == pytest.approx(0.0254)  # 1 in = 25.4 mm (exact, 1959)
+    assert convert.display_length("METRIC", "MILLIMETERS", 1.0) == ("mm", 1000.0)
+    assert convert.display_length("NONE", "MILLIMETERS", 1.0) == ("BU", 1.0)
+    msg = convert.message_core_to_host("c = 1.5707963 rad outside [-1, 1] rad; slide 0.25 m",
+                                       ("mm", 1000.0))
+    assert "90 deg" in msg and "[-57.296, 57.296] deg" in msg and "slide 250 mm" in msg
+    assert convert.format_value(math.radians(51.6), "angle") == "51.6°"
+    assert convert.format_value(0.0125, "length", ("mm", 1000.0)) == "12.5 mm"
+
+
+# The extension's layers, bottom to top: a module imports only from earlier layers
+# (measures, fit and clearance are placed for the modules other work adds).
+ADDON_LAYERS = [
+    {"convert", "keys", "tomlwrite", "fit", "proximity"},
+    {"properties"},
+    {"scene"},
+    {"animation"},
+    {"posing"},
+    {"live", "bake", "measures"},
+    {"trace", "files"},
+    {"operators"},
+    {"panels", "clearance"},
+    {"__init__"},
+]
+
+
+def test_addon_imports_point_down_the_layers():
+    layer = {m: i for i, ms in enumerate(ADDON_LAYERS) for m in ms}
+    for path in sorted(ADDON.glob("*.py")):
+        name = path.stem
+        if name == "package":
+            continue  # a build script, not part of the extension
+        assert name in layer, f"addon/{path.name}: give it a place in ADDON_LAYERS"
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and node.level == 1:
+                targets = [node.module] if node.module else [a.name for a in node.names]
+                for t in targets:
+                    t = t.split(".")[0]
+                    assert layer[t] < layer[name] or (t == name), \
+                        f"addon/{path.name}:{node.lineno} imports {t} (layer {layer[t]} >= {layer[name]})"
