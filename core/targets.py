@@ -485,7 +485,7 @@ class _Targets:
                     cap = 0.5 * min(cap, size) if lam >= LAMBDA_MAX else cap
                 if cap < STALL or size < NOISE or gain < NOISE:
                     break
-        self.dist = dist
+        self.dist, self.links = dist, links
         return steps
 
 
@@ -509,10 +509,13 @@ def pose_to_targets(mech, values, start, targets):
             q[i] = v
     t = _Targets(mech, held, parsed)
     t.solve(q)
+    links = t.links
     if t._closed is None or t._closed[1] != q.tobytes():  # no step taken: close where it is
         t.close(q, t.layout(set()))
+        links = mech.link_poses(q)
+        t.dist = t.errors(links)[1]
     err = t.residual if t._closed is not None and t._closed[1] == q.tobytes() else s.closure(q)[0]
-    pose = Pose(joints=mech._values_out(q), links=mech.link_poses(q), converged=err <= 1e-9,
+    pose = Pose(joints=mech._values_out(q), links=links, converged=err <= 1e-9,
                 residual=float(err), q=q, notes=notes)
     for name, v in (values or {}).items():
         pose.joints[name] = float(v)
