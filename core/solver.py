@@ -86,6 +86,71 @@ MAX_ITER = 30
 MAX_SPAN = 1e4
 #: Jacobians of this many recent closed states are kept for warm starts from them.
 JACOBIAN_MEMORY = 256
+#: Continuation corrector: each Newton increment must be at most this fraction of the one
+#: before (a Kantorovich-style contraction test, see :func:`branch_step_certified`).
+CONTRACTION = 0.25
+#: Newton iterations of the continuation corrector (it converges quadratically or fails).
+CORRECTOR_ITER = 12
+#: Increments below this (dimensionless) are rounding noise: no contraction test on them.
+NOISE_STEP = 1e-11
+#: A relative singular value below this leaves the orientation of a state undefined.
+ORIENT_RATIO = 1e-7
+
+
+# -- branch continuity ---------------------------------------------------------------------------
+#
+# Why a continuation step stays on its assembly branch (the argument the corrector and
+# the sweep's per-step check implement; Allgower & Georg, *Introduction to Numerical
+# Continuation Methods*, 1990/2003, ch. 2 (orientation of the solution curve) and ch. 6
+# (step control from the corrector's contraction); Kantorovich's theorem as in Deuflhard,
+# *Newton Methods for Nonlinear Problems*, 2004, sec. 1.2 and 2.1):
+#
+# 1. Uniqueness near the predictor.  Let x0 be the predictor (the previous state with the
+#    new held values), d0 the least-norm Newton increment there and d1 the next chord
+#    increment.  With omega the (affine-covariant) Lipschitz constant of the dimensionless
+#    Jacobian, Newton-Kantorovich gives: if h = omega |d0| <= 1/2, Newton from x0
+#    converges to a solution within r- = |d0| (1 - sqrt(1 - 2h)) / h and that solution is
+#    the only one within r+ = |d0| (1 + sqrt(1 - 2h)) / h >= 2 |d0|.  The first contraction
+#    theta = |d1| / |d0| estimates h / 2, so ``theta <= CONTRACTION`` (1/4) asks for
+#    h <= 1/2 with the estimate's factor-two margin.  A new state that closes the loops and
+#    lies within 2 |d0| of x0 (row-space part: idle freedoms such as a coupler's spin
+#    between two balls are not part of the branch) is therefore *the* Newton limit from
+#    x0, i.e. the continuation of the previous state, not a state of another branch.
+# 2. Orientation.  The solved block J_u of the dimensionless Jacobian (generic rank r) is
+#    regular along a branch between singular points, so the sign of det(U_r^T J_u V_r),
+#    with U_r, V_r the leading singular vectors at the previous state (where the
+#    determinant is the product of the r largest singular values, > 0), stays positive
+#    from one state to the next.  A sign change means the step crossed J_u = 0: it either
+#    jumped to the mirrored branch (four-bar open <-> crossed, slider above <-> below) or
+#    passed a singular point.
+#
+# A step failing either test is halved.  Where halving reaches the smallest step and the
+# orientation still changes, the path truly passes a singular point (a change point or
+# bifurcation): the step is taken and the state is flagged singular.
+
+def orientation_frame(Js, rank):
+    """Leading singular vectors (U_r, V_r) of scaled Jacobians ``Js`` (..., m, k), and the
+    relative r-th singular value (how well the orientation is defined there)."""
+    u, sv, vt = np.linalg.svd(Js, full_matrices=False)
+    r = max(1, min(rank, sv.shape[-1]))
+    top = np.maximum(sv[..., :1], 1e-300)
+    return u[..., :, :r], np.swapaxes(vt[..., :r, :], -1, -2), sv[..., r - 1] / top[..., 0]
+
+
+def orientation_agrees(frame, Js):
+    """True where det(U_r^T Js V_r) > 0 for the frames of :func:`orientation_frame`."""
+    u, v, defined = frame
+    m = np.swapaxes(u, -1, -2) @ Js @ v
+    return (np.linalg.det(m) > 0) | (defined < ORIENT_RATIO)
+
+
+def branch_step_certified(d0, d1, dist):
+    """The Kantorovich-style test of the module notes: first contraction
+    ``|d1| / |d0| <= CONTRACTION`` and the new state within ``2 |d0|`` of the predictor
+    (arrays of norms, dimensionless)."""
+    d0 = np.asarray(d0, float)
+    theta = np.where(d0 > NOISE_STEP, np.asarray(d1, float) / np.maximum(d0, 1e-300), 0.0)
+    return (theta <= CONTRACTION) & (np.asarray(dist, float) <= 2.0 * d0 + 1e4 * NOISE_STEP)
 
 
 class _Block:
@@ -114,6 +179,8 @@ class Solver:
         self._allcols = {}
         self._home_q = None
         self._home_notes = []
+        self._rot_twists = {}
+        self._crossed = False
         self.is_length = np.array([k == "length" for k in mech._kind], dtype=bool)
         # dimensionless scale of each coordinate
         self.cscale = np.where(self.is_length, 1.0 / self.L, 1.0)
@@ -364,7 +431,10 @@ class Solver:
         for jn, d in sph.items():
             j = m.joints[jn]
             sl = m._slices[jn]
-            tw = d @ j.rotation_twists()
+            tws = self._rot_twists.get(jn)
+            if tws is None:
+                tws = self._rot_twists[jn] = j.rotation_twists()
+            tw = d @ tws
             e = spatial.exp6(tw) @ j.transform(q[sl])
             q[sl] = j.coordinates_from_transform(e, near=q[sl])
 
@@ -431,6 +501,47 @@ class Solver:
             return True, err, errs, J
         q[:] = best[1]
         return False, best[0], best[2], best[3]
+
+    def _correct(self, block, q, cols, rot, nu):
+        """Continuation corrector: undamped Newton from the predictor ``q`` (in place).
+
+        Unlike :meth:`_newton` it never damps nor wanders: it fails as soon as an
+        increment is not at most ``CONTRACTION`` of the one before (the predictor lies
+        outside the convergence region of the nearest solution, see the branch notes
+        above), so a failed step costs a few evaluations.  Returns ``(ok, err, loop_errs,
+        J)`` with ``J`` over all ``cols`` at the final state.
+        """
+        rs = self._row_scale(len(block.loops))
+        cs = self._col_scale(cols[:nu])
+        r, errs, J = self._eval(block, q, cols, rot)
+        prev = None
+        for _ in range(CORRECTOR_ITER):
+            err = float(errs.max())
+            if err <= TOLERANCE:
+                return True, err, errs, J
+            if not nu:
+                break
+            du = np.linalg.lstsq(J[:, :nu] * rs[:, None] * cs[None, :], -r * rs, rcond=1e-10)[0]
+            size = float(np.linalg.norm(du))
+            if prev is None and size > 0.5:
+                break  # the predictor is far from closure: the sub-step is too long
+            if prev is not None and size > NOISE_STEP and size > CONTRACTION * prev:
+                break  # no contraction: outside the corrector's convergence region
+            prev = size
+            self._apply(q, cols[:nu], rot, du * cs)
+            r, errs, J = self._eval(block, q, cols, rot)
+        err = float(errs.max())
+        return err <= TOLERANCE, err, errs, J
+
+    def _orientation(self, b, J, cols, rs, cs):
+        """Orientation frame (see :func:`orientation_frame`) of a solved block's Jacobian."""
+        Js = J * rs[:, None] * cs[None, :]
+        key = ("orient", b.index, tuple(cols))
+        sv = np.linalg.svd(Js, compute_uv=False)
+        rank = int((sv > 1e-9 * max(sv[0], 1e-300)).sum()) if sv.size else 0
+        rank = max(rank, self._generic_rank.get(key, 0))
+        self._generic_rank[key] = rank
+        return orientation_frame(Js, rank), Js
 
     # -- public ----------------------------------------------------------------------------
     def closure(self, q):
@@ -529,6 +640,7 @@ class Solver:
                 self._derive(q, [g])
         singular = False
         worst = 0.0
+        self._crossed = False
         for b in self.blocks:
             held_b = {g: target[g] for g in b.groups if g in target}
             err, sing = self._solve_block(b, q, held_b, source)
@@ -536,7 +648,8 @@ class Solver:
             singular = singular or sing
         self._check_passive_limits(q, set(target))
         return q, {"converged": worst <= TOLERANCE, "residual": float(worst),
-                   "singular": bool(singular), "notes": notes}
+                   "singular": bool(singular), "notes": notes,
+                   "crossed_singular": bool(self._crossed)}
 
     def kept_drives(self, explicit):
         """The file's driven coordinates held besides ``explicit`` (coordinate indices).
@@ -598,6 +711,8 @@ class Solver:
         limit = MAX_STEP
         J_here = None
         err, errs, J = 0.0, np.zeros(0), None
+        frame = None
+        crossed = False
         while t < 1.0:
             if J_here is None:
                 key = (b.index, q.tobytes())
@@ -614,12 +729,15 @@ class Solver:
                 rmax = float(np.abs(rate).max()) if rate.size else 0.0
             else:
                 rate, rmax = np.zeros(0), 0.0
+            if cols and frame is None:
+                frame = self._orientation(b, J_here[:, :nu], cols, rs, cs)[0]
             remaining = 1.0 - t
             dt = remaining
             if rmax * dt > limit:
                 dt = limit / rmax
             if held_rate * dt > MAX_HELD_STEP:
                 dt = MAX_HELD_STEP / held_rate
+            dt_first = dt
             while True:
                 t1 = 1.0 if dt >= remaining else t + dt
                 trial = q.copy()
@@ -629,11 +747,15 @@ class Solver:
                 if cols:
                     self._apply(trial, cols, rot, rate * (t1 - t) * cs)
                 before = trial.copy()
-                ok, err, errs, Jall = self._newton(b, trial, allcols, rot, nu=nu)
+                ok, err, errs, Jall = self._correct(b, trial, allcols, rot, nu)
                 J = Jall[:, :nu]
                 moved = self._dist(before, trial, cols) if ok else 0.0
                 if ok and moved <= 0.5 * rmax * (t1 - t) + JUMP_SLACK:
-                    break
+                    if frame is None or orientation_agrees(frame, J * rs[:, None] * cs[None, :]):
+                        break
+                    if dt * max(held_rate, 1e-12) < 1e-7:
+                        crossed = self._crossed = True  # the path passes a singular point: flag it
+                        break
                 dt *= 0.5
                 if dt * max(held_rate, 1e-12) < 1e-9:
                     if self._solve_overheld(b, q0, held_b, source):
@@ -644,7 +766,11 @@ class Solver:
             pred = rmax * (t1 - t)
             t = t1
             J_here = Jall
+            frame = None
             # step control: grow while the corrector stays small against the prediction
+            if dt < dt_first:  # it had to be halved: keep to what worked (no restart at full length)
+                limit = max(pred, 1e-12)
+                continue
             limit = max(pred, MAX_STEP) if dt < remaining else limit
             if moved < 0.01 * pred:
                 limit = min(2 * limit, MAX_LINEAR_MOTION)
@@ -654,7 +780,7 @@ class Solver:
             if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
                 self._lastJ.pop(next(iter(self._lastJ)))
             self._lastJ[(b.index, q.tobytes())] = (allcols, J_here)
-        return err, self._singular(b, J, cols, rs, cs)
+        return err, crossed or self._singular(b, J, cols, rs, cs)
 
     def _solve_overheld(self, b, q, held_b, source):
         """Held values that over-determine a block (e.g. crank and rocker of a four-bar).

@@ -494,6 +494,9 @@ def _run(mech, explicit, N, q0, release):
     for ev in ctx.evs:
         if ev.cols_rot:
             sing |= _singular_flags(ev, Q, conv)
+        crossed = getattr(ev, "crossed", None)
+        if crossed is not None:
+            sing |= crossed & conv
     # failed steps repeat the last good pose (or the start)
     if not conv.all():
         idx = np.where(conv, np.arange(N), -1)
@@ -646,6 +649,19 @@ def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
 
 
 def _run_block(ctx, ev, Q, target, q0, explicit, release):
+    """Solve one block's rows (anchors, refinement, fix-up, branch proof); see the module
+    notes.  Returns (ok, residual, reasons)."""
+    ok, err, reasons = _run_block_once(ctx, ev, Q, target, q0, explicit, release)
+    if ev.restart is not None:
+        _rerun_tail(ctx, ev, Q, target, explicit, release, ok, err, reasons, ev.restart)
+    bad = ~ok
+    if bad.any():
+        for k in np.flatnonzero(bad):
+            reasons.setdefault(int(k), "the loops do not close there")
+    return ok, np.where(np.isfinite(err), err, 0.0), reasons
+
+
+def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
     from .solver import TOLERANCE
     m, s = ctx.m, ctx.s
     N = Q.shape[0]
@@ -656,18 +672,23 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
     reasons = {}
     guard = _drives_released(m) if release else _Null()
 
-    def pose_one(i, qstart):
+    def pose_one(i, qstart, info=False):
         held = {k: float(v[i]) for k, v in explicit.items()}
         try:
             with guard:
-                qn, info = s.pose(held, qstart)
+                qn, inf = s.pose(held, qstart)
         except LimitError as exc:
-            return None, f"limit: {exc}"
+            out = None, f"limit: {exc}"
         except JointwiseError as exc:
-            return None, str(exc)
-        if not info["converged"]:
-            return None, f"the loops do not close (residual {info['residual']:.3g})"
-        return qn, None
+            out = None, str(exc)
+        else:
+            if not inf["converged"]:
+                out = None, f"the loops do not close (residual {inf['residual']:.3g})"
+            else:
+                out = qn, None
+        if info:
+            return out + ((out[0] is not None and bool(inf.get("crossed_singular"))),)
+        return out
 
     # -- 1. anchors, one after another -----------------------------------------------
     marks = np.arange(0.0, path[-1] + ANCHOR_STEP, ANCHOR_STEP) if N > 1 else np.zeros(1)
@@ -677,6 +698,7 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
     prev_T = None
     prev_i = None
     pprev_i = None
+    blocked = None
     for i in anchors:
         i = int(i)
         done = False
@@ -706,9 +728,14 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
                 Q[i] = trial[0]
                 ok[i], err[i] = True, e[0]
                 done = True
+        if not done and _blocked(blocked, Hm, prev_i, i):
+            reasons[i] = blocked[2]
+            continue
         if not done:
             start = Q[prev_i] if (prev_i is not None and ok[prev_i]) else prev_q
             qn, why = pose_one(i, start)
+            if qn is None and len(ev.held) == 1:
+                blocked = (prev_i, i, why)
             if qn is not None:
                 Q[i] = qn
                 ok[i] = True
@@ -783,11 +810,43 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
     todo = np.flatnonzero(~ok)
     if len(todo):
         _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0)
-    bad = ~ok
-    if bad.any():
-        for k in np.flatnonzero(bad):
-            reasons.setdefault(int(k), "the loops do not close there")
-    return ok, np.where(np.isfinite(err), err, 0.0), reasons
+    # -- 4. every step between closed rows proven to stay on the branch ---------------
+    ev.crossed, ev.restart = _prove_branch(ev, Q, ok, err, reasons, pose_one)
+    return ok, err, reasons
+
+
+def _blocked(blocked, Hm, prev_i, i):
+    """True when continuing from anchor ``prev_i`` to ``i`` must pass a held value where it
+    already failed from that same anchor (one held coordinate): the first failure stops
+    the walk into an unreachable stretch, so its cost is that of one failed solve."""
+    if blocked is None or blocked[0] != prev_i or prev_i is None or Hm.shape[1] != 1:
+        return False
+    h0, hf, hi = Hm[prev_i, 0], Hm[blocked[1], 0], Hm[i, 0]
+    return (hf - h0) * (hi - h0) > 0 and abs(hi - h0) >= abs(hf - h0)
+
+
+def _rerun_tail(ctx, ev, Q, target, explicit, release, ok, err, reasons, restart):
+    """Solve rows after ``restart`` again, batched, continuing from the proven row
+    ``restart`` (whose batched neighbours were on another branch); repeats while the new
+    tail needs it, so the work stays batched however many times that happens."""
+    crossed = ev.crossed
+    levels = [np.asarray(getattr(ev, "last_level", []))]
+    while restart is not None:
+        sub = slice(restart, Q.shape[0])
+        Qs = Q[sub].copy()
+        ok_s, err_s, rs_s = _run_block_once(
+            ctx, ev, Qs, {g: v[sub] for g, v in target.items()}, Q[restart].copy(),
+            {k: v[sub] for k, v in explicit.items()}, release)
+        Q[sub], ok[sub], err[sub] = Qs, ok_s, err_s
+        for k in [k for k in reasons if k >= restart]:
+            del reasons[k]
+        reasons.update({restart + k: v for k, v in rs_s.items()})
+        crossed[sub] |= ev.crossed
+        levels = [lv[lv < restart] for lv in levels] + [np.asarray(ev.last_level) + restart]
+        restart = None if ev.restart is None else restart + ev.restart
+    ev.crossed = crossed
+    ev.last_level = np.unique(np.concatenate(levels)).astype(int)
+    ev.restart = None
 
 
 def _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0):
@@ -923,6 +982,147 @@ def _singular_flags(ev, Q, conv):
             if linear and -1.0 <= t <= 1.0 and abs(ymeet) <= 0.05 * scale and y[2] < 0.5 * scale:
                 flag[k] = True
     return flag
+
+
+# ---------------------------------------------------------------------------------------
+# branch continuity, proven per step
+# ---------------------------------------------------------------------------------------
+
+def _rot_diff(ev, A, Bq):
+    """Dimensionless difference Bq - A over the rotation-increment columns (B, ncols):
+    coordinate differences (angles within half a turn) scaled, and for free spherical
+    joints the world rotation vector log(R_B R_A^T) (the increment :meth:`apply` adds)."""
+    s = ev.s
+    cols = ev.cols_rot
+    out = np.zeros((A.shape[0], len(cols)))
+    rots = {}
+    for ci, c in enumerate(cols):
+        if c[0] == "m":
+            d = Bq[:, c[1]] - A[:, c[1]]
+            if not s.is_length[c[1]]:
+                d = (d + np.pi) % (2 * np.pi) - np.pi
+            out[:, ci] = d * s.cscale[c[1]]
+        else:
+            if c[1] not in rots:
+                sl = ev.m._slices[c[1]]
+                ra = _joint_rotation(ev, c[1], A[:, sl])
+                rb = _joint_rotation(ev, c[1], Bq[:, sl])
+                rots[c[1]] = spatial.log3(rb @ np.swapaxes(ra, 1, 2))
+            out[:, ci] = rots[c[1]][:, c[2]]
+    return out
+
+
+def _joint_rotation(ev, jn, q):
+    prs = ev.prims[jn]
+    sl = ev.m._slices[jn]
+    T = prs[0].exp(q[:, 0])
+    for k in range(1, len(prs)):
+        T = _compose(T, prs[k].exp(q[:, k]))
+    return np.asarray(T[0])
+
+
+def _certify_pairs(ev, Qa, Qb):
+    """Per pair of closed states: (proven, same_orientation), bool arrays (B,).
+
+    ``proven``: ``Qb`` is the Newton limit from the predictor at ``Qa`` (Kantorovich-style
+    uniqueness, so it continues ``Qa``); ``same_orientation``: the solved block keeps
+    its orientation (see :mod:`jointwise.solver`, "branch continuity").  Proven with the
+    orientation changed means the step passed a singular point (a change point)."""
+    from .solver import ORIENT_RATIO, branch_step_certified, orientation_agrees, orientation_frame
+    B = Qa.shape[0]
+    cols = ev.cols_rot
+    if not cols or B == 0:
+        return np.ones(B, bool), np.ones(B, bool), np.zeros(B, bool)
+    if B > CHUNK:
+        parts = [_certify_pairs(ev, Qa[k:k + CHUNK], Qb[k:k + CHUNK]) for k in range(0, B, CHUNK)]
+        return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
+    s = ev.s
+    cs = ev._cscale(cols)
+    rs = ev.rs
+    # predictor: the previous state with the new held values
+    X0 = Qa.copy()
+    if ev.held:
+        X0[:, ev.held] = Qb[:, ev.held]
+        _derive(s, X0, ev.held)
+    r0, _, J0 = ev.eval(X0, cols)
+    Js0 = J0 * rs[None, :, None] * cs[None, None, :]
+    u, sv, vt = np.linalg.svd(Js0, full_matrices=False)
+    top = np.maximum(sv[:, :1], 1e-300)
+    rank = int((sv > 1e-9 * top).sum(axis=1).max())
+    key = ("orient", ev.block.index, tuple(cols))
+    rank = max(1, rank, s._generic_rank.get(key, 0))
+    s._generic_rank[key] = rank
+    ur, svr, vr = u[:, :, :rank], sv[:, :rank], np.swapaxes(vt[:, :rank, :], 1, 2)
+    inv = np.where(svr > 1e-12 * top, 1.0 / np.maximum(svr, 1e-300), 0.0)
+
+    def pinv_apply(res):
+        y = np.einsum("bmr,bm->br", ur, -res * rs[None, :]) * inv
+        return np.einsum("bkr,br->bk", vr, y)
+    d0 = pinv_apply(r0)
+    X1 = X0.copy()
+    ev.apply(X1, d0 * cs[None, :], cols)
+    r1 = ev.eval(X1)[0]
+    d1 = pinv_apply(r1)
+    diff = _rot_diff(ev, X0, Qb)
+    dist = np.linalg.norm(np.einsum("bkr,bk->br", vr, diff), axis=1)  # row-space part
+    ok = branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1), dist)
+    # orientation: frames at the previous states, the solved block at the new ones
+    _, _, Ja = ev.eval(Qa, cols)
+    _, _, Jb = ev.eval(Qb, cols)
+    Jsa = Ja * rs[None, :, None] * cs[None, None, :]
+    Jsb = Jb * rs[None, :, None] * cs[None, None, :]
+    frame = orientation_frame(Jsa, rank)
+    return ok, orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
+
+
+def _prove_branch(ev, Q, ok, err, reasons, pose_one):
+    """Check every step between neighbouring closed rows; re-solve unproven ones.
+
+    A row whose step from the last closed row is not certified by :func:`_certify_pairs`
+    is solved again from that row by :meth:`Solver.pose`, whose continuation accepts only
+    certified sub-steps.  Where the re-solved state differs, the following rows are checked
+    against it in turn.  Returns the rows where the continuation passed a singular point
+    (to be flagged singular) and the row after which the batched rows must be solved
+    again (None when every step is proven)."""
+    N = Q.shape[0]
+    crossed = np.zeros(N, bool)
+    if N < 2 or not ev.cols_rot:
+        return crossed, None
+    idx = np.flatnonzero(ok[1:] & ok[:-1]) + 1
+    cert = np.ones(N, bool)
+    orient = np.ones(N, bool)
+    degenerate = np.zeros(N, bool)
+    if len(idx):
+        cert[idx], orient[idx], degenerate[idx] = _certify_pairs(ev, Q[idx - 1], Q[idx])
+    last = before = None
+    for i in range(N):
+        if not ok[i]:
+            continue
+        if last is None:
+            last = i
+            continue
+        good, same, degen = cert[i], orient[i], degenerate[i]
+        if last != i - 1:
+            good, same, degen = (bool(x[0]) for x in _certify_pairs(ev, Q[last:last + 1], Q[i:i + 1]))
+        if not good and degen and before is not None:
+            # the step starts at a singular point, where neither test is defined: prove
+            # it from the closed row before that point instead
+            good, same, _ = (bool(x[0]) for x in _certify_pairs(ev, Q[before:before + 1], Q[i:i + 1]))
+        crossed[i] = good and not same  # continuous through a singular point: flag it
+        if not good:
+            qn, why, sing = pose_one(i, Q[last].copy(), info=True)
+            if qn is None:
+                ok[i] = False
+                reasons[i] = why
+                continue
+            moved = _distance(ev, Q[i:i + 1], qn[None, :])[0] > 1e-7
+            Q[i] = qn
+            err[i] = ev.eval(Q[i:i + 1])[1][0]
+            crossed[i] = sing
+            if moved and i < N - 1:
+                return crossed, i  # the rows after i were solved on another branch: redo them
+        before, last = last, i
+    return crossed, None
 
 
 # ---------------------------------------------------------------------------------------
