@@ -30,7 +30,7 @@ __all__ = ["Link", "Coupling", "Measure", "Loop", "Mechanism", "Pose", "ASSEMBLY
 
 #: Home placements that miss closure by no more than this are settled by ``pose``:
 #: position error up to this fraction of the mechanism's size (the largest distance
-#: between joint points, at least one length unit), angle error up to this in radians.
+#: between joint points), angle error up to this in radians.
 ASSEMBLY_TOLERANCE = 1e-3
 #: Parallel turning axes of loop joints closer than this fraction of the mechanism's size
 #: (or of its coordinates' magnitude, if larger) are made coaxial (drawing noise, e.g. float32 storage of a screw's bearing and nut).
@@ -290,8 +290,10 @@ class Mechanism:
         if len(pts) < 2:
             return 1.0
         p = np.array(pts)
-        d = np.linalg.norm(p[:, None, :] - p[None, :, :], axis=-1).max()
-        return float(max(d, 1.0))
+        d = float(np.linalg.norm(p[:, None, :] - p[None, :, :], axis=-1).max())
+        # scale-free: the size itself (a drawing scaled by 1e-7 keeps its proportions); one
+        # length unit only where every joint sits at one point
+        return d if d > 0 else 1.0
 
     def coordinate_kind(self, name):
         """``"angle"`` or ``"length"``."""

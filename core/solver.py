@@ -63,7 +63,8 @@ def _log6_one(t):
     x = spatial.log6(t)
     return x[:3], x[3:]
 
-#: Converged when every loop closes within this (length unit and radian).
+#: Converged when every loop closes within this: radians, and lengths as a fraction of the
+#: mechanism's size (scale-free, so results do not depend on the drawing's unit or scale).
 TOLERANCE = 1e-9
 #: A pose is flagged singular when the smallest (generic-rank) singular value of the
 #: dimensionless constraint Jacobian of the solved coordinates falls below this
@@ -400,7 +401,7 @@ class Solver:
             v = v + (w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0])
             r[6 * li:6 * li + 3] = w
             r[6 * li + 3:6 * li + 6] = v
-            errs[li] = max(np.abs(w).max(), np.abs(v).max())
+            errs[li] = max(np.abs(w).max(), np.abs(v).max() / self.L)  # scale-free: radian, size
             if jac and cols:
                 step_of_row, sign_of_row, selm = plan["rows"][li]
                 ads = spatial.adjoint(np.array(frames))
@@ -547,13 +548,16 @@ class Solver:
     def closure(self, q):
         """(largest error, per-loop errors) of state ``q``; couplings count as loops.
 
-        A coupling's error is ``|follower - (ratio * leader + offset)|`` in internal
-        units (radian or length unit).
+        Errors are scale-free: radians, and lengths as a fraction of the mechanism's size
+        (so a drawing scaled by any factor closes to the same tolerance).  A coupling's
+        error is ``|follower - (ratio * leader + offset)|`` in those units.
         """
         errs = []
         for b in self.blocks:
             errs.extend(self._eval(b, q, [], set(), jac=False)[1])
-        errs.extend(self.coupling_errors(q).values())
+        m = self.m
+        for name, e in self.coupling_errors(q).items():
+            errs.append(e * self.cscale[m._index[m.couplings[name].follower]])
         return (max(errs) if errs else 0.0), errs
 
     def coupling_errors(self, q):
@@ -915,7 +919,8 @@ class Solver:
             lim = j.limits[i - m._slices[j.name].start]
             if lim is None:
                 continue
-            if not lim[0] - 1e-9 <= q[i] <= lim[1] + 1e-9:
+            slack = TOLERANCE / self.cscale[i]  # scale-free: radian or fraction of the size
+            if not lim[0] - slack <= q[i] <= lim[1] + slack:
                 u = m._unit(i)
                 unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
                 from .errors import LimitError

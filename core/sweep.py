@@ -316,7 +316,7 @@ class _Evaluator:
                             continue
                     J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
                     J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - _cross(site, col[:, :3])
-        rr = np.abs(r).reshape(B, self.nl, 6)
+        rr = (np.abs(r) * self.rs[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
         errs = rr.max(axis=(1, 2))
         return r, errs, J
 
@@ -484,7 +484,8 @@ def _run(mech, explicit, N, q0, release):
         lim = j.limits[i - mech._slices[j.name].start]
         if lim is None:
             continue
-        bad = (Q[:, i] < lim[0] - 1e-9) | (Q[:, i] > lim[1] + 1e-9)
+        slack = 1e-9 / s.cscale[i]  # radian, or a fraction of the mechanism's size
+        bad = (Q[:, i] < lim[0] - slack) | (Q[:, i] > lim[1] + slack)
         for k in np.flatnonzero(bad & good & ~lim_bad):
             reasons[int(k)] = f"limit of joint {j.name}" + (f" ({c})" if c != j.name else "")
         lim_bad |= bad

@@ -244,16 +244,41 @@ def run_case(case, how="sweep"):
     return check_sweep(case, sw), sw
 
 
-def campaign(n, seed=0, verbose=False):
+class _Slow(Exception):
+    pass
+
+
+def campaign(n, seed=0, verbose=False, limit=None):
+    """Run n cases; ``limit`` (s) gives up on a case that takes longer (counted as slow)."""
+    import signal
+    import time
     rng = np.random.default_rng(seed)
     kinds = list(KINDS)
     totals = {k: [0, 0, 0, 0] for k in kinds}  # cases, sweeps with a switch, switches, wrong rows
     bad = []
+    slow = []
+
+    def alarm(*_):
+        raise _Slow()
     for i in range(n):
         kind = kinds[i % 3]
         near = bool(i % 2)
         case = KINDS[kind](rng, near_toggle=near)
-        (sw_n, wrong), sw = run_case(case, "sweep" if (i // 3) % 2 == 0 else "follow")
+        t0 = time.time()
+        if limit:
+            signal.signal(signal.SIGALRM, alarm)
+            signal.alarm(int(limit))
+        try:
+            (sw_n, wrong), sw = run_case(case, "sweep" if (i // 3) % 2 == 0 else "follow")
+        except _Slow:
+            slow.append((i, kind))
+            if verbose:
+                print(i, kind, near, "gave up after", limit, "s", flush=True)
+            continue
+        finally:
+            if limit:
+                signal.alarm(0)
+        totals[kind].append(time.time() - t0)
         t = totals[kind]
         t[0] += 1
         t[1] += sw_n > 0
@@ -263,17 +288,21 @@ def campaign(n, seed=0, verbose=False):
             bad.append((i, kind, near, sw_n, wrong, case["dims"]))
             if verbose:
                 print(i, kind, near, sw_n, wrong, case["dims"], flush=True)
-    return totals, bad
+    return totals, bad, slow
 
 
 if __name__ == "__main__":
     import time
     n = int(sys.argv[1]) if len(sys.argv) > 1 else 60
     seed = int(sys.argv[2]) if len(sys.argv) > 2 else 0
+    limit = float(sys.argv[3]) if len(sys.argv) > 3 else None
     t0 = time.time()
-    totals, bad = campaign(n, seed, verbose=True)
-    for k, (c, s, ns, w) in totals.items():
-        print(f"{k}: {c} cases, {s} with an unflagged switch ({ns} switches), {w} converged rows off every branch")
+    totals, bad, slow = campaign(n, seed, verbose=True, limit=limit)
+    for k, (c, s, ns, w, *times) in totals.items():
+        med = float(np.median(times)) if times else 0.0
+        print(f"{k}: {c} cases, {s} with an unflagged switch ({ns} switches), {w} converged rows "
+              f"off every branch; median {med:.2f} s, longest {max(times, default=0):.1f} s")
+    print(f"gave up (over {limit} s): {len(slow)} {slow}")
     print(f"total: {sum(v[0] for v in totals.values())} cases, "
           f"{sum(v[1] for v in totals.values())} with switches, "
           f"{sum(v[2] for v in totals.values())} switches, "

@@ -1,0 +1,123 @@
+"""Branch continuity: sweeps and follow never change assembly branch without flagging it.
+
+References: the closed forms in tests/branch_campaign.py (four-bar by circle intersection,
+the geometric form of Freudenstein's equation, Norton, *Design of Machinery*, sec. 4.5;
+slider-crank x = r cos t +/- sqrt(l^2 - (r sin t - e)^2), Norton sec. 4.6; RSSR by the law
+of cosines about the rocker axis).  The property: between two neighbouring rows that both
+closed and are not flagged singular, the output stays on the closed-form branch it was on.
+"""
+import numpy as np
+import pytest
+
+import jointwise
+import branch_campaign as B
+
+# the issue's example: a drag-link four-bar close to its change point (s + l = 1025.1,
+# p + q = 1027.6 mm), swept one turn from home in 1-degree steps
+EXAMPLE = """
+format = 1
+[mechanism]
+name = "near change point"
+length_unit = "mm"
+angle_unit = "deg"
+ground = "frame"
+[links.frame]
+[links.crank]
+[links.coupler]
+[links.rocker]
+[joints.crank_pin]
+type = "revolute"
+parent = "frame"
+child = "crank"
+point = [0, 0, 0]
+axis = [0, 0, 1]
+home = 334.48
+drive = true
+[joints.coupler_pin]
+type = "revolute"
+parent = "crank"
+child = "coupler"
+point = [649.18, -309.92, 0]
+axis = [0, 0, 1]
+[joints.rocker_pin]
+type = "revolute"
+parent = "coupler"
+child = "rocker"
+point = [-34.73, 2.14, 0]
+axis = [0, 0, 1]
+[joints.rocker_pivot]
+type = "revolute"
+parent = "frame"
+child = "rocker"
+point = [273.44, 0, 0]
+axis = [0, 0, 1]
+"""
+
+
+def _example_closed_form(crank_deg):
+    """Rocker coordinate (deg from home) on the home branch, by circle intersection.
+
+    Crank pin A on the circle |A| = |A0| about the origin; rocker pin B on the circle about
+    O4 = (273.44, 0) of radius |B0 - O4|, with |B - A| = |B0 - A0|; the branch is the sign
+    of cross(B - A, O4 - B) at home."""
+    A0, B0, O4 = np.array([649.18, -309.92]), np.array([-34.73, 2.14]), np.array([273.44, 0.0])
+    a, b, c = np.linalg.norm(A0), np.linalg.norm(B0 - A0), np.linalg.norm(B0 - O4)
+    t = np.arctan2(A0[1], A0[0]) + np.radians(crank_deg - 334.48)  # the crank turns from home
+    A = a * np.stack([np.cos(t), np.sin(t)], axis=-1)
+    e = O4 - A
+    dist = np.linalg.norm(e, axis=-1)
+    along = (b * b - c * c + dist * dist) / (2 * dist)
+    h = np.sqrt(b * b - along * along)
+    mid = A + along[:, None] * e / dist[:, None]
+    perp = np.stack([e[:, 1], -e[:, 0]], axis=-1) / dist[:, None]
+
+    def cross(A, B):
+        return (B - A)[..., 0] * (O4 - B)[..., 1] - (B - A)[..., 1] * (O4 - B)[..., 0]
+    home_sign = np.sign(cross(A0, B0))
+    cands = [mid + h[:, None] * perp, mid - h[:, None] * perp]
+    B = np.where((np.sign(cross(A, cands[0])) == home_sign)[:, None], cands[0], cands[1])
+    ang = np.degrees(np.arctan2(B[:, 1], B[:, 0] - O4[0]))
+    home = np.degrees(np.arctan2(B0[1], B0[0] - O4[0]))
+    return (ang - home + 180) % 360 - 180
+
+
+def test_issue_example_stays_on_its_branch():
+    m = jointwise.loads(EXAMPLE, source="example.toml")
+    v = np.linspace(334.48, 694.48, 361)
+    ref = _example_closed_form(v)
+    # the row the issue names: pose --set crank_pin=361.48 gives 12.29 deg
+    assert ref[27] == pytest.approx(12.29, abs=0.005)
+    assert m.pose({"crank_pin": 361.48}).joints["rocker_pivot"] == pytest.approx(ref[27], abs=1e-7)
+    for sw in (m.sweep("crank_pin", v), m.follow({"crank_pin": v})):
+        assert sw.converged.all()
+        d = (sw.joints["rocker_pivot"] - ref + 180) % 360 - 180
+        assert np.abs(d).max() < 1e-6
+        assert sw.joints["rocker_pivot"][27] == pytest.approx(12.293, abs=1e-3)  # not -6.72
+
+
+@pytest.mark.parametrize("kind", list(B.KINDS))
+def test_random_linkages_have_no_unflagged_branch_switch(kind):
+    """Seeded cases, half of them with near-toggle dimensions, swept or followed."""
+    rng = np.random.default_rng({"four-bar": 11, "slider-crank": 12, "RSSR": 13}[kind])
+    n = 8 if kind == "RSSR" else 12
+    for i in range(n):
+        case = B.KINDS[kind](rng, near_toggle=bool(i % 2))
+        (switches, wrong), sw = B.run_case(case, "sweep" if i % 4 < 2 else "follow")
+        assert switches == 0, (kind, i, case["dims"])
+        assert wrong == 0, (kind, i, case["dims"])
+        assert sw.converged.any()
+
+
+def test_labels_see_a_switch():
+    """The checker itself: a sweep result moved to the other branch is counted."""
+    rng = np.random.default_rng(5)
+    case = B.four_bar_case(rng)
+    sw = B._mech(case["data"]).sweep(case["drive"], case["values"])
+    ref = case["closed"](sw.joints["crank"])
+    k = int(np.flatnonzero(sw.converged & np.isfinite(ref).all(axis=0))[10])
+    lab, _ = B.branch_labels(case, sw.joints["rocker"], sw.joints["crank"])
+    other = ref[1 - lab[k], k]
+    sw.joints["rocker"] = sw.joints["rocker"].copy()
+    sw.joints["rocker"][k + 1:] = ref[1 - lab[k], k + 1:]
+    assert np.isfinite(other)
+    assert B.check_sweep(case, sw)[0] >= 1
