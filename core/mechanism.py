@@ -291,9 +291,13 @@ class Mechanism:
             return 1.0
         p = np.array(pts)
         d = float(np.linalg.norm(p[:, None, :] - p[None, :, :], axis=-1).max())
-        # scale-free: the size itself (a drawing scaled by 1e-7 keeps its proportions); one
-        # length unit only where every joint sits at one point
-        return d if d > 0 else 1.0
+        # scale-free: the size itself, so a drawing scaled by 1e-7 keeps its proportions.
+        # Joints (nearly) on one spot (a screw in its bearing and nut) take the scale of
+        # their coordinates instead; one length unit only where all sit at the origin.
+        reach = float(np.abs(p).max())
+        if d >= 1e-3 * reach and d > 0:
+            return d
+        return reach if reach > 0 else 1.0
 
     def coordinate_kind(self, name):
         """``"angle"`` or ``"length"``."""

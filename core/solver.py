@@ -63,9 +63,12 @@ def _log6_one(t):
     x = spatial.log6(t)
     return x[:3], x[3:]
 
-#: Converged when every loop closes within this: radians, and lengths as a fraction of the
-#: mechanism's size (scale-free, so results do not depend on the drawing's unit or scale).
+#: Converged when every loop closes within this many radians, and within ``CLOSE_POSITION``
+#: of the mechanism's size in position (scale-free: results do not depend on the drawing's
+#: unit or scale).  Closure errors are reported in radians, with positions weighted by
+#: ``TOLERANCE / (CLOSE_POSITION * size)`` so that one number compares with ``TOLERANCE``.
 TOLERANCE = 1e-9
+CLOSE_POSITION = 1e-11
 #: A pose is flagged singular when the smallest (generic-rank) singular value of the
 #: dimensionless constraint Jacobian of the solved coordinates falls below this
 #: fraction of the largest.
@@ -90,8 +93,17 @@ JACOBIAN_MEMORY = 256
 #: Continuation corrector: each Newton increment must be at most this fraction of the one
 #: before (a Kantorovich-style contraction test, see :func:`branch_step_certified`).
 CONTRACTION = 0.25
-#: Newton iterations of the continuation corrector (it converges quadratically or fails).
-CORRECTOR_ITER = 12
+#: Newton iterations of the continuation corrector (it converges quadratically or fails;
+#: linearly, ratio 1/2, only at a dead point reached exactly).
+CORRECTOR_ITER = 24
+#: Increments below this (dimensionless) are not tested for contraction: a branch that
+#: near is the same branch at a singular point, where Newton converges linearly.
+CONTRACT_FLOOR = 1e-6
+#: The corrector gives up when an increment exceeds this fraction of the one before: it
+#: admits the linear convergence (ratio 1/2) of Newton at a dead point reached exactly;
+#: whether the result continues the branch is decided by the orientation and distance
+#: tests (and, for sweeps, by :func:`branch_step_certified` with ``CONTRACTION``).
+CORRECTOR_RATIO = 0.6
 #: Increments below this (dimensionless) are rounding noise: no contraction test on them.
 NOISE_STEP = 1e-11
 #: A relative singular value below this leaves the orientation of a state undefined.
@@ -186,6 +198,11 @@ class Solver:
         # dimensionless scale of each coordinate
         self.cscale = np.where(self.is_length, 1.0 / self.L, 1.0)
         self.rscale = np.array([1, 1, 1, 1 / self.L, 1 / self.L, 1 / self.L])
+        #: weight of a position gap in closure errors (see ``TOLERANCE``)
+        self.pos_weight = TOLERANCE / (CLOSE_POSITION * self.L)
+        self.escale = np.array([1, 1, 1] + [self.pos_weight] * 3)
+        #: a closure error of a coordinate, scale-free (radian; length times pos_weight)
+        self.qerr = np.where(self.is_length, self.pos_weight, 1.0)
 
     # -- couplings: affine groups ------------------------------------------------------
     def _couplings(self):
@@ -401,7 +418,7 @@ class Solver:
             v = v + (w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0])
             r[6 * li:6 * li + 3] = w
             r[6 * li + 3:6 * li + 6] = v
-            errs[li] = max(np.abs(w).max(), np.abs(v).max() / self.L)  # scale-free: radian, size
+            errs[li] = max(np.abs(w).max(), np.abs(v).max() * self.pos_weight)  # scale-free
             if jac and cols:
                 step_of_row, sign_of_row, selm = plan["rows"][li]
                 ads = spatial.adjoint(np.array(frames))
@@ -507,7 +524,7 @@ class Solver:
         """Continuation corrector: undamped Newton from the predictor ``q`` (in place).
 
         Unlike :meth:`_newton` it never damps nor wanders: it fails as soon as an
-        increment is not at most ``CONTRACTION`` of the one before (the predictor lies
+        increment is not at most ``CORRECTOR_RATIO`` of the one before (the predictor lies
         outside the convergence region of the nearest solution, see the branch notes
         above), so a failed step costs a few evaluations.  Returns ``(ok, err, loop_errs,
         J)`` with ``J`` over all ``cols`` at the final state.
@@ -526,7 +543,7 @@ class Solver:
             size = float(np.linalg.norm(du))
             if prev is None and size > 0.5:
                 break  # the predictor is far from closure: the sub-step is too long
-            if prev is not None and size > NOISE_STEP and size > CONTRACTION * prev:
+            if prev is not None and size > CONTRACT_FLOOR and size > CORRECTOR_RATIO * prev:
                 break  # no contraction: outside the corrector's convergence region
             prev = size
             self._apply(q, cols[:nu], rot, du * cs)
@@ -548,16 +565,17 @@ class Solver:
     def closure(self, q):
         """(largest error, per-loop errors) of state ``q``; couplings count as loops.
 
-        Errors are scale-free: radians, and lengths as a fraction of the mechanism's size
-        (so a drawing scaled by any factor closes to the same tolerance).  A coupling's
-        error is ``|follower - (ratio * leader + offset)|`` in those units.
+        Errors are scale-free (see ``TOLERANCE``: radians, positions weighted by their
+        fraction of the mechanism's size), so a drawing scaled by any factor closes to
+        the same tolerance.  A coupling's error is ``|follower - (ratio * leader +
+        offset)|`` in those units.
         """
         errs = []
         for b in self.blocks:
             errs.extend(self._eval(b, q, [], set(), jac=False)[1])
         m = self.m
         for name, e in self.coupling_errors(q).items():
-            errs.append(e * self.cscale[m._index[m.couplings[name].follower]])
+            errs.append(e * self.qerr[m._index[m.couplings[name].follower]])
         return (max(errs) if errs else 0.0), errs
 
     def coupling_errors(self, q):
@@ -919,7 +937,7 @@ class Solver:
             lim = j.limits[i - m._slices[j.name].start]
             if lim is None:
                 continue
-            slack = TOLERANCE / self.cscale[i]  # scale-free: radian or fraction of the size
+            slack = TOLERANCE / self.qerr[i]  # scale-free: radian or fraction of the size
             if not lim[0] - slack <= q[i] <= lim[1] + slack:
                 u = m._unit(i)
                 unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit

@@ -229,6 +229,7 @@ class _Evaluator:
         self.cols_held = [("m", g) for g in self.held]
         self.nl = len(block.loops)
         self.rs = np.tile(s.rscale, self.nl)
+        self.es = np.tile(s.escale, self.nl)
         self.sites = [mech.joints[lp.name].point for lp in block.loops]
 
     def _cscale(self, cols):
@@ -316,7 +317,7 @@ class _Evaluator:
                             continue
                     J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
                     J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - _cross(site, col[:, :3])
-        rr = (np.abs(r) * self.rs[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
+        rr = (np.abs(r) * self.es[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
         errs = rr.max(axis=(1, 2))
         return r, errs, J
 
@@ -484,7 +485,7 @@ def _run(mech, explicit, N, q0, release):
         lim = j.limits[i - mech._slices[j.name].start]
         if lim is None:
             continue
-        slack = 1e-9 / s.cscale[i]  # radian, or a fraction of the mechanism's size
+        slack = 1e-9 / s.qerr[i]  # radian, or a fraction of the mechanism's size
         bad = (Q[:, i] < lim[0] - slack) | (Q[:, i] > lim[1] + slack)
         for k in np.flatnonzero(bad & good & ~lim_bad):
             reasons[int(k)] = f"limit of joint {j.name}" + (f" ({c})" if c != j.name else "")
