@@ -101,7 +101,7 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     go, gp = int(s.master[io]), int(s.master[ip])
     conv = mech._unit(ip) / mech._unit(io)
     if go == gp:
-        return np.full(N, s.alpha[io] / s.alpha[ip] * conv)
+        return s.member_slope(io, Q[:, go]) / s.member_slope(ip, Q[:, go]) * np.ones(N) * conv
     held = set(held_masters)
     if gp not in held and drive is not None:
         held.discard(int(s.master[mech._require(drive)]))
@@ -115,4 +115,4 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     ci = [c[1] for c in ev.cols_coord].index(go)
     hi = ev.held.index(gp)
     dg = T[:, ci, hi]
-    return dg * s.alpha[io] / s.alpha[ip] * conv
+    return dg * s.member_slope(io, Q[:, go]) / s.member_slope(ip, Q[:, gp]) * conv

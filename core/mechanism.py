@@ -45,12 +45,24 @@ class Link:
 
 @dataclass
 class Coupling:
-    """``follower = ratio * leader + offset``, in file units."""
+    """``follower = ratio * leader + offset`` in file units, or a motion law.
+
+    ``law``: ``None`` for the linear coupling, else a law of :mod:`jointwise.couplings`
+    (internal units; ``ratio`` and ``offset`` are then None); ``spec``: the law's keys as
+    the file gave them (for writing the file back).
+    """
     name: str
     leader: str
     follower: str
-    ratio: float
-    offset: float = 0.0
+    ratio: float | None
+    offset: float | None = 0.0
+    law: object = None
+    spec: dict | None = None
+
+    @property
+    def kind(self):
+        """The law's name: linear, program, geneva or table."""
+        return "linear" if self.law is None else self.law.name
 
 
 @dataclass
@@ -500,8 +512,10 @@ class Mechanism:
         out["links"] = {n: ({"object": l.object} if l.object != n else {}) for n, l in self.links.items()}
         out["joints"] = {n: dict(j.source) for n, j in self.joints.items()}
         if self.couplings:
-            out["couplings"] = {n: {"leader": c.leader, "follower": c.follower, "ratio": c.ratio,
-                                    "offset": c.offset} for n, c in self.couplings.items()}
+            out["couplings"] = {n: ({"leader": c.leader, "follower": c.follower, "ratio": c.ratio,
+                                     "offset": c.offset} if c.law is None else
+                                    {"leader": c.leader, "follower": c.follower, **c.spec})
+                                for n, c in self.couplings.items()}
         if self.measures:
             ms = {}
             for n, m in self.measures.items():

@@ -206,41 +206,94 @@ class Solver:
 
     # -- couplings: affine groups ------------------------------------------------------
     def _couplings(self):
+        """Group coupled coordinates: member ``i`` of master ``g`` follows
+        ``q_i = alpha_i q_g + beta_i``, or, behind a motion law ``f`` (``self.law[i] =
+        (f, a_in, b_in, a_out, b_out)``), ``q_i = a_out f(a_in q_g + b_in) + b_out``.
+        A motion law is followed from its leader only (it need not be invertible), and one
+        chain of couplings passes at most one motion law."""
         m = self.m
         n = len(m.coordinates)
         self.master = np.arange(n)
         self.alpha = np.ones(n)
         self.beta = np.zeros(n)
+        self.law = {}
         adj = {i: [] for i in range(n)}
+        followers = set()
         for c in m.couplings.values():
             li, fi = m._index[c.leader], m._index[c.follower]
+            if c.law is not None:
+                adj[li].append((fi, c.law, None, c.name))       # q_f = f(q_l)
+                adj[fi].append((li, None, None, c.name))        # not invertible
+                followers.add(fi)
+                continue
             ul, uf = m._unit(li), m._unit(fi)
             a = uf * c.ratio / ul
             b = uf * c.offset
             adj[li].append((fi, a, b, c.name))            # q_f = a q_l + b
             adj[fi].append((li, 1 / a, -b / a, c.name))   # q_l = (q_f - b) / a
         seen = set()
-        for root in range(n):
+        order = [i for i in range(n) if i not in followers] + sorted(followers)
+        for root in order:
             if root in seen or not adj[root]:
                 continue
             seen.add(root)
+            via = {root: None}
             stack = [root]
             while stack:
                 i = stack.pop()
                 for k, a, b, cname in adj[i]:
-                    na, nb = a * self.alpha[i], a * self.beta[i] + b
+                    if cname == via[i]:
+                        continue
                     if k in seen:
+                        if a is None or not isinstance(a, float) or i in self.law or k in self.law:
+                            raise SpecError(f"coupling {cname!r} closes a loop of couplings through a motion "
+                                            f"law at {m.coordinates[k]!r}", source=m.source, key=f"couplings.{cname}")
+                        na, nb = a * self.alpha[i], a * self.beta[i] + b
                         if abs(na - self.alpha[k]) > 1e-9 * max(1, abs(na)) or abs(nb - self.beta[k]) > 1e-9 * max(1, abs(nb)):
                             raise SpecError(f"coupling {cname!r} contradicts the other couplings of "
                                             f"{m.coordinates[k]!r} (they form a loop with another ratio)",
                                             source=m.source, key=f"couplings.{cname}")
                         continue
+                    if a is None:
+                        raise SpecError(f"coupling {cname!r}: {m.coordinates[k]!r} leads a motion law but is "
+                                        f"itself set through {m.coordinates[i]!r}; a motion law is followed from "
+                                        f"its leader only", source=m.source, key=f"couplings.{cname}")
+                    if isinstance(a, float):
+                        if i in self.law:
+                            f, ai, bi_, ao, bo = self.law[i]
+                            self.law[k] = (f, ai, bi_, a * ao, a * bo + b)
+                            self.alpha[k], self.beta[k] = np.nan, np.nan
+                        else:
+                            self.alpha[k], self.beta[k] = a * self.alpha[i], a * self.beta[i] + b
+                    else:
+                        if i in self.law:
+                            raise SpecError(f"coupling {cname!r}: two motion laws in one chain of couplings "
+                                            f"are not supported", source=m.source, key=f"couplings.{cname}")
+                        self.law[k] = (a, self.alpha[i], self.beta[i], 1.0, 0.0)
+                        self.alpha[k], self.beta[k] = np.nan, np.nan
                     seen.add(k)
-                    self.master[k], self.alpha[k], self.beta[k] = root, na, nb
+                    via[k] = cname
+                    self.master[k] = root
                     stack.append(k)
         self.members = {}
         for i in range(n):
             self.members.setdefault(int(self.master[i]), []).append(i)
+
+    def member_rates(self, i, qg):
+        """``(q_i, dq_i/dq_g, d2q_i/dq_g2)`` of member ``i`` at master values ``qg`` (array)."""
+        qg = np.asarray(qg, dtype=float)
+        hit = self.law.get(i)
+        if hit is None:
+            return self.alpha[i] * qg + self.beta[i], np.full(qg.shape, self.alpha[i]), np.zeros(qg.shape)
+        f, ai, bi, ao, bo = hit
+        y, dy, ddy = f.evaluate(ai * qg + bi)
+        return ao * y + bo, ao * ai * dy, ao * ai * ai * ddy
+
+    def member_slope(self, i, qg):
+        """dq_i/dq_g of member ``i`` at master values ``qg`` (float or array)."""
+        if i not in self.law:
+            return self.alpha[i]
+        return self.member_rates(i, qg)[1]
 
     def _blocks(self):
         m = self.m
@@ -331,12 +384,16 @@ class Solver:
             slot_of[jn] = (nslot, nslot + width)
             nslot += width
         M = np.zeros((nslot, len(cols)))
+        varying = []  # (slot, column, member, master) of motion-law members: f'(q_g) at evaluation
         for ci, c in enumerate(cols):
             if c[0] == "m":
                 for i in self.members[c[1]]:
                     jn = m._owner[m.coordinates[i]]
                     if jn in slot_of and jn not in rot:
-                        M[slot_of[jn][0] + i - m._slices[jn].start, ci] += self.alpha[i]
+                        if i in self.law:
+                            varying.append((slot_of[jn][0] + i - m._slices[jn].start, ci, i, c[1]))
+                        else:
+                            M[slot_of[jn][0] + i - m._slices[jn].start, ci] += self.alpha[i]
             else:
                 M[slot_of[c[1]][0] + c[2], ci] = 1.0
         steps, rowmaps = [], []
@@ -351,12 +408,12 @@ class Solver:
                     slot_of_row.append(sl)
             sel = np.zeros((len(slot_of_row), nslot))
             sel[np.arange(len(slot_of_row)), slot_of_row] = 1.0
-            rowmaps.append((np.array(step_of_row, dtype=int), np.array(sign_of_row)[:, None], sel @ M))
+            rowmaps.append((np.array(step_of_row, dtype=int), np.array(sign_of_row)[:, None], sel @ M, sel))
         plan = {
             "screws": np.array(screws).reshape(-1, 6),
             "powers": spatial.screw_powers(np.array(screws).reshape(-1, 6)), "pidx": np.array(pidx, dtype=int),
             "phome": np.array(phome, dtype=float), "joint_prims": joint_prims, "M": M,
-            "nslot": nslot, "steps": steps, "rows": rowmaps,
+            "nslot": nslot, "steps": steps, "rows": rowmaps, "varying": varying,
             "rot_x": {jn: m.joints[jn].rotation_twists() for jn in rot},
             "points": {loop.name: np.append(m.joints[loop.name].point, 1.0) for loop in block.loops},
         }
@@ -394,6 +451,11 @@ class Solver:
         errs = np.empty(nl)
         J = np.zeros((6 * nl, len(cols))) if jac else None
         inv_cache = {}
+        Mq = None
+        if jac and plan["varying"]:
+            Mq = plan["M"].copy()
+            for slot, ci, i, g in plan["varying"]:
+                Mq[slot, ci] += self.member_slope(i, q[g])
         for li, steps in enumerate(plan["steps"]):
             a = _EYE4
             site = None
@@ -420,7 +482,9 @@ class Solver:
             r[6 * li + 3:6 * li + 6] = v
             errs[li] = max(np.abs(w).max(), np.abs(v).max() * self.pos_weight)  # scale-free
             if jac and cols:
-                step_of_row, sign_of_row, selm = plan["rows"][li]
+                step_of_row, sign_of_row, selm, sel = plan["rows"][li]
+                if Mq is not None:
+                    selm = sel @ Mq
                 ads = spatial.adjoint(np.array(frames))
                 tw = np.einsum("kij,kj->ki", ads[step_of_row], np.concatenate(xs)) * sign_of_row
                 rows = tw.T @ selm
@@ -460,7 +524,10 @@ class Solver:
         for g in masters:
             for i in self.members[g]:
                 if i != g:
-                    q[i] = self.alpha[i] * q[g] + self.beta[i]
+                    if i in self.law:
+                        q[i] = self.member_rates(i, q[g])[0]
+                    else:
+                        q[i] = self.alpha[i] * q[g] + self.beta[i]
 
     # -- Newton corrector ---------------------------------------------------------------
     def _newton(self, block, q, cols, rot, evaluated=None, nu=None):
@@ -583,6 +650,9 @@ class Solver:
         out = {}
         for c in m.couplings.values():
             li, fi = m._index[c.leader], m._index[c.follower]
+            if c.law is not None:
+                out[c.name] = float(abs(q[fi] - c.law.evaluate(q[li])[0]))
+                continue
             a = m._unit(fi) * c.ratio / m._unit(li)
             out[c.name] = float(abs(q[fi] - (a * q[li] + m._unit(fi) * c.offset)))
         return out
@@ -693,6 +763,9 @@ class Solver:
 
     def _hold(self, target, source, i, v):
         g = int(self.master[i])
+        if i in self.law:
+            raise AssemblyError(f"{self.m.coordinates[i]!r} follows a motion law and cannot be held; "
+                                f"hold its leader {self.m.coordinates[g]!r} instead", joint=self.m.coordinates[i])
         gv = (v - self.beta[i]) / self.alpha[i]
         if g in target and abs(target[g] - gv) > 1e-9 * max(1.0, abs(gv)):
             other = source[g]
@@ -873,7 +946,7 @@ class Solver:
         if blame is not None:
             i = m._index[blame]
             unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
-            reached = q[int(self.master[i])] * self.alpha[i] + self.beta[i]
+            reached = self.member_rates(i, q[int(self.master[i])])[0]
             where = (f"; the held value of {blame!r} is likely out of reach "
                      f"(the loop stays closed only up to about {m.to_file(blame, reached):.6g} {unit})")
         raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
@@ -902,6 +975,9 @@ class Solver:
         """
         gper = int(self.master[per])
         held_m = {int(self.master[i]) for i in held} | {gper}
+        if per in self.law:
+            raise AssemblyError(f"{self.m.coordinates[per]!r} follows a motion law; rates are taken per its "
+                                f"leader {self.m.coordinates[gper]!r}", joint=self.m.coordinates[per])
         dq = np.zeros(self.n)
         dq[gper] = 1.0 / self.alpha[per]
         bi = self.block_of_master.get(gper)
@@ -925,7 +1001,7 @@ class Solver:
         for g in list(np.flatnonzero(dq)):
             for i in self.members[int(g)]:
                 if i != g:
-                    dq[i] = self.alpha[i] * dq[g]
+                    dq[i] = self.member_slope(i, q[g]) * dq[g]
         return dq
 
     def _check_passive_limits(self, q, held_groups):
@@ -974,7 +1050,7 @@ class Solver:
         for c in m.couplings.values():
             row = np.zeros(self.n)
             li, fi = m._index[c.leader], m._index[c.follower]
-            a = m._unit(fi) * c.ratio / m._unit(li)
+            a = m._unit(fi) * c.ratio / m._unit(li) if c.law is None else float(c.law.evaluate(q[li])[1])
             row[fi] = 1.0 / self.cscale[fi]
             row[li] = -a / self.cscale[li]
             row /= np.abs(row).max()
@@ -983,15 +1059,16 @@ class Solver:
 
     def _eval_members(self, b, q, full, rot):
         # like _eval, but with one column per coordinate (no coupling elimination)
-        saved = (self.master, self.alpha, self.members)
+        saved = (self.master, self.alpha, self.members, self.law)
         self.master = np.arange(self.n)
         self.alpha = np.ones(self.n)
         self.members = {i: [i] for i in range(self.n)}
+        self.law = {}
         try:
             cols = [("m", c[1]) if c[0] == "c" else c for c in full]
             return self._eval(b, q, cols, rot)
         finally:
-            self.master, self.alpha, self.members = saved
+            self.master, self.alpha, self.members, self.law = saved
 
     def mobility(self, q):
         """Mobility counts at state ``q``.

@@ -47,7 +47,14 @@ MECHANISM_KEYS = ("name", "length_unit", "angle_unit", "ground")
 LINK_KEYS = ("object",)
 JOINT_KEYS = ("type", "parent", "child", "point", "axis", "axis2", "home", "limits", "drive",
               "lead", "pitch", "starts", "lead_angle", "diameter", "thread", "hand")
-COUPLING_KEYS = ("leader", "follower", "ratio", "offset")
+COUPLING_KEYS = ("leader", "follower", "law", "ratio", "offset", "segments", "period", "slots", "points")
+#: Keys each coupling law takes besides leader, follower and law.
+LAW_KEYS = {
+    "linear": ("ratio", "offset"),
+    "program": ("segments", "period"),
+    "geneva": ("slots", "offset"),
+    "table": ("points", "period"),
+}
 MEASURE_TYPES = {
     "point": ("type", "link", "at"),
     "distance": ("type", "a", "b"),
@@ -299,18 +306,7 @@ def from_dict(data, source="<data>"):
         key = f"couplings.{cname}"
         cd = r.table(cd, key)
         r.keys(cd, key, COUPLING_KEYS)
-        for k in ("leader", "follower", "ratio"):
-            if k not in cd:
-                r.fail(f"{key}.{k}", "required key missing")
-        leader = _coord_ref(r, cd["leader"], f"{key}.leader", coords)
-        follower = _coord_ref(r, cd["follower"], f"{key}.follower", coords)
-        if leader == follower:
-            r.fail(f"{key}.follower", "follower must differ from leader")
-        ratio = r.number(cd["ratio"], f"{key}.ratio")
-        if ratio == 0:
-            r.fail(f"{key}.ratio", "ratio must not be 0 (that would hold the follower, use drive)")
-        offset = r.number(cd.get("offset", 0.0), f"{key}.offset")
-        couplings[cname] = Coupling(cname, leader, follower, ratio, offset)
+        couplings[cname] = _coupling(r, key, cname, cd, coords, Coupling, deg)
 
     measures = {}
     for mname, md in r.table(data.get("measures", {}), "measures").items():
@@ -325,6 +321,97 @@ def from_dict(data, source="<data>"):
     m = Mechanism(name=name, length_unit=lu, angle_unit=au, ground=ground, links=links,
                   joints=joints, couplings=couplings, measures=measures, source=source)
     return m
+
+
+def _coupling(r, key, name, cd, coords, Coupling, deg):
+    """One ``[couplings.NAME]`` table: a linear coupling or a motion law (jointwise.couplings)."""
+    from . import couplings as laws
+
+    law = r.choice(cd.get("law", "linear"), f"{key}.law", list(LAW_KEYS))
+    for k in cd:
+        if k not in ("leader", "follower", "law") + LAW_KEYS[law]:
+            r.fail(f"{key}.{k}", f"law {law!r} does not take {k}; it takes {', '.join(LAW_KEYS[law])}")
+    for k in ("leader", "follower") + {"linear": ("ratio",), "program": ("segments",),
+                                       "geneva": ("slots",), "table": ("points",)}[law]:
+        if k not in cd:
+            r.fail(f"{key}.{k}", "required key missing")
+    leader = _coord_ref(r, cd["leader"], f"{key}.leader", coords)
+    follower = _coord_ref(r, cd["follower"], f"{key}.follower", coords)
+    if leader == follower:
+        r.fail(f"{key}.follower", "follower must differ from leader")
+    ul = deg if coords[leader] == "angle" else 1.0
+    uf = deg if coords[follower] == "angle" else 1.0
+    if law == "linear":
+        ratio = r.number(cd["ratio"], f"{key}.ratio")
+        if ratio == 0:
+            r.fail(f"{key}.ratio", "ratio must not be 0 (that would hold the follower, use drive)")
+        offset = r.number(cd.get("offset", 0.0), f"{key}.offset")
+        return Coupling(name, leader, follower, ratio, offset)
+    period = None
+    if "period" in cd:
+        period = r.number(cd["period"], f"{key}.period")
+        if period <= 0:
+            r.fail(f"{key}.period", f"period must be positive, got {period:g}")
+    elif coords[leader] == "angle":
+        period = 2 * math.pi / ul  # one turn, in the file's angle unit
+    spec = {k: cd[k] for k in cd if k not in ("leader", "follower")}
+    if law == "geneva":
+        slots = cd["slots"]
+        if isinstance(slots, bool) or not isinstance(slots, int) or slots < 3:
+            r.fail(f"{key}.slots", f"expected a whole number of slots >= 3, got {slots!r}")
+        for k, c in (("leader", leader), ("follower", follower)):
+            if coords[c] != "angle":
+                r.fail(f"{key}.{k}", f"a Geneva wheel and its crank turn: {c!r} must be an angle")
+        offset = r.number(cd.get("offset", 0.0), f"{key}.offset")
+        return Coupling(name, leader, follower, None, None, law=laws.Geneva(slots, offset * uf), spec=spec)
+    if law == "table":
+        pts = cd["points"]
+        if not isinstance(pts, list) or len(pts) < 3:
+            r.fail(f"{key}.points", "expected a list of at least three [leader, follower] pairs")
+        xy = []
+        for i, p in enumerate(pts):
+            if not isinstance(p, list) or len(p) != 2:
+                r.fail(f"{key}.points[{i}]", f"expected [leader, follower], got {p!r}")
+            xy.append([r.number(v, f"{key}.points[{i}]") for v in p])
+            if i and not xy[i][0] > xy[i - 1][0]:
+                r.fail(f"{key}.points[{i}]", f"table leaders must increase: {xy[i][0]:g} follows {xy[i - 1][0]:g}")
+        span = xy[-1][0] - xy[0][0]
+        if "period" in cd and abs(span - period) > 1e-9 * max(1.0, period):
+            r.fail(f"{key}.period", f"the points span {span:g}, not one period {period:g} "
+                                    "(a periodic table's last point repeats the first one period on)")
+        internal = [[x * ul, y * uf] for x, y in xy]
+        return Coupling(name, leader, follower, None, None,
+                        law=laws.Table(internal, None if period is None else period * ul), spec=spec)
+    segs = cd["segments"]
+    if not isinstance(segs, list) or not segs:
+        r.fail(f"{key}.segments", "expected a list of [leader_from, leader_to, follower_from, follower_to, KIND]")
+    rows = []
+    for i, sg in enumerate(segs):
+        k = f"{key}.segments[{i}]"
+        if not isinstance(sg, list) or len(sg) != 5:
+            r.fail(k, f"expected [leader_from, leader_to, follower_from, follower_to, KIND], got {sg!r}")
+        x0, x1, y0, y1 = (r.number(v, k) for v in sg[:4])
+        kind = r.choice(sg[4], k, list(laws.KINDS))
+        if not x1 > x0:
+            r.fail(k, f"leader_to {x1:g} must be above leader_from {x0:g}")
+        if kind == "dwell" and y0 != y1:
+            r.fail(k, f"a dwell keeps the follower still, but it goes from {y0:g} to {y1:g}")
+        if rows:
+            px1, py1 = rows[-1][1], rows[-1][3]
+            tol = 1e-9 * max(1.0, abs(px1), abs(x0))
+            if abs(x0 - px1) > tol:
+                r.fail(k, f"segments do not tile the period: segment {i - 1} ends at leader {px1:g}, "
+                          f"segment {i} starts at {x0:g}")
+            if abs(y0 - py1) > 1e-9 * max(1.0, abs(py1), abs(y0)):
+                r.fail(k, f"the follower jumps between segments {i - 1} and {i}: from {py1:g} to {y0:g}")
+        rows.append((x0, x1, y0, y1, kind))
+    span = rows[-1][1] - rows[0][0]
+    if period is None:
+        period = span
+    elif abs(span - period) > 1e-9 * max(1.0, period):
+        r.fail(f"{key}.segments", f"segments do not tile the period: they span {span:g}, the period is {period:g}")
+    internal = [(x0 * ul, x1 * ul, y0 * uf, y1 * uf, kind) for x0, x1, y0, y1, kind in rows]
+    return Coupling(name, leader, follower, None, None, law=laws.Program(internal, period * ul), spec=spec)
 
 
 def _coord_ref(r, value, key, coords):

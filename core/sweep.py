@@ -308,7 +308,8 @@ class _Evaluator:
                         for i in s.members[c[1]]:
                             t = rows.get(("c", i))
                             if t is not None:
-                                col = s.alpha[i] * t if col is None else col + s.alpha[i] * t
+                                a = s.alpha[i] if i not in s.law else s.member_slope(i, Q[:, c[1]])[:, None]
+                                col = a * t if col is None else col + a * t
                         if col is None:
                             continue
                     else:
@@ -349,7 +350,7 @@ def _derive(s, Q, masters):
     for g in masters:
         for i in s.members[g]:
             if i != g:
-                Q[:, i] = s.alpha[i] * Q[:, g] + s.beta[i]
+                Q[:, i] = s.member_rates(i, Q[:, g])[0] if i in s.law else s.alpha[i] * Q[:, g] + s.beta[i]
 
 
 def _chol_solve(G, b):
@@ -455,6 +456,9 @@ def _run(mech, explicit, N, q0, release):
     target = {}
     for i, v in list(explicit.items()) + [(i, np.full(N, q0[i])) for i in extra]:
         g = int(s.master[i])
+        if i in s.law:
+            raise JointwiseError(f"{mech.coordinates[i]!r} follows a motion law and cannot be held; "
+                                 f"hold its leader {mech.coordinates[g]!r} instead")
         gv = (np.asarray(v, float) - s.beta[i]) / s.alpha[i]
         if g in target and np.any(np.abs(target[g] - gv) > 1e-9 * np.maximum(1.0, np.abs(gv))):
             raise JointwiseError(f"held values of {mech.coordinates[i]!r} contradict a coupling "
