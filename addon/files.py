@@ -113,6 +113,10 @@ def import_mechanism(scene, mech, objects, marker_collection):
         cp.leader, cp.follower = c.leader, c.follower
         fl = sc.value_factor_file_to_host(scene, mech.coordinate_kind(c.follower), mech.length_unit, mech.angle_unit)
         ll = sc.value_factor_file_to_host(scene, mech.coordinate_kind(c.leader), mech.length_unit, mech.angle_unit)
+        if c.law is not None:  # a motion law: its keys in host units
+            from jointwise.couplings import scale_spec
+            cp.law_json = json.dumps(scale_spec(c.spec, ll, fl))
+            continue
         cp.ratio = float(c.ratio) * fl / ll
         cp.offset = float(c.offset) * fl
     # animation of joint values addresses items by index: keep it on the same names
@@ -201,6 +205,11 @@ def export_dict(scene, length_unit=None, angle_unit=None):
             fi, li = jw.joints.get(c.follower), jw.joints.get(c.leader)
             ff = (k if fi.kind == "length" else a) if fi else 1.0
             lf = (k if li.kind == "length" else a) if li else 1.0
+            if c.law_json:  # a motion law: back from host units to the file's
+                from jointwise.couplings import scale_spec
+                out["couplings"][c.name] = {"leader": c.leader, "follower": c.follower,
+                                            **scale_spec(json.loads(c.law_json), lf, ff)}
+                continue
             exact = geometry.get(COUPLINGS, {}).get(c.name, {}) if same_units else {}
             out["couplings"][c.name] = {"leader": c.leader, "follower": c.follower,
                                         "ratio": file_number(tidy(c.ratio * ff / lf), exact.get("ratio")),
@@ -234,7 +243,7 @@ def _file_numbers(mech, data):
         out[n] = e
     if data.get("couplings"):
         out[COUPLINGS] = {n: {"ratio": c["ratio"], "offset": c.get("offset", 0.0)}
-                          for n, c in data["couplings"].items()}
+                          for n, c in data["couplings"].items() if "ratio" in c}  # motion laws: law_json
     return out
 
 

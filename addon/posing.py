@@ -40,13 +40,15 @@ def held_values(scene, mech, extra=(), values=None):
     released = {groups[jw.joints[e].joint] for e in extra
                 if e in jw.joints and not jw.joints[e].drive and jw.joints[e].joint in groups}
     held = {}
+    followers = {c.follower for c in mech.couplings.values()}  # set by their leaders
     for item in jw.joints:
         name = item.name
         if name not in known:
             continue  # a fixed joint: no coordinate
         free = groups.get(item.joint) in released  # the user moves a passive joint of this loop
         drive = item.drive and not free
-        if drive or name in extra or (name in animated and not free) or item.joint not in groups:
+        if (drive or name in extra or (name in animated and not free)
+                or (item.joint not in groups and name not in followers)):
             v = float(item.value) if values is None or name not in values else float(values[name])
             held[name] = v
     return held

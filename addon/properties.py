@@ -149,6 +149,8 @@ class JointwiseCoupling(bpy.types.PropertyGroup):
     follower: StringProperty(name="Follower")
     ratio: FloatProperty(name="Ratio", default=1.0, precision=6)
     offset: FloatProperty(name="Offset", default=0.0, precision=6)
+    law_json: StringProperty(name="Motion law", default="",
+                             description="A motion law's keys (JSON, host units); empty for follower = ratio * leader + offset")
 
 
 class JointwiseMechanism(bpy.types.PropertyGroup):

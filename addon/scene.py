@@ -218,8 +218,9 @@ def mechanism_dict_from_scene(scene):
         data["joints"][joint] = jd
     snap_lines(data["joints"])
     if jw.couplings:
-        data["couplings"] = {c.name: {"leader": c.leader, "follower": c.follower,
-                                      "ratio": float(c.ratio), "offset": float(c.offset)}
+        data["couplings"] = {c.name: ({"leader": c.leader, "follower": c.follower,
+                                       "ratio": float(c.ratio), "offset": float(c.offset)} if not c.law_json
+                                      else {"leader": c.leader, "follower": c.follower, **json.loads(c.law_json)})
                              for c in jw.couplings}
     check_finite(data, "scene mechanism")
     return data

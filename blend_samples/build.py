@@ -43,12 +43,12 @@ HERE = pathlib.Path(__file__).resolve().parent
 ROOT = HERE.parent
 MODULE = "bl_ext.user_default.jointwise"
 SAMPLES = ("linnet_vise", "wagtail_rocker", "dipper_pump", "heron_shaft", "heron_twin_shaft",
-           "plover_lift")
+           "plover_lift", "kittiwake_index")
 DEFAULT_FRAMES = 120
 FRAMES = {"plover_lift": 240}  # 50 screw turns: 75 deg a frame rather than 150
 CAUTION = ("jointwise checks kinematics only: no loads, strength, stability or guarding. "
            "Local codes and a qualified engineer decide whether a real machine like this is safe.")
-CAUTIONED = ("linnet_vise", "plover_lift")
+CAUTIONED = ("linnet_vise", "plover_lift", "kittiwake_index")
 HOME_TOL = 1e-5
 
 SWEEP = re.compile(r"Documented sweep:\s*\w+\s+(-?[\d.]+)\s+to\s+(-?[\d.]+)\s+deg")
@@ -461,12 +461,60 @@ def parts_plover(mech):
     return out
 
 
+def _plate(shape, outline, z0, z1):
+    """A flat plate between heights z0 and z1 over a closed outline of (x, y) points."""
+    n = len(outline)
+    verts = [(x, y, z0) for x, y in outline] + [(x, y, z1) for x, y in outline]
+    faces = [tuple(reversed(range(n))), tuple(range(n, 2 * n))]
+    faces += [(i, (i + 1) % n, n + (i + 1) % n, n + i) for i in range(n)]
+    shape.add(verts, faces)
+    return shape
+
+
+def parts_kittiwake(mech):
+    """Six-slot Geneva wheel under a round table, pin crank and plate cam on one shaft,
+    marking slide with its roller on the cam (the cam outline from ``jointwise.cam``)."""
+    from jointwise.cam import cam_profile
+    P, A = _pts(mech)
+    o, w, sp = P["drive_shaft"], P["table_spindle"], P["marking_slide"]
+    frame = Shape().span((-45, -70, -22), (125, 70, -16))
+    frame.cylinder(o + (0, 0, -16), o + (0, 0, -4), 8).cylinder(w + (0, 0, -16), w + (0, 0, -6), 8)
+    frame.span((-14, 48, 12), (-9, 80, 28)).span((9, 48, 12), (14, 80, 28))          # slide guide
+    # driver: pin crank (30 mm, towards the wheel at 0 deg; home 180 deg) and the cam above
+    home = math.radians(mech.joints["drive_shaft"].home[0])
+    pin = o + 30 * np.array([math.cos(home), math.sin(home), 0.0])
+    driver = Shape().bar([o, pin], (0, 0, 1), 6, 4, 2.0)
+    driver.cylinder(pin + (0, 0, 2), pin + (0, 0, 12), 3.0).cylinder(o + (0, 0, -4), o + (0, 0, 26), 4.0)
+    prof = cam_profile(mech, "marking_cam", 22.0, 5.0, 0.0, np.radians(np.arange(0.0, 360.0, 3.0)))["profile"]
+    # cam-fixed (x, y) -> world at home: the line of lift is the slide's axis (+y); turn by the home angle
+    c, s_ = math.cos(home), math.sin(home)
+    outline = [(o[0] + c * x - s_ * y, o[1] + s_ * x + c * y) for x, y in prof]
+    _plate(driver, outline, 16.0, 24.0)
+    # table: Geneva wheel (radius C cos(pi/6)) with six slots, and the marking table on top
+    R = 60 * math.cos(math.pi / 6)
+    table = Shape().cylinder(w + (0, 0, 0), w + (0, 0, 6), R, 48)
+    table.cylinder(w + (0, 0, 6), w + (0, 0, 9), 12, 24).cylinder(w + (0, 0, 9), w + (0, 0, 12), 26, 48)
+    phi = math.radians(mech.joints["table_spindle"].home[0])
+    for k in range(6):  # slot k points at the crank centre when the wheel is at phi = 0 (turning about -z)
+        a = math.pi - phi + k * math.pi / 3
+        u = np.array([math.cos(a), math.sin(a), 0.0])
+        table.box(w + u * (R + 28) / 2 + (0, 0, 6.5), (R - 28, 6.5, 1.0), u, np.cross((0, 0, 1.0), u))
+    mark = np.asarray(mech.measures["station_mark"].a[1], float)
+    table.cylinder(mark + (0, 0, 0), mark + (0, 0, 8), 3.0)
+    slide = Shape().span((-9, sp[1], 14), (9, sp[1] + 45, 26))
+    slide.cylinder(sp + (0, 0, -4.5), sp + (0, 0, 4.5), 5.0)                         # roller
+    return {"index_frame": (frame, o, "frame"), "index_driver": (driver, o, "moving"),
+            "index_table": (table, w, "second"), "index_marking_slide": (slide, sp, "steel")}
+
+
 PARTS = {"wagtail_rocker": parts_wagtail, "dipper_pump": parts_dipper, "heron_shaft": parts_heron,
-         "heron_twin_shaft": parts_twin, "linnet_vise": parts_vise, "plover_lift": parts_plover}
+         "heron_twin_shaft": parts_twin, "linnet_vise": parts_vise, "plover_lift": parts_plover,
+         "kittiwake_index": parts_kittiwake}
 # camera: direction from the scene's middle towards the camera (z up)
 VIEWS = {"wagtail_rocker": (0.25, -0.55, 1.0), "dipper_pump": (0.25, -0.55, 1.0),
          "heron_shaft": (0.45, -0.9, 0.75), "heron_twin_shaft": (0.35, -0.9, 0.8),
-         "linnet_vise": (0.7, -1.0, 0.6), "plover_lift": (0.55, -1.0, 0.35)}
+         "linnet_vise": (0.7, -1.0, 0.6), "plover_lift": (0.55, -1.0, 0.35),
+         "kittiwake_index": (0.35, -0.8, 1.0)}
 LABELS = {"heron_shaft": "30°", "heron_twin_shaft": "25°"}
 
 

@@ -1,4 +1,4 @@
-"""Command line: ``jointwise check | pose | sweep | range | tidy``.
+"""Command line: ``jointwise check | pose | sweep | range | tidy | cam``.
 
 Exit codes: 0 success; 2 bad command line or bad file, or an input beyond a documented
 limit (:data:`jointwise.spec.LIMITS`); 3 cannot assemble, a value outside its joint's
@@ -168,6 +168,23 @@ def build_parser():
     t.add_argument("--out", required=True, metavar="PATH", help="where to write the tidied file")
     t.add_argument("--angle-tolerance", dest="angle_tolerance", type=_finite, metavar="DEG",
                    default=2.0, help="largest tilt to correct, degrees (default 2)")
+
+    k = sub.add_parser("cam", help="plate cam profile for a translating roller follower from a motion law",
+                       description="Lay out the plate cam that gives coupling NAME's motion law (program or "
+                                   "table, turning leader, sliding follower) to a translating roller "
+                                   "follower: one row per leader degree with the lift, pitch curve, cam "
+                                   "profile (cam-fixed x, y), pressure angle and the profile's radius of "
+                                   "curvature (positive convex; empty where straight). Warns of pressure "
+                                   "angles above 30 deg and of undercutting. Exit 3: not a cam motion law.")
+    k.add_argument("file", metavar="FILE")
+    k.add_argument("--coupling", required=True, metavar="NAME")
+    k.add_argument("--base-radius", dest="base_radius", required=True, type=_finite, metavar="RB",
+                   help="base-circle radius of the cam (length unit)")
+    k.add_argument("--roller", required=True, type=_finite, metavar="RR", help="roller radius; 0 for a knife edge")
+    k.add_argument("--offset", type=_finite, default=0.0, metavar="E",
+                   help="follower line's offset from the cam centre (default 0)")
+    k.add_argument("--format", choices=("csv", "json"), default="csv")
+    k.add_argument("--out", metavar="PATH", help="write the table here instead of stdout")
     return p
 
 
@@ -414,6 +431,14 @@ def cmd_range(mech, args):
 
 COMMANDS = {"check": cmd_check, "pose": cmd_pose, "sweep": cmd_sweep, "range": cmd_range,
             "tidy": cmd_tidy}
+
+
+def cmd_cam(mech, args):
+    from .report import cam_command
+    return cam_command(mech, args, _emit)
+
+
+COMMANDS["cam"] = cmd_cam
 
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

@@ -44,7 +44,7 @@ import math
 
 import numpy as np
 
-__all__ = ["Linear", "Program", "Geneva", "Table", "KINDS", "spline_second_derivatives"]
+__all__ = ["Linear", "Program", "Geneva", "Table", "KINDS", "spline_second_derivatives", "scale_spec"]
 
 #: Segment kinds of a program law.
 KINDS = ("dwell", "constant-velocity", "harmonic", "cycloidal", "polynomial-345", "polynomial-4567")
@@ -249,3 +249,23 @@ class Table:
         y = y + np.where(out, dy * (x - xc), 0.0)
         ddy = np.where(out, 0.0, ddy)
         return y, dy, ddy
+
+
+def scale_spec(spec, leader, follower):
+    """A law's file keys (``law``, ``segments``, ``period``, ``slots``, ``points``, ``offset``)
+    with leader values multiplied by ``leader`` and follower values by ``follower``: the
+    same law in other units (e.g. a host's).  The linear law's ``ratio`` scales by
+    ``follower / leader``."""
+    out = dict(spec)
+    if "segments" in out:
+        out["segments"] = [[s[0] * leader, s[1] * leader, s[2] * follower, s[3] * follower, s[4]]
+                           for s in out["segments"]]
+    if "points" in out:
+        out["points"] = [[p[0] * leader, p[1] * follower] for p in out["points"]]
+    if "period" in out:
+        out["period"] = out["period"] * leader
+    if "offset" in out:
+        out["offset"] = out["offset"] * follower
+    if "ratio" in out:
+        out["ratio"] = out["ratio"] * follower / leader
+    return out

@@ -420,3 +420,45 @@ def range_command(mech, args, emit):
     else:
         emit(range_text(mech, res), None)
     return EXIT_OK
+
+
+# ---------------------------------------------------------------------------------------
+# jointwise cam
+# ---------------------------------------------------------------------------------------
+CAM_COLUMNS = ("leader", "lift", "pitch_x", "pitch_y", "profile_x", "profile_y", "pressure_angle",
+               "curvature_radius")
+
+
+def cam_command(mech, args, emit):
+    """``jointwise cam``: one row per leader angle (see :mod:`jointwise.cam`); returns the
+    exit code (3 when the coupling is not a motion law a plate cam makes)."""
+    from .cam import CamError, cam_profile, cam_warnings
+    if args.out:
+        _check_out(args.out, "--out")
+    try:
+        res = cam_profile(mech, args.coupling, args.base_radius, args.roller, args.offset)
+    except CamError as exc:
+        print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
+        return EXIT_ASSEMBLY
+    au = mech._angle
+    radius = res["profile_radius"]
+    cols = [np.round(res["theta"] / au, 9), res["lift"], res["pitch"][:, 0], res["pitch"][:, 1],
+            res["profile"][:, 0], res["profile"][:, 1], res["pressure_angle"] / au, radius]
+    warnings = cam_warnings(res, au, mech.angle_unit)
+    if args.format == "json":
+        data = {"coupling": args.coupling, "base_radius": args.base_radius, "roller": args.roller,
+                "offset": args.offset, "length_unit": mech.length_unit, "angle_unit": mech.angle_unit,
+                "warnings": warnings}
+        for name, col in zip(CAM_COLUMNS, cols):
+            data[name] = [float(v) if math.isfinite(v) else None for v in col]
+        text = json.dumps(data, indent=1) + "\n"
+    else:
+        out = io.StringIO()
+        out.write(",".join(CAM_COLUMNS) + "\n")
+        for i in range(len(cols[0])):
+            out.write(",".join(_num(c[i]) if math.isfinite(c[i]) else "" for c in cols) + "\n")
+        text = out.getvalue()
+    emit(text, args.out)
+    for w in warnings:
+        print(f"jointwise: warning: {w}", file=sys.stderr)
+    return EXIT_OK

@@ -307,6 +307,11 @@ def from_dict(data, source="<data>"):
         cd = r.table(cd, key)
         r.keys(cd, key, COUPLING_KEYS)
         couplings[cname] = _coupling(r, key, cname, cd, coords, Coupling, deg)
+        c = couplings[cname]
+        owner = next(j for j in joints.values() if c.follower in j.coordinates)
+        if c.law is not None and owner.drive:
+            r.fail(f"{key}.follower", f"{c.follower!r} follows a motion law, so its joint cannot have "
+                                      f"drive = true (drive the leader {c.leader!r})")
 
     measures = {}
     for mname, md in r.table(data.get("measures", {}), "measures").items():

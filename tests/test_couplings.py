@@ -302,3 +302,10 @@ def test_cam_driven_slider_crank_loop():
         assert p.joints["slide"] == pytest.approx(float(law.evaluate(math.radians(v))[0]), abs=1e-9)
         assert slider_position(r, l, e, p.joints["crank"]) == pytest.approx(p.joints["slide"], abs=1e-7)
 
+
+
+def test_a_motion_law_follower_cannot_be_a_drive():
+    data = _cam_file(PROGRAM)
+    data["joints"]["lift"]["drive"] = True
+    with pytest.raises(SpecError, match=r"couplings\.cam\.follower: 'lift' follows a motion law"):
+        jointwise.from_dict(data, source="cam.toml")

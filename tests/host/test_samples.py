@@ -171,8 +171,20 @@ def _twin(mech, sw):
     assert np.allclose(sw.joints["output_bearing"], sw.joints["input_bearing"], atol=1e-6)
 
 
+def _index_table(mech, sw):
+    # six-slot Geneva: 60 deg per crank turn; the wheel dwells over 1/2 + 1/6 of the turn and
+    # peaks at lam / (1 - lam) = 1 times crank speed (lam = sin 30 deg), derived in test_couplings
+    t = sw.joints["table_spindle"]
+    assert t[-1] - t[0] == pytest.approx(120.0, abs=1e-9)
+    r = sw.measures["index_ratio"]
+    assert (np.abs(r) < 1e-12).mean() == pytest.approx(2 / 3, abs=0.02) and r.max() == pytest.approx(1.0, abs=1e-3)
+    assert sw.joints["marking_slide"].min() == pytest.approx(0.0, abs=1e-12)
+    assert sw.joints["marking_slide"].max() == pytest.approx(8.0, abs=1e-12)
+
+
 SHOWS = {"linnet_vise": _jaw_travel, "plover_lift": _foot_travel, "wagtail_rocker": _crank_rocker,
-         "dipper_pump": _slider_crank, "heron_shaft": _hooke, "heron_twin_shaft": _twin}
+         "dipper_pump": _slider_crank, "heron_shaft": _hooke, "heron_twin_shaft": _twin,
+         "kittiwake_index": _index_table}
 
 
 @pytest.mark.parametrize("name", build.SAMPLES)
