@@ -212,7 +212,7 @@ class _Targets:
             for i in members:
                 j = mech.joints[mech._owner[mech.coordinates[i]]]
                 lim = j.limits[mech._local(i)]
-                if lim is None:
+                if lim is None or i in s.law:  # a motion law's follower: checked after solving
                     continue
                 a, b = (lim[0] - s.beta[i]) / s.alpha[i], (lim[1] - s.beta[i]) / s.alpha[i]
                 lo, hi = max(lo, min(a, b)), min(hi, max(a, b))
@@ -280,7 +280,8 @@ class _Targets:
                 i = sl.start + k
                 col = lay.col_of.get(("m", int(s.master[i])))
                 if col is not None:
-                    out[:, col] += s.alpha[i] * (ad @ x)
+                    g = int(s.master[i])
+                    out[:, col] += (s.alpha[i] if i not in s.law else float(s.member_slope(i, q[g]))) * (ad @ x)
         return out
 
     def jacobian(self, q, links, lay):
