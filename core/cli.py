@@ -149,6 +149,11 @@ def build_parser():
     w.add_argument("--format", choices=("csv", "json"), default="csv")
     w.add_argument("--out", metavar="PATH", help="write the table here instead of stdout")
     w.add_argument("--plot", metavar="PNG", help="draw coordinates and measures against the drive (needs the 'plot' extra)")
+    w.add_argument("--speed", metavar="S", help="the drive's rate at the first value, with a unit: rpm, deg/s, "
+                   "rad/s, mm/s, cm/s, m/s, in/s (none: file units per second); adds time, velocities and "
+                   "accelerations")
+    w.add_argument("--acceleration", metavar="A", help="the drive's constant rate of change (e.g. deg/s2, rpm/s, "
+                   "mm/s2; none: file units per second squared)")
 
     r = sub.add_parser("range", help="find the reachable range of a drive from home",
                        description="Find the interval(s) over which NAME can move from home before the "

@@ -45,9 +45,88 @@ def _num(v):
     return repr(v)
 
 
-def header(mech, drive):
+def header(mech, drive, rates=False):
     from .measures import columns
-    return ["step", drive] + list(mech.coordinates) + columns(mech) + ["converged", "singular"]
+    return (["step", drive] + list(mech.coordinates) + columns(mech)
+            + (rate_columns(mech) if rates else []) + ["converged", "singular"])
+
+
+def rate_columns(mech):
+    """Columns of a sweep at a speed: ``time``, ``C.vel, C.acc`` per coordinate, then per
+    measure ``M.vx, M.vy, M.vz, M.ax, M.ay, M.az`` (points) or ``M.vel, M.acc`` (distances,
+    angles; rate measures, speed ratios already, get none)."""
+    out = ["time"]
+    for c in mech.coordinates:
+        out += [f"{c}.vel", f"{c}.acc"]
+    for name, m in mech.measures.items():
+        if m.type == "point":
+            out += [f"{name}.{k}" for k in ("vx", "vy", "vz", "ax", "ay", "az")]
+        elif m.type != "rate":
+            out += [f"{name}.vel", f"{name}.acc"]
+    return out
+
+
+def _rate_values(mech, sw):
+    """The rate columns' arrays, in :func:`rate_columns` order."""
+    cols = [sw.time]
+    for c in mech.coordinates:
+        cols += [sw.velocities[c], sw.accelerations[c]]
+    for name, m in mech.measures.items():
+        if m.type == "point":
+            cols += [sw.measure_velocities[name][:, k] for k in range(3)]
+            cols += [sw.measure_accelerations[name][:, k] for k in range(3)]
+        elif m.type != "rate":
+            cols += [sw.measure_velocities[name], sw.measure_accelerations[name]]
+    return cols
+
+
+def _cell(v):
+    """A rate cell: empty where the step did not converge (or the rate is undefined)."""
+    return repr(float(v)) if math.isfinite(v) else ""
+
+
+#: Speed units accepted by --speed (and per second by --acceleration): size in radians or
+#: millimetres per second.
+SPEED_UNITS = {"rpm": ("angle", 2 * math.pi / 60), "deg/s": ("angle", math.pi / 180), "rad/s": ("angle", 1.0),
+               "mm/s": ("length", 1.0), "cm/s": ("length", 10.0), "m/s": ("length", 1000.0),
+               "in/s": ("length", 25.4)}
+
+
+def parse_rate(text, mech, drive, option, per_second=False):
+    """A --speed (or, ``per_second``, --acceleration) value in the drive's file units per
+    second (per second squared).  ``text``: a number with an optional unit: rpm, deg/s,
+    rad/s, mm/s, cm/s, m/s, in/s (for an acceleration the same with a further /s, e.g.
+    deg/s2, deg/s^2, rpm/s, mm/s2)."""
+    import re
+    from .spec import ANGLE_UNITS, LENGTH_UNITS
+    m = re.fullmatch(r"\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([A-Za-z/^0-9]*)\s*", str(text))
+    if m is None:
+        raise SpecError(f"{option} {text!r}: expected a number with an optional unit "
+                        f"({', '.join(SPEED_UNITS)}{' with a further /s' if per_second else ''})")
+    value, unit = float(m.group(1)), m.group(2)
+    if not math.isfinite(value):
+        raise SpecError(f"{option} {text!r}: the number must be finite")
+    if not unit:
+        return value
+    base = unit
+    if per_second:
+        for tail in ("/s2", "/s^2", "/s/s"):
+            if unit.endswith(tail) and unit != "rpm" + tail:
+                base = unit[:-len(tail)] + "/s"
+                break
+        else:
+            base = "rpm" if unit == "rpm/s" else None
+    if base not in SPEED_UNITS:
+        accepted = [u if not per_second else (u + "/s" if u == "rpm" else u + "2") for u in SPEED_UNITS]
+        raise SpecError(f"{option} {text!r}: unknown unit {unit!r}; one of {', '.join(accepted)}")
+    kind, size = SPEED_UNITS[base]
+    dk = mech.coordinate_kind(drive)
+    if kind != dk:
+        raise SpecError(f"{option} {text!r}: {drive!r} is {'an angle' if dk == 'angle' else 'a length'}, "
+                        f"the unit {unit!r} is for {'turning' if kind == 'angle' else 'sliding'}")
+    if kind == "angle":
+        return value * size / ANGLE_UNITS[mech.angle_unit]
+    return value * size / LENGTH_UNITS[mech.length_unit]
 
 
 def _csv_rows(mech, sw, first=0):
@@ -61,8 +140,11 @@ def _csv_rows(mech, sw, first=0):
             meas.append(v)
     coords = [sw.joints[c] for c in mech.coordinates]
     out = []
+    rates = _rate_values(mech, sw) if getattr(sw, "time", None) is not None else None
     for i in range(len(sw.values)):
         row = [str(first + i), _num(sw.values[i])] + [_num(c[i]) for c in coords] + [_num(m[i]) for m in meas]
+        if rates is not None:  # at a speed: empty where the step did not converge
+            row += [_num(rates[0][i])] + [_cell(r[i]) for r in rates[1:]]
         row += ["1" if sw.converged[i] else "0", "1" if sw.singular[i] else "0"]
         out.append(",".join(row) + "\n")
     return "".join(out)
@@ -70,7 +152,7 @@ def _csv_rows(mech, sw, first=0):
 
 def sweep_table(mech, sw, drive):
     """CSV text of a sweep."""
-    return ",".join(header(mech, drive)) + "\n" + _csv_rows(mech, sw)
+    return ",".join(header(mech, drive, rates=sw.time is not None)) + "\n" + _csv_rows(mech, sw)
 
 
 def _json_rows(sw):
@@ -78,10 +160,51 @@ def _json_rows(sw):
 
 
 def sweep_json(mech, sw, drive):
-    return json.dumps({"drive": drive, "poses": [sw.pose(i) for i in range(len(sw.values))]}) + "\n"
+    data = {"drive": drive, "poses": [sw.pose(i) for i in range(len(sw.values))]}
+    if sw.time is not None:  # at a speed: null where a step did not converge
+        def lst(v):
+            v = np.asarray(v, float)
+            if v.ndim > 1:
+                return [[_json_num(x) for x in row] for row in v]
+            return [_json_num(x) for x in v]
+        data["time"] = lst(sw.time)
+        for key in ("velocities", "accelerations", "measure_velocities", "measure_accelerations"):
+            data[key] = {k: lst(v) for k, v in getattr(sw, key).items()}
+    return json.dumps(data) + "\n"
 
 
-def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None):
+def _json_num(v):
+    return float(v) if math.isfinite(v) else None
+
+
+#: Sweep attributes of a run at a drive speed (besides ``time``).
+RATE_KEYS = ("velocities", "accelerations", "measure_velocities", "measure_accelerations")
+
+
+def _gather_rates(acc, sw):
+    """Collect a chunk's time and rates (lists of JSON numbers, None where not converged)."""
+    acc["time"].setdefault("", []).extend(_json_list(sw.time))
+    for key in RATE_KEYS:
+        for k, v in getattr(sw, key).items():
+            acc[key].setdefault(k, []).extend(_json_list(v))
+
+
+def _json_list(v):
+    v = np.asarray(v, float)
+    if v.ndim > 1:
+        return [[_json_num(x) for x in row] for row in v]
+    return [_json_num(x) for x in v]
+
+
+def _rates_json(acc):
+    """``{"time": [...], "velocities": {...}, ...}`` as JSON text."""
+    data = {"time": acc["time"].get("", [])}
+    for key in RATE_KEYS:
+        data[key] = acc[key]
+    return json.dumps(data)
+
+
+def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None, timing=None):
     """Yield ``(first_index, Sweep)`` for the ``steps`` samples of ``np.linspace(start, end,
     steps)``, ``chunk`` at a time, each chunk continuing from the last solved state of the
     one before (:meth:`Mechanism.sweep` with ``start``).  Only one chunk is held at a time.
@@ -97,7 +220,14 @@ def sweep_chunks(mech, drive, start, end, steps, held=None, chunk=None):
         vals = idx * step + start if step != 0 else idx / div * delta + start
         if k1 == steps:
             vals[-1] = end
-        sw = mech.sweep(drive, vals, held, start=state)
+        if timing:  # the drive's time and rate where this chunk starts; rates from there on
+            from .rates import drive_timing
+            t, rate = drive_timing(np.array([start, vals[0]]), timing["speed"], timing.get("acceleration", 0.0))
+            sw = mech.sweep(drive, vals, held, start=state, speed=float(rate[1]),
+                            acceleration=timing.get("acceleration", 0.0))
+            sw.time = sw.time + t[1]
+        else:
+            sw = mech.sweep(drive, vals, held, start=state)
         state = sw.q[-1]  # the last solved state (a failed last row repeats the last good one)
         yield k0, sw
 
@@ -120,7 +250,9 @@ class _PlotData:
             values=sw.values[keep], converged=sw.converged[keep], singular=sw.singular[keep],
             joints={k: v[keep] for k, v in sw.joints.items()},
             measures={k: v[keep] for k, v in sw.measures.items()},
-            advantage={k: np.asarray(v)[keep] for k, v in sw.advantage.items()}))
+            advantage={k: np.asarray(v)[keep] for k, v in sw.advantage.items()},
+            time=None if sw.time is None else sw.time[keep],
+            **{key: {k: v[keep] for k, v in getattr(sw, key).items()} for key in RATE_KEYS}))
 
     def sweep(self):
         p = self.parts
@@ -130,7 +262,10 @@ class _PlotData:
             singular=np.concatenate([x.singular for x in p]),
             joints={k: np.concatenate([x.joints[k] for x in p]) for k in p[0].joints},
             measures={k: np.concatenate([x.measures[k] for x in p]) for k in p[0].measures},
-            advantage={k: np.concatenate([x.advantage[k] for x in p]) for k in p[0].advantage})
+            advantage={k: np.concatenate([x.advantage[k] for x in p]) for k in p[0].advantage},
+            time=None if p[0].time is None else np.concatenate([x.time for x in p]),
+            **{key: {k: np.concatenate([getattr(x, key)[k] for x in p]) for k in getattr(p[0], key)}
+               for key in RATE_KEYS})
 
 
 class Outputs:
@@ -226,7 +361,8 @@ def plot_sweep(mech, sw, drive, path):
     du = mech.angle_unit if mech.coordinate_kind(drive) == "angle" else mech.length_unit
     rates = [n for n, m in mech.measures.items() if m.type == "rate"]
     others = [n for n in mech.measures if n not in rates]
-    panels = 1 + (1 if others else 0) + (1 if rates else 0)
+    moving = sw.time is not None
+    panels = 1 + (1 if others else 0) + (1 if rates else 0) + (2 if moving else 0)
     fig, axes = plt.subplots(panels, 1, figsize=(8, 3.2 * panels), sharex=True, squeeze=False)
     axes = axes[:, 0]
 
@@ -260,6 +396,7 @@ def plot_sweep(mech, sw, drive, path):
         ax.set_ylabel("measures")
     if rates:
         ax = axes[k]
+        k += 1
         twin = ax.twinx()
         lo_hi = []
         for n in rates:
@@ -285,6 +422,23 @@ def plot_sweep(mech, sw, drive, path):
             ax.plot([], [], ls="--", color="0.45", label=ll)
         shade(ax)
         ax.set_ylabel("rates")
+    if moving:  # velocity and acceleration panels, units on every line
+        for ax, key, mkey, per in ((axes[k], "velocities", "measure_velocities", "/s"),
+                                   (axes[k + 1], "accelerations", "measure_accelerations", "/s²")):
+            for c in mech.coordinates:
+                unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
+                ax.plot(x, getattr(sw, key)[c], label=f"{c} [{unit}{per}]")
+            for n, v in getattr(sw, mkey).items():
+                mt = mech.measures[n].type
+                unit = "deg" if mt == "angle" else mech.length_unit
+                if v.ndim > 1:
+                    for j, a in enumerate("xyz"):
+                        ax.plot(x, v[:, j], ls=":", label=f"{n}.{a} [{unit}{per}]")
+                else:
+                    ax.plot(x, v, ls=":", label=f"{n} [{unit}{per}]")
+            shade(ax)
+            ax.set_ylabel(f"{key} [unit{per}]")
+        axes[-1].set_xlabel(f"{drive} [{du}]  (time {sw.time[0]:g} to {sw.time[-1]:.4g} s)")
     for ax in axes:
         h, lab = ax.get_legend_handles_labels()
         seen = {}
@@ -293,7 +447,8 @@ def plot_sweep(mech, sw, drive, path):
         if seen:
             ax.legend(seen.values(), seen.keys(), fontsize="small", loc="best")
         ax.grid(True, alpha=0.3)
-    axes[-1].set_xlabel(f"{drive} [{du}]")
+    if not moving:
+        axes[-1].set_xlabel(f"{drive} [{du}]")
     fig.suptitle(f"{mech.name or mech.source}: sweep of {drive}")
     fig.tight_layout()
     tmp = f"{path}.tmp-{os.getpid()}"
@@ -352,6 +507,20 @@ def sweep_command(mech, args, emit=None):
             print(f"jointwise: {PLOT_INSTALL}", file=sys.stderr)
             return EXIT_USAGE
     mech.check_limits(mech._held_from(held))
+    speed = getattr(args, "speed", None)
+    accel = getattr(args, "acceleration", None)
+    if accel is not None and speed is None:
+        raise SpecError("--acceleration needs --speed (the drive's rate at the first value)")
+    timing = None
+    if speed is not None:
+        from .rates import drive_timing
+        timing = {"speed": parse_rate(speed, mech, drive, "--speed"),
+                  "acceleration": parse_rate(accel, mech, drive, "--acceleration", True) if accel is not None else 0.0}
+        try:  # before anything is solved
+            drive_timing(np.array([args.start, args.end]), timing["speed"], timing["acceleration"])
+        except JointwiseError as exc:
+            raise SpecError(f"--speed: {exc}") from None
+    rates_json = {key: {} for key in ("time",) + RATE_KEYS} if timing else None
     steps = args.steps
     with Outputs() as outs:
         out_tmp = outs.reserve(args.out, "--out") if args.out else None
@@ -364,10 +533,12 @@ def sweep_command(mech, args, emit=None):
             if args.format == "json":
                 fh.write(json.dumps({"drive": drive, "poses": []})[:-2])
             else:
-                fh.write(",".join(header(mech, drive)) + "\n")
-            for k0, sw in sweep_chunks(mech, drive, args.start, args.end, steps, held):
+                fh.write(",".join(header(mech, drive, rates=bool(timing))) + "\n")
+            for k0, sw in sweep_chunks(mech, drive, args.start, args.end, steps, held, timing=timing):
                 if args.format == "json":
                     fh.write((", " if k0 else "") + _json_rows(sw))
+                    if rates_json is not None:
+                        _gather_rates(rates_json, sw)
                 else:
                     fh.write(_csv_rows(mech, sw, k0))
                 nb = np.flatnonzero(~sw.converged)
@@ -379,7 +550,7 @@ def sweep_command(mech, args, emit=None):
                     plot.add(k0, sw)
                 del sw
             if args.format == "json":
-                fh.write("]}\n")
+                fh.write("]" + ("" if rates_json is None else ", " + _rates_json(rates_json)[1:-1]) + "}\n")
             fh.flush()
         finally:
             if fh is not sys.stdout:
@@ -433,8 +604,6 @@ def cam_command(mech, args, emit):
     """``jointwise cam``: one row per leader angle (see :mod:`jointwise.cam`); returns the
     exit code (3 when the coupling is not a motion law a plate cam makes)."""
     from .cam import CamError, cam_profile, cam_warnings
-    if args.out:
-        _check_out(args.out, "--out")
     try:
         res = cam_profile(mech, args.coupling, args.base_radius, args.roller, args.offset)
     except CamError as exc:

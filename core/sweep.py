@@ -97,6 +97,15 @@ class Sweep:
     q: np.ndarray = field(repr=False)
     reasons: dict = field(default_factory=dict)
     advantage: dict = field(default_factory=dict)
+    #: With a drive speed (``sweep(..., speed=...)``, see :mod:`jointwise.rates`): time (s)
+    #: of each step; coordinate -> rate and acceleration (file units per s, per s^2);
+    #: measure -> the same (points (N, 3), angles in degrees; rate measures left out).
+    #: Rows that did not converge hold NaN.  None / empty without a speed.
+    time: np.ndarray | None = None
+    velocities: dict = field(default_factory=dict)
+    accelerations: dict = field(default_factory=dict)
+    measure_velocities: dict = field(default_factory=dict)
+    measure_accelerations: dict = field(default_factory=dict)
 
     def __len__(self):
         return len(self.values)
@@ -1188,17 +1197,24 @@ def _as_rows(mech, table, N=None):
     return explicit, (N or 0)
 
 
-def sweep(mech, drive, values, held=None, *, start=None):
+def sweep(mech, drive, values, held=None, *, start=None, speed=None, acceleration=0.0):
     """Drive coordinate ``drive`` through ``values`` (file units), on the start branch.
 
     The file's ``drive = true`` flags are released for the run; ``held`` (coordinate ->
     value, file units) holds other coordinates.  ``start`` (a Pose or state) defaults to
-    home.  Returns a :class:`Sweep`; never NaN, failed steps are flagged.
+    home.  Returns a :class:`Sweep`; never NaN, failed steps are flagged.  With ``speed``
+    (the drive's rate at the first value, file units per second) and ``acceleration``
+    (its constant rate of change), the result also carries ``time``, ``velocities``,
+    ``accelerations``, ``measure_velocities`` and ``measure_accelerations``
+    (:func:`jointwise.rates.attach`; NaN on rows that did not converge).
     """
     values = np.atleast_1d(np.asarray(values, dtype=float))
     if values.ndim != 1 or len(values) == 0:
         raise JointwiseError("values must be a non-empty one-dimensional sequence")
     mech._require(drive)
+    if speed is not None:  # check the timing before solving
+        from .rates import drive_timing
+        drive_timing(values, speed, acceleration)
     table = {drive: values}
     for k, v in (held or {}).items():
         if k == drive:
@@ -1210,6 +1226,9 @@ def sweep(mech, drive, values, held=None, *, start=None):
     sw = _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m)
     for k, v in table.items():  # held coordinates read back exactly as asked where the step closed
         sw.joints[k] = np.where(conv, v, sw.joints[k])
+    if speed is not None:
+        from .rates import attach
+        attach(mech, sw, drive, values, speed, acceleration, held_m)
     return sw
 
 
