@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import bpy
 
-from . import clearance, live, operators, panels, properties
+from . import cam, clearance, live, operators, panels, properties
 
-CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + clearance.CLASSES
+CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + clearance.CLASSES + cam.CLASSES
 
 
 def register():

@@ -140,7 +140,7 @@ ADDON_LAYERS = [
     {"live", "bake", "measures"},
     {"trace", "files"},
     {"operators"},
-    {"panels", "clearance"},
+    {"panels", "clearance", "cam"},
     {"__init__"},
 ]
 

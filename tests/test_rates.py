@@ -280,3 +280,23 @@ def test_cli_unreachable_rows_stay_empty(tmp_path):
     assert bad and good
     assert all(row["rocker.vel"] == "" and row["rocker.acc"] == "" for row in bad)
     assert all(row["rocker.vel"] != "" and row["time"] != "" for row in good)
+
+
+def test_spatial_rssr_rocker_against_central_differences():
+    """Ball joints (spherical, idle spin of the rod): the rocker's rate and acceleration are
+    determined by the geometry; fourth-order central differences of positions solved by the
+    core (step 0.05 deg, truncation about 1e-7) agree.  The balls' own coordinates are not
+    compared: the rod's spin about its axis is not determined by the loop."""
+    from mechanisms import rssr
+    m = jointwise.from_dict(rssr())
+    d = m.driven[0]
+    v = np.linspace(0, 40, 21) + math.degrees(m.home[m._index[d]])
+    s = m.sweep(d, v, speed=10.0, acceleration=2.0)
+    h = 0.05
+    pos = {k: m.sweep(d, v + k * h).joints["rocker"] for k in (-2, -1, 1, 2)}
+    d1 = (-pos[2] + 8 * pos[1] - 8 * pos[-1] + pos[-2]) / (12 * h)      # d rocker / d crank
+    d2 = (-pos[2] + 16 * pos[1] - 30 * s.joints["rocker"] + 16 * pos[-1] - pos[-2]) / (12 * h * h)
+    w = 10.0 + 2.0 * s.time                                             # deg/s
+    assert np.allclose(s.velocities["rocker"], d1 * w, atol=1e-6)
+    # deg/s^2: d2 [deg/deg^2] w^2 + d1 * crank acceleration
+    assert np.allclose(s.accelerations["rocker"], d2 * w ** 2 + d1 * 2.0, atol=1e-5)
