@@ -48,7 +48,7 @@ def test_cam_profile_curve_turns_with_the_shaft(scene):
         want = np.c_[c * ref[:, 0] - s * ref[:, 1], s * ref[:, 0] + c * ref[:, 1], np.full(len(ref), 20.0)]
         assert np.allclose(got, want, atol=2e-3), frame
         # the roller (radius 5, on x = 0 at y = 27 + lift) touches the outline
-        lift = float(jw.joints["marking_slide"].value)
+        lift = float(mech.couplings["marking_cam"].law.evaluate(theta)[0])  # the slide is baked, not live
         centre = np.array([0.0, 27.0 + lift, 20.0])
         assert np.linalg.norm(got - centre, axis=1).min() == pytest.approx(5.0, abs=0.05), frame
     # again: replaced, not doubled
