@@ -227,7 +227,8 @@ class _Targets:
                 self.paths[link] = [(jn, sg) for _, jn, sg in mech._path_up(link)]
             if kind == "link":
                 pts = np.array([j.point for j in mech.joints.values() if link in (j.parent, j.child)])
-                self.refs[name] = pts
+                self.refs[name] = (pts, pts.mean(axis=0))
+        self._turn = (None, {})  # (links of the last errors() call, link target -> its turn error)
 
     def layout(self, fixed):
         key = frozenset(fixed) | self.held
@@ -241,6 +242,8 @@ class _Targets:
         """Target error vector (dimensionless) and each target's distance left (length unit)."""
         e, dist = [], {}
         L = self.L
+        turns = {}
+        self._turn = (links, turns)
         for name, kind, data in self.parsed:
             if kind == "point":
                 link, at, goal = data
@@ -252,9 +255,8 @@ class _Targets:
             else:
                 link, goal = data
                 D = links[link]
-                pts = self.refs[name]
-                c0 = pts.mean(axis=0)
-                w = spatial.log3(goal[:3, :3] @ D[:3, :3].T)
+                pts, c0 = self.refs[name]
+                w = turns[name] = spatial.log3(goal[:3, :3] @ D[:3, :3].T)
                 dp = (goal[:3, :3] @ c0 + goal[:3, 3]) - (D[:3, :3] @ c0 + D[:3, 3])
                 e.append(w)
                 e.append(dp / L)
@@ -298,8 +300,10 @@ class _Targets:
                 p = D[:3, :3] @ data[1] + D[:3, 3]
                 rows.append((tw[3:] - spatial.hat(p) @ tw[:3]) / self.L)
             else:
-                c = D[:3, :3] @ self.refs[name].mean(axis=0) + D[:3, 3]
-                w = spatial.log3(data[1][:3, :3] @ D[:3, :3].T)
+                c = D[:3, :3] @ self.refs[name][1] + D[:3, 3]
+                w = self._turn[1].get(name) if self._turn[0] is links else None  # errors() of these links
+                if w is None:
+                    w = spatial.log3(data[1][:3, :3] @ D[:3, :3].T)
                 rows.append(_right_jacobian_inverse(w) @ tw[:3])
                 rows.append((tw[3:] - spatial.hat(c) @ tw[:3]) / self.L)
         return np.vstack(rows) * lay.cs[None, :]
