@@ -81,7 +81,8 @@ def solve_motion(scene, frames, ramp=None):
 # -- the parts --------------------------------------------------------------------------------
 
 class Body:
-    """One link object's mesh, placed where it is now, with its BVH tree."""
+    """One link object's mesh, placed where it is now, with its BVH tree and its groups
+    of nearby triangles (each bounded by a sphere)."""
 
     def __init__(self, link, obj, verts, tris, rel):
         self.link = link
@@ -90,14 +91,19 @@ class Body:
         self.verts = verts                      # (V, 3) float64, world now
         self.tris = tris                        # (T, 3)
         self.rel = rel                          # (N, 4, 4): world at frame = rel @ world now
+        self.rel_inv = np.linalg.inv(rel)
         self.edges, _ = px.triangle_edges(tris)
         self.closed = px.is_closed(tris)
         self.centre, self.radius = px.bounding_sphere(verts)
         lengths = np.linalg.norm(verts[self.edges[:, 0]] - verts[self.edges[:, 1]], axis=1)
         self.half_edge = 0.5 * lengths
         self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
-        self.group_centres, self.group_radii = px.sphere_clusters(verts, tris)
-        self.tree = BVHTree.FromPolygons(verts.tolist(), tris.tolist())
+        (self.group_centres, self.group_radii, self.tri_group,
+         self.vert_group) = px.sphere_clusters(verts, tris)
+        self.group_tris = [np.flatnonzero(self.tri_group == k) for k in range(len(self.group_radii))]
+        self.group_tri_lists = [tris[g].tolist() for g in self.group_tris]
+        self.verts_list = verts.tolist()
+        self.tree = BVHTree.FromPolygons(self.verts_list, tris.tolist())
 
 
 def mesh_arrays(obj, depsgraph):
@@ -145,31 +151,27 @@ def _inside(tree, point, size):
     return n % 2 == 1
 
 
-def _vertex_distances(points, body, limit):
+def _vertex_distances(points, body, limit, candidates):
     """Distance of each of ``points`` (in ``body``'s frame now) to ``body``'s surface
-    where it is below ``limit``, else inf; with the nearest surface points. Recomputed in
-    double precision on the triangle the tree returns (Ericson 2005, §5.1.5)."""
+    where it is below ``limit``, else inf; with the nearest surface points. Only the
+    ``candidates`` (indices) can be that near. Recomputed in double precision on the
+    triangle the tree returns (Ericson 2005, §5.1.5)."""
     n = len(points)
     dist = np.full(n, math.inf)
     near = np.zeros((n, 3))
-    keep = np.flatnonzero(px.point_gaps(points, body.group_centres, body.group_radii) < limit)
+    if not len(candidates):
+        return dist, near
+    keep = candidates[px.point_gaps(points[candidates], body.group_centres, body.group_radii) < limit]
     if not len(keep):
         return dist, near
     find = body.tree.find_nearest
+    lim = limit * (1 + 1e-6) + 1e-9
     ks, ids = [], []
-    if math.isfinite(limit):
-        lim = limit * (1 + 1e-6) + 1e-9
-        for k, p in zip(keep.tolist(), points[keep].tolist()):
-            idx = find(p, lim)[2]
-            if idx is not None:
-                ks.append(k)
-                ids.append(idx)
-    else:
-        for k, p in zip(keep.tolist(), points[keep].tolist()):
-            idx = find(p)[2]
-            if idx is not None:
-                ks.append(k)
-                ids.append(idx)
+    for k, p in zip(keep.tolist(), points[keep].tolist()):
+        idx = find(p, lim)[2]
+        if idx is not None:
+            ks.append(k)
+            ids.append(idx)
     if ks:
         ks = np.asarray(ks)
         t = body.tris[np.asarray(ids)]
@@ -195,10 +197,10 @@ def _edge_edge(a_pts, a_edges, b, limit):
         return None
     p, q = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
     mid = 0.5 * (p + q)
-    reach = limit + 0.5 * np.linalg.norm(q - p, axis=1)
+    half = 0.5 * np.linalg.norm(q - p, axis=1)
     rng = b.tree.find_nearest_range
     ia, tb = [], []
-    for k, (m, r) in enumerate(zip(mid.tolist(), reach.tolist())):
+    for k, (m, r) in enumerate(zip(mid.tolist(), (limit + half).tolist())):
         hits = rng(m, r * (1 + 1e-6) + 1e-9)
         if hits:
             ia.extend([k] * len(hits))
@@ -207,11 +209,9 @@ def _edge_edge(a_pts, a_edges, b, limit):
         return None
     ia = np.repeat(np.asarray(ia), 3)
     tri = b.tris[np.asarray(tb)]
-    e0 = tri.reshape(-1)
-    e1 = tri[:, [1, 2, 0]].reshape(-1)
-    pb, qb = b.verts[e0], b.verts[e1]
+    pb, qb = b.verts[tri.reshape(-1)], b.verts[tri[:, [1, 2, 0]].reshape(-1)]
     # midpoints farther apart than the limit plus both half-lengths cannot be closer
-    gap = (np.linalg.norm(mid[ia] - 0.5 * (pb + qb), axis=1) - (reach[ia] - limit)
+    gap = (np.linalg.norm(mid[ia] - 0.5 * (pb + qb), axis=1) - half[ia]
            - 0.5 * np.linalg.norm(qb - pb, axis=1))
     keep = gap < limit
     if not keep.any():
@@ -239,28 +239,29 @@ class Timer:
         self.solve = self.trees = self.queries = 0.0
 
 
-def _upper_bound(a, b, va):
-    """A distance between a point of A and a point of B (so at least the smallest one):
-    the vertex of A nearest to B's groups, to its nearest point on B."""
-    k = int(np.argmin(px.point_gaps(va, b.group_centres, b.group_radii)))
-    idx = b.tree.find_nearest(va[k].tolist())[2]
-    t = b.tris[idx]
-    q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
-    return float(np.linalg.norm(va[k] - q))
-
-
-def _distance(a, b, va, vb, limit):
+def _distance(a, b, va, vb, gaps, limit):
     """Distance between ``a`` (points ``va``, in b's frame) and ``b`` (``vb``: b's points
     in a's frame) when below ``limit``: (d, point on A, point on B, frame) with the
-    frame 'b' or 'a' the points are in, else None.
+    frame 'b' or 'a' the points are in, else None. ``gaps``: the groups' gaps (Ka, Kb)
+    at this frame; ``limit`` may be inf.
 
-    Vertex-to-face both ways (vertex distances taken up to ``limit`` + the longest edge),
-    then edge to edge for the edges of A that can still be closer than that."""
+    Vertex-to-face both ways, for vertices whose group can be that near, then edge to
+    edge for the edges of A that can still be closer: an edge closer than ``d`` has both
+    ends within ``d`` + its length, so the vertex distances of A are taken up to the
+    limit + A's longest edge."""
+    ga = gaps.min(axis=1)
+    gb = gaps.min(axis=0)
     if not math.isfinite(limit):
-        limit = _upper_bound(a, b, va) * (1 + 1e-9) + 1e-12
-    reach = limit + max(a.longest_edge, b.longest_edge)
-    da, qa = _vertex_distances(va, b, reach)
-    db, qb = _vertex_distances(vb, a, reach)
+        # a distance between two points of the meshes bounds the smallest from above:
+        # the vertex of A in the nearest group, to its nearest point of B
+        k = int(a.tris[a.group_tris[int(np.argmin(ga))][0], 0])
+        idx = b.tree.find_nearest(va[k].tolist())[2]
+        t = b.tris[idx]
+        q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
+        limit = float(np.linalg.norm(va[k] - q)) * (1 + 1e-9) + 1e-12
+    reach = limit + a.longest_edge
+    da, qa = _vertex_distances(va, b, reach, np.flatnonzero(ga[a.vert_group] < reach))
+    db, qb = _vertex_distances(vb, a, limit, np.flatnonzero(gb[b.vert_group] < limit))
     found = None
     ka, kb = int(np.argmin(da)), int(np.argmin(db))
     if da[ka] < limit and da[ka] <= db[kb]:
@@ -268,8 +269,6 @@ def _distance(a, b, va, vb, limit):
     elif db[kb] < limit:
         found = (float(db[kb]), qb[kb], vb[kb], "a")
     lim = found[0] if found else limit
-    # an edge closer than ``lim`` has both ends within ``lim`` + its length (known: the
-    # vertex distances above reach that far)
     length = 2 * a.half_edge
     near = (da[a.edges[:, 0]] < lim + length) & (da[a.edges[:, 1]] < lim + length)
     r = _edge_edge(va, a.edges[near], b, lim)
@@ -278,27 +277,52 @@ def _distance(a, b, va, vb, limit):
     return found
 
 
+def _overlap(a, b, va, vb0, gaps, size):
+    """Do ``a`` (points ``va`` in b's frame) and ``b`` overlap? Only triangles in groups
+    whose spheres meet can cross, so trees of those alone are compared; for closed
+    surfaces, one wholly inside the other counts too (``vb0``: b's first vertex in a's
+    frame). Returns (touching, (point on A, point on B) in b's frame or None, seconds
+    spent building trees)."""
+    t0 = time.perf_counter()
+    meet = gaps <= 0.0
+    ka, kb = np.flatnonzero(meet.any(axis=1)).tolist(), np.flatnonzero(meet.any(axis=0)).tolist()
+    sub_a = np.concatenate([a.group_tris[k] for k in ka])
+    sub_b = np.concatenate([b.group_tris[k] for k in kb])
+    tree_a = BVHTree.FromPolygons(va.tolist(), [t for k in ka for t in a.group_tri_lists[k]])
+    tree_b = BVHTree.FromPolygons(b.verts_list, [t for k in kb for t in b.group_tri_lists[k]])
+    built = time.perf_counter() - t0
+    pairs = tree_a.overlap(tree_b)
+    if pairs:
+        ia, ib = pairs[0]
+        return True, (va[a.tris[sub_a[ia]]].mean(axis=0), b.verts[b.tris[sub_b[ib]]].mean(axis=0)), built
+    if a.closed and b.closed and (_inside(b.tree, va[0], size) or _inside(a.tree, vb0, size)):
+        return True, (va[0], va[0]), built
+    return False, None, built
+
+
 def check_pair(a, b, frames, timer):
     """Overlap at every frame and smallest distance over the frames for bodies ``a``, ``b``.
 
     Frames are visited lowest lower bound first. The bound of a frame starts as the
-    bounding spheres' gap and is raised by every frame ``g`` whose distance ``d_g`` is
-    known: between two frames no point of A moves relative to B by more than
-    ``|c(f) - c(g)| + |R(f) - R(g)|_F r_A`` (centre and rotation of A in B's frame), and
-    distance changes no faster than the points move. Frames whose bound is above zero
-    cannot touch; frames whose bound is above the best distance cannot hold the
-    minimum. So every frame is decided without querying most of them."""
+    smallest gap between the two meshes' groups of triangles (their bounding spheres)
+    and is raised by every frame ``g`` whose distance ``d_g`` is known: between two
+    frames no point of A moves relative to B by more than ``|c(f) - c(g)| + |R(f) -
+    R(g)|_F r_A`` (centre and rotation of A in B's frame; the same the other way round,
+    the smaller counts), and the distance changes no faster than the points move. Frames
+    whose bound is above zero cannot touch; frames whose bound is above the best
+    distance cannot hold the minimum; once the pair touches, only frames that may touch
+    are visited. So every frame is decided without querying most of them."""
     res = PairResult(a, b)
-    t = np.linalg.inv(b.rel) @ a.rel                       # a (world now) -> b's frame now
-    tinv = np.linalg.inv(t)                                # b (world now) -> a's frame now
+    t = b.rel_inv @ a.rel                                   # a (world now) -> b's frame now
+    tinv = a.rel_inv @ b.rel                                # b (world now) -> a's frame now
     rot = t[:, :3, :3]
     ca = np.einsum("nij,j->ni", rot, a.centre) + t[:, :3, 3]
     cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
     groups = np.einsum("nij,kj->nki", rot, a.group_centres) + t[:, None, :3, 3]
-    low = px.cluster_gaps(groups, a.group_radii, b.group_centres, b.group_radii)
+    gaps = px.group_gaps(groups, a.group_radii, b.group_centres, b.group_radii)   # (N, Ka, Kb)
+    low = gaps.min(axis=(1, 2))
     n = len(frames)
     undecided = np.ones(n, dtype=bool)
-    tris_a = a.tris.tolist()
     size = max(a.radius, b.radius)
     best = math.inf
     while True:
@@ -308,35 +332,28 @@ def check_pair(a, b, frames, timer):
         i = int(np.argmin(np.where(need, low, np.inf)))
         undecided[i] = False
         res.visited += 1
+        t0 = time.perf_counter()
         va = px.transform_points(t[i], a.verts)              # a in b's frame
         if low[i] <= 0.0:
-            t0 = time.perf_counter()
-            tree = BVHTree.FromPolygons(va.tolist(), tris_a)
-            t1 = time.perf_counter()
-            pairs = tree.overlap(b.tree)
-            touch = bool(pairs)
-            if not touch and a.closed and b.closed:
-                touch = _inside(b.tree, va[0], size) or _inside(tree, b.verts[0], size)
-            timer.trees += t1 - t0
-            timer.queries += time.perf_counter() - t1
+            vb0 = px.transform_points(tinv[i], b.verts[:1])[0]
+            touch, pts, built = _overlap(a, b, va, vb0, gaps[i], size)
+            timer.trees += built
             if touch:
                 res.contact.append(int(frames[i]))
                 if best > 0.0 or int(frames[i]) < res.min_frame:
                     best = 0.0
                     res.min_gap, res.min_frame = 0.0, int(frames[i])
-                    if pairs:
-                        ia, ib = pairs[0]
-                        pa_, pb_ = va[a.tris[ia]].mean(axis=0), b.verts[b.tris[ib]].mean(axis=0)
-                    else:
-                        pa_ = pb_ = va[0]
-                    res.point_a = tuple(px.transform_points(b.rel[i], pa_[None])[0])
-                    res.point_b = tuple(px.transform_points(b.rel[i], pb_[None])[0])
+                    res.point_a = tuple(px.transform_points(b.rel[i], pts[0][None])[0])
+                    res.point_b = tuple(px.transform_points(b.rel[i], pts[1][None])[0])
+                timer.queries += time.perf_counter() - t0 - built
                 continue
-        t0 = time.perf_counter()
+            if best == 0.0:  # touching elsewhere: the smallest gap is known
+                timer.queries += time.perf_counter() - t0 - built
+                continue
+            timer.queries -= built
         vb = px.transform_points(tinv[i], b.verts)           # b in a's frame
-        limit = best if best > 0.0 else math.inf
-        found = _distance(a, b, va, vb, limit)
-        d = found[0] if found else limit
+        found = _distance(a, b, va, vb, gaps[i], best)
+        d = found[0] if found else best
         if found is not None and found[0] < best:
             best = found[0]
             rel = b.rel[i] if found[3] == "b" else a.rel[i]

@@ -209,9 +209,12 @@ def write_csv_atomic(path, header, rows):
 def sphere_clusters(verts, tris, leaf=None, max_leaves=16):
     """Split a triangle mesh into up to ``max_leaves`` groups of nearby triangles (median
     cuts of the triangles' centroids along the widest axis) and bound each group by a
-    sphere: centres ``(K, 3)`` and radii ``(K,)``. Every triangle lies in its group's
-    sphere, so ``min |c_i - c_j| - r_i - r_j`` over two meshes' groups is a lower bound
-    of the distance between the meshes (negative: they may touch)."""
+    sphere. Every triangle lies in its group's sphere, so ``min |c_i - c_j| - r_i - r_j``
+    over two meshes' groups is a lower bound of the distance between the meshes
+    (negative: they may touch).
+
+    Returns ``(centres (K, 3), radii (K,), group of each triangle (T,), a group holding
+    each vertex (V,))`` (vertices used by no triangle get group 0)."""
     verts = np.asarray(verts, dtype=float)
     tris = np.asarray(tris, dtype=np.int64).reshape(-1, 3)
     cent = verts[tris].mean(axis=1)
@@ -228,24 +231,28 @@ def sphere_clusters(verts, tris, leaf=None, max_leaves=16):
         half = len(order) // 2
         groups += [order[:half], order[half:]]
     centres, radii = [], []
-    for g in groups:
-        pts = verts[np.unique(tris[g])]
-        c, r = bounding_sphere(pts)
+    tri_group = np.zeros(len(tris), dtype=np.int64)
+    vert_group = np.zeros(len(verts), dtype=np.int64)
+    for k, g in enumerate(groups):
+        used = np.unique(tris[g])
+        c, r = bounding_sphere(verts[used])
         centres.append(c)
         radii.append(r)
-    return np.array(centres), np.array(radii)
+        tri_group[g] = k
+        vert_group[used] = k
+    return np.array(centres), np.array(radii), tri_group, vert_group
 
 
-def cluster_gaps(ca, ra, cb, rb):
-    """Lower bound of the distance between two meshes from their groups' spheres:
-    ``ca`` ``(..., Ka, 3)`` (may carry a leading stack of placements), ``cb`` ``(Kb, 3)``;
-    returns ``(...)``."""
+def group_gaps(ca, ra, cb, rb):
+    """Gaps between the groups' spheres of two meshes, ``(..., Ka, Kb)``: ``ca``
+    ``(..., Ka, 3)`` (may carry a leading stack of placements), ``cb`` ``(Kb, 3)``.
+    Their minimum is a lower bound of the distance between the meshes."""
     d = np.linalg.norm(np.asarray(ca)[..., :, None, :] - cb, axis=-1)
-    return (d - ra[:, None] - rb[None, :]).min(axis=(-2, -1))
+    return d - ra[:, None] - rb[None, :]
 
 
 def point_gaps(points, centres, radii):
     """Lower bound of each point's distance to a mesh from its groups' spheres, ``(N,)``."""
-    d = np.linalg.norm(np.asarray(points)[:, None, :] - centres[None], axis=2) - radii[None]
-    return d.min(axis=1)
-
+    p = np.asarray(points, dtype=float)
+    sq = (p * p).sum(axis=1)[:, None] - 2.0 * p @ centres.T + (centres * centres).sum(axis=1)[None]
+    return (np.sqrt(np.maximum(sq, 0.0)) - radii[None]).min(axis=1)

@@ -150,22 +150,21 @@ def test_sphere_clusters_bound_every_triangle_and_the_distance():
     ta = rng.integers(0, 300, size=(500, 3))
     vb = rng.normal(size=(200, 3)) + [6.0, 0, 0]
     tb = rng.integers(0, 200, size=(300, 3))
-    ca, ra = px.sphere_clusters(va, ta)
-    cb, rb = px.sphere_clusters(vb, tb)
+    ca, ra, tga, vga = px.sphere_clusters(va, ta)
+    cb, rb, tgb, vgb = px.sphere_clusters(vb, tb)
     assert len(ca) <= 16 and len(cb) <= 16
-    # every vertex used by a triangle lies in some group's sphere
+    # every triangle lies in its own group's sphere, every used vertex in the group named
+    for t, g in zip(ta, tga):
+        assert (np.linalg.norm(va[t] - ca[g], axis=1) <= ra[g] + 1e-12).all()
     used = np.unique(ta)
-    inside = np.linalg.norm(va[used][:, None] - ca[None], axis=2) <= ra[None] + 1e-12
-    assert inside.any(axis=1).all()
-    # the groups' bound is below the true smallest vertex distance (a distance between
-    # points on the two meshes, so an upper bound of the mesh distance)
-    low = px.cluster_gaps(ca, ra, cb, rb)
-    true_upper = np.linalg.norm(va[used][:, None] - vb[np.unique(tb)][None], axis=2).min()
-    assert low <= true_upper
+    assert (np.linalg.norm(va[used] - ca[vga[used]], axis=1) <= ra[vga[used]] + 1e-12).all()
+    # the groups' bound is below a distance between points of the two meshes
+    low = px.group_gaps(ca, ra, cb, rb).min()
+    assert low <= np.linalg.norm(va[used][:, None] - vb[np.unique(tb)][None], axis=2).min()
     # stacked placements give the same as one at a time
     stack = np.stack([ca, ca + 1.0])
-    np.testing.assert_allclose(px.cluster_gaps(stack, ra, cb, rb),
-                               [px.cluster_gaps(ca, ra, cb, rb), px.cluster_gaps(ca + 1.0, ra, cb, rb)])
+    np.testing.assert_allclose(px.group_gaps(stack, ra, cb, rb),
+                               [px.group_gaps(ca, ra, cb, rb), px.group_gaps(ca + 1.0, ra, cb, rb)])
     pg = px.point_gaps(va[:5], cb, rb)
-    np.testing.assert_allclose(pg, (np.linalg.norm(va[:5, None] - cb[None], axis=2) - rb).min(axis=1))
-
+    np.testing.assert_allclose(pg, (np.linalg.norm(va[:5, None] - cb[None], axis=2) - rb).min(axis=1),
+                               atol=1e-9)
