@@ -102,6 +102,10 @@ class Body:
          self.vert_group) = px.sphere_clusters(verts, tris)
         self.group_tris = [np.flatnonzero(self.tri_group == k) for k in range(len(self.group_radii))]
         self.group_tri_lists = [tris[g].tolist() for g in self.group_tris]
+        # placements in the world per frame, for bounds on how far the body moves
+        self.world_rot = rel[:, :3, :3]
+        self.world_centre = np.einsum("nij,j->ni", self.world_rot, self.centre) + rel[:, :3, 3]
+        self.world_groups = np.einsum("nij,kj->nki", self.world_rot, self.group_centres) + rel[:, None, :3, 3]
         self.verts_list = verts.tolist()
         self.tree = BVHTree.FromPolygons(self.verts_list, tris.tolist())
 
@@ -185,43 +189,44 @@ def _vertex_distances(points, body, limit, candidates):
     return dist, near
 
 
-def _edge_edge(a_pts, a_edges, b, limit):
-    """Smallest distance below ``limit`` between an edge of ``a_edges`` (points
-    ``a_pts``, in b's frame) and an edge of ``b``: (d, point on A, point on B) or None.
+def _edge_edge(a_pts, a_edges, b_pts, b_edges, limit, chunk=250_000):
+    """Smallest distance below ``limit`` between an edge of ``a_edges`` and one of
+    ``b_edges`` (points ``a_pts``, ``b_pts`` in one frame): (d, point on A, point on B)
+    or None. Pairs whose midpoints are farther apart than the limit plus both
+    half-lengths are left out first; closest points between segments: Ericson,
+    Real-Time Collision Detection (2005), §5.1.9."""
+    if not len(a_edges) or not len(b_edges):
+        return None
+    pa, qa = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
+    pb, qb = b_pts[b_edges[:, 0]], b_pts[b_edges[:, 1]]
+    ma, ha = 0.5 * (pa + qa), 0.5 * np.linalg.norm(qa - pa, axis=1)
+    mb, hb = 0.5 * (pb + qb), 0.5 * np.linalg.norm(qb - pb, axis=1)
+    best = None
+    rows = max(1, chunk // len(b_edges))
+    for s in range(0, len(a_edges), rows):
+        sl = slice(s, s + rows)
+        gap = np.linalg.norm(ma[sl, None] - mb[None], axis=2) - ha[sl, None] - hb[None]
+        i, j = np.nonzero(gap < limit)
+        if not len(i):
+            continue
+        i = i + s
+        d, c1, c2 = px.segment_closest_points(pa[i], qa[i], pb[j], qb[j])
+        k = int(np.argmin(d))
+        if d[k] < limit and (best is None or d[k] < best[0]):
+            best = (float(d[k]), c1[k], c2[k])
+    return best
 
-    B's candidate edges for an edge of A are those of B's triangles within ``limit`` +
-    half the edge's length of its midpoint (``BVHTree.find_nearest_range``): a closer
-    pair has its point on B's edge that near. Closest points between the segments:
-    Ericson, Real-Time Collision Detection (2005), §5.1.9."""
-    if not len(a_edges):
-        return None
-    p, q = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
-    mid = 0.5 * (p + q)
-    half = 0.5 * np.linalg.norm(q - p, axis=1)
-    rng = b.tree.find_nearest_range
-    ia, tb = [], []
-    for k, (m, r) in enumerate(zip(mid.tolist(), (limit + half).tolist())):
-        hits = rng(m, r * (1 + 1e-6) + 1e-9)
-        if hits:
-            ia.extend([k] * len(hits))
-            tb.extend(h[2] for h in hits)
-    if not ia:
-        return None
-    ia = np.repeat(np.asarray(ia), 3)
-    tri = b.tris[np.asarray(tb)]
-    pb, qb = b.verts[tri.reshape(-1)], b.verts[tri[:, [1, 2, 0]].reshape(-1)]
-    # midpoints farther apart than the limit plus both half-lengths cannot be closer
-    gap = (np.linalg.norm(mid[ia] - 0.5 * (pb + qb), axis=1) - half[ia]
-           - 0.5 * np.linalg.norm(qb - pb, axis=1))
-    keep = gap < limit
-    if not keep.any():
-        return None
-    ia, pb, qb = ia[keep], pb[keep], qb[keep]
-    d, c1, c2 = px.segment_closest_points(p[ia], q[ia], pb, qb)
-    k = int(np.argmin(d))
-    if d[k] < limit:
-        return float(d[k]), c1[k], c2[k]
-    return None
+
+def _near_edges(body, dist, limit):
+    """Edges of ``body`` that may come closer than ``limit`` to the other mesh, from its
+    vertices' distances ``dist`` (known up to ``limit`` + the longest edge). Distance to
+    a mesh changes no faster than one moves along the edge, so an edge of length ``L``
+    whose nearest point is at ``d`` has ends at ``d1``, ``d2`` with ``d1 + d2 <= 2 d + L``
+    and each at most ``d + L``."""
+    d1, d2 = dist[body.edges[:, 0]], dist[body.edges[:, 1]]
+    length = 2 * body.half_edge
+    keep = (d1 < limit + length) & (d2 < limit + length) & (d1 + d2 - length < 2 * limit)
+    return body.edges[keep]
 
 
 class PairResult:
@@ -245,10 +250,9 @@ def _distance(a, b, va, vb, gaps, limit):
     frame 'b' or 'a' the points are in, else None. ``gaps``: the groups' gaps (Ka, Kb)
     at this frame; ``limit`` may be inf.
 
-    Vertex-to-face both ways, for vertices whose group can be that near, then edge to
-    edge for the edges of A that can still be closer: an edge closer than ``d`` has both
-    ends within ``d`` + its length, so the vertex distances of A are taken up to the
-    limit + A's longest edge."""
+    Vertex-to-face both ways, for vertices whose group can be that near (distances
+    taken up to the limit + the mesh's longest edge), then edge to edge between the
+    edges of each mesh that can still be closer (:func:`_near_edges`)."""
     ga = gaps.min(axis=1)
     gb = gaps.min(axis=0)
     if not math.isfinite(limit):
@@ -259,9 +263,9 @@ def _distance(a, b, va, vb, gaps, limit):
         t = b.tris[idx]
         q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
         limit = float(np.linalg.norm(va[k] - q)) * (1 + 1e-9) + 1e-12
-    reach = limit + a.longest_edge
-    da, qa = _vertex_distances(va, b, reach, np.flatnonzero(ga[a.vert_group] < reach))
-    db, qb = _vertex_distances(vb, a, limit, np.flatnonzero(gb[b.vert_group] < limit))
+    reach_a, reach_b = limit + a.longest_edge, limit + b.longest_edge
+    da, qa = _vertex_distances(va, b, reach_a, np.flatnonzero(ga[a.vert_group] < reach_a))
+    db, qb = _vertex_distances(vb, a, reach_b, np.flatnonzero(gb[b.vert_group] < reach_b))
     found = None
     ka, kb = int(np.argmin(da)), int(np.argmin(db))
     if da[ka] < limit and da[ka] <= db[kb]:
@@ -269,11 +273,11 @@ def _distance(a, b, va, vb, gaps, limit):
     elif db[kb] < limit:
         found = (float(db[kb]), qb[kb], vb[kb], "a")
     lim = found[0] if found else limit
-    length = 2 * a.half_edge
-    near = (da[a.edges[:, 0]] < lim + length) & (da[a.edges[:, 1]] < lim + length)
-    r = _edge_edge(va, a.edges[near], b, lim)
-    if r is not None:
-        found = (r[0], r[1], r[2], "b")
+    ea = _near_edges(a, da, lim)
+    if len(ea):
+        r = _edge_edge(va, ea, b.verts, _near_edges(b, db, lim), lim)
+        if r is not None:
+            found = (r[0], r[1], r[2], "b")
     return found
 
 
@@ -308,7 +312,10 @@ def check_pair(a, b, frames, timer):
     and is raised by every frame ``g`` whose distance ``d_g`` is known: between two
     frames no point of A moves relative to B by more than ``|c(f) - c(g)| + |R(f) -
     R(g)|_F r_A`` (centre and rotation of A in B's frame; the same the other way round,
-    the smaller counts), and the distance changes no faster than the points move. Frames
+    or the two bodies' own motions in the world added; the smallest counts), and the
+    distance changes no faster than the points move. The
+    same holds for each group of A with its own centre and radius (every group is at
+    least ``d_g`` from B at ``g``), and the frame's bound is the smallest over them. Frames
     whose bound is above zero cannot touch; frames whose bound is above the best
     distance cannot hold the minimum; once the pair touches, only frames that may touch
     are visited. So every frame is decided without querying most of them."""
@@ -320,7 +327,8 @@ def check_pair(a, b, frames, timer):
     cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
     groups = np.einsum("nij,kj->nki", rot, a.group_centres) + t[:, None, :3, 3]
     gaps = px.group_gaps(groups, a.group_radii, b.group_centres, b.group_radii)   # (N, Ka, Kb)
-    low = gaps.min(axis=(1, 2))
+    low_groups = gaps.min(axis=2)                          # (N, Ka): each group of A to B
+    low = low_groups.min(axis=1)
     n = len(frames)
     undecided = np.ones(n, dtype=bool)
     size = max(a.radius, b.radius)
@@ -361,10 +369,24 @@ def check_pair(a, b, frames, timer):
             res.point_a = tuple(px.transform_points(rel, found[1][None])[0])
             res.point_b = tuple(px.transform_points(rel, found[2][None])[0])
         if math.isfinite(d):
+            # how far points move between frame i and each frame: of A relative to B (or
+            # B relative to A), or of each in the world (the two added); any one bounds
+            # the change of the distance
             turn = np.linalg.norm(rot - rot[i], axis=(1, 2))
-            move = np.minimum(np.linalg.norm(ca - ca[i], axis=1) + turn * a.radius,
-                              np.linalg.norm(cb - cb[i], axis=1) + turn * b.radius)
-            low = np.maximum(low, d - move)
+            turn_a = np.linalg.norm(a.world_rot - a.world_rot[i], axis=(1, 2))
+            move_b = (np.linalg.norm(b.world_centre - b.world_centre[i], axis=1)
+                      + np.linalg.norm(b.world_rot - b.world_rot[i], axis=(1, 2)) * b.radius)
+            move = np.minimum.reduce([
+                np.linalg.norm(ca - ca[i], axis=1) + turn * a.radius,
+                np.linalg.norm(cb - cb[i], axis=1) + turn * b.radius,
+                np.linalg.norm(a.world_centre - a.world_centre[i], axis=1) + turn_a * a.radius + move_b])
+            # each group of A moves less than the whole: its own centre and radius
+            move_groups = np.minimum(
+                np.linalg.norm(groups - groups[i], axis=2) + turn[:, None] * a.group_radii,
+                np.linalg.norm(a.world_groups - a.world_groups[i], axis=2)
+                + turn_a[:, None] * a.group_radii + move_b[:, None])
+            low_groups = np.maximum(low_groups, d - move_groups)
+            low = np.maximum(low_groups.min(axis=1), d - move)
         timer.queries += time.perf_counter() - t0
     res.contact.sort()
     if res.min_frame is None:  # cannot happen with finite meshes; keep the result defined

@@ -133,13 +133,13 @@ def main():
         frames = np.arange(1, args.frames + 1)
         runs = []
         for _ in range(args.repeats):
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             check = cl.Check(scene, frames).run()
-            total = time.perf_counter() - t0
-            runs.append((total, check.timer.solve, check.timer.trees, check.timer.queries, check))
+            total, cpu = time.perf_counter() - t0, time.process_time() - c0
+            runs.append((total, check.timer.solve, check.timer.trees, check.timer.queries, cpu, check))
         med = {k: statistics.median(r[i] for r in runs)
-               for i, k in enumerate(("total", "solve", "trees", "queries"))}
-        check = runs[-1][4]
+               for i, k in enumerate(("total", "solve", "trees", "queries", "cpu"))}
+        check = runs[-1][5]
         rows = check.rows()
         tris = [len(b.tris) for b in check.bodies]
         touching = [r for r in rows if r["contact"]]
@@ -147,14 +147,20 @@ def main():
         print(f"{len(check.bodies)} link objects, {min(tris)}-{max(tris)} triangles each, "
               f"{len(frames)} frames, {len(check.pairs)} pairs, {len(touching)} touching, "
               f"{visited} pair-frames visited of {len(check.pairs) * len(frames)}")
-        print(f"check (median of {args.repeats}): {med['total']:.2f} s  = solve {med['solve']:.2f} s"
-              f" + trees {med['trees']:.2f} s + queries {med['queries']:.2f} s   (target <= 10 s)")
+        print(f"check (median of {args.repeats}): {med['total']:.2f} s wall, {med['cpu']:.2f} s CPU"
+              f"  (target <= 10 s); wall = solve {med['solve']:.2f} s + trees {med['trees']:.2f} s"
+              f" + queries {med['queries']:.2f} s")
+        print(f"machine load while measuring (1-minute average, {os.cpu_count()} CPUs): "
+              f"{os.getloadavg()[0]:.1f}")
+        c0 = time.process_time()
         tb, touch_b = baseline(scene, frames, check)
+        cb = time.process_time() - c0
         touch_c = {(r["object_a"], r["object_b"], f) for r in rows
                    for f in importlib.import_module(f"{MODULE}.proximity").frames_from_text(r["contact_frames"])}
         same = "same" if touch_b == touch_c else f"DIFFERENT ({len(touch_b ^ touch_c)} pair-frames)"
         print(f"baseline, touching only (a tree per object and frame, overlap for every pair): "
-              f"{tb:.2f} s; ratio baseline / check = {tb / med['total']:.2f}; touching frames {same}")
+              f"{tb:.2f} s wall, {cb:.2f} s CPU; ratio baseline / check = {tb / med['total']:.2f} wall, "
+              f"{cb / med['cpu']:.2f} CPU; touching frames {same}")
         for r in rows[:5]:
             print(f"  {r['object_a']} / {r['object_b']}: gap {r['min_gap']:.4f} at {r['min_frame']}"
                   f"  contact {r['contact_frames'] or '-'}")
