@@ -100,6 +100,8 @@ class Body:
         self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
         (self.group_centres, self.group_radii, self.tri_group,
          self.vert_group) = px.sphere_clusters(verts, tris)
+        # finer groups, for a second, tighter bound at the frames that pass the first
+        self.fine_centres, self.fine_radii, _, _ = px.sphere_clusters(verts, tris, max_leaves=64)
         self.group_tris = [np.flatnonzero(self.tri_group == k) for k in range(len(self.group_radii))]
         self.group_tri_lists = [tris[g].tolist() for g in self.group_tris]
         # placements in the world per frame, for bounds on how far the body moves
@@ -165,7 +167,7 @@ def _vertex_distances(points, body, limit, candidates):
     near = np.zeros((n, 3))
     if not len(candidates):
         return dist, near
-    keep = candidates[px.point_gaps(points[candidates], body.group_centres, body.group_radii) < limit]
+    keep = candidates[px.point_gaps(points[candidates], body.fine_centres, body.fine_radii) < limit]
     if not len(keep):
         return dist, near
     find = body.tree.find_nearest
@@ -236,7 +238,8 @@ class PairResult:
         self.min_gap = math.inf
         self.min_frame = None
         self.point_a = self.point_b = (0.0, 0.0, 0.0)
-        self.visited = 0            # frames whose distance or overlap was computed
+        self.visited = 0            # frames looked at
+        self.pruned = 0             # of those, frames the finer groups' bound settled
 
 
 class Timer:
@@ -341,8 +344,15 @@ def check_pair(a, b, frames, timer):
         undecided[i] = False
         res.visited += 1
         t0 = time.perf_counter()
+        # the finer groups' bound at this frame: frames it clears need no mesh queries
+        fine = px.group_gaps(px.transform_points(t[i], a.fine_centres), a.fine_radii,
+                             b.fine_centres, b.fine_radii).min()
+        if fine > 0.0 and fine >= best:
+            res.pruned += 1
+            timer.queries += time.perf_counter() - t0
+            continue
         va = px.transform_points(t[i], a.verts)              # a in b's frame
-        if low[i] <= 0.0:
+        if low[i] <= 0.0 and fine <= 0.0:
             vb0 = px.transform_points(tinv[i], b.verts[:1])[0]
             touch, pts, built = _overlap(a, b, va, vb0, gaps[i], size)
             timer.trees += built
