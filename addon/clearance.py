@@ -577,12 +577,9 @@ def _index_update(self, context):
 
 
 def length_text(scene, value):
-    """A scene length in the scene's display unit (the host's own unit formatting)."""
-    us = scene.unit_settings
-    try:
-        return bpy.utils.units.to_string(us.system, 'LENGTH', value * us.scale_length, precision=4)
-    except (TypeError, ValueError, AttributeError):
-        return f"{value:.6g}"
+    """A scene length in the scene's display unit (as the status messages show lengths)."""
+    label, k = sc._display_length(scene)
+    return f"{value * k:.5g} {label}"
 
 
 # -- properties ------------------------------------------------------------------------------

@@ -462,3 +462,37 @@ def test_sample_post_on_the_coupler_curve(installed, tmp_path):
     for i in jw.clearance:
         if "Post" not in (i.object_a, i.object_b):
             assert not i.contact, i.name
+
+
+def test_panel_lists_pairs_and_a_click_goes_to_the_pair(fresh, tmp_path):
+    import types
+    from test_panels import Recorder
+    bench(tmp_path, PIN_LINKS.split("[links.handle]")[0], PIN_JOINTS.split("[joints.handle_turn]")[0],
+          Pin=_pin)
+    key_linear(fresh, "s", [(1, 0.0), (11, -3.0)])
+    panel = bpy.types.JOINTWISE_PT_clearance
+    log = []
+    panel.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    assert ("label", "No results yet") in log and ("operator", "jointwise.clearance") in log
+    fresh.unit_settings.system = 'METRIC'
+    fresh.unit_settings.length_unit = 'MILLIMETERS'
+    assert bpy.ops.jointwise.clearance(frame_start=1, frame_end=7) == {"FINISHED"}
+    jw = fresh.jointwise
+    log = []
+    panel.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    labels = [text for kind, text in log if kind == "label"]
+    # worst first, in display units: Left / Right come within 0.2 m = 200 mm at frame 7
+    assert labels[0].startswith("Left / Right: 200") and "mm" in labels[0] and labels[0].endswith("frame 7")
+    assert ("list", "JOINTWISE_UL_clearance") in log
+    # a click on the row: the frame of the smallest gap, the two objects selected
+    fresh.frame_set(1)
+    jw.clearance_index = 0
+    assert fresh.frame_current == 7
+    assert {o.name for o in bpy.context.selected_objects} == {"Left", "Right"}
+    assert bpy.context.view_layer.objects.active.name == jw.clearance[0].object_a
+    # the same from the row's button
+    fresh.frame_set(1)
+    assert bpy.ops.jointwise.clearance_show(index=1) == {"FINISHED"}
+    assert fresh.frame_current == jw.clearance[1].min_frame
+    assert bpy.ops.jointwise.clearance_clear() == {"FINISHED"}
+    assert len(jw.clearance) == 0 and len(fresh.timeline_markers) == 0
