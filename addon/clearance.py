@@ -578,7 +578,7 @@ def _index_update(self, context):
 
 def length_text(scene, value):
     """A scene length in the scene's display unit (as the status messages show lengths)."""
-    label, k = sc._display_length(scene)
+    label, k = sc.display_length_of(scene)
     return f"{value * k:.5g} {label}"
 
 
