@@ -102,7 +102,49 @@ def remap_coordinate_paths(scene, mapping):
     ad = scene.animation_data
     if ad is None or ad.action is None:
         return
-    action = ad.action
+    for bag in _bags(ad.action):
+        for fc in list(bag.fcurves):
+            m = _PATH.match(fc.data_path)
+            if not m or m.group(1) is None:
+                continue
+            new = mapping.get(int(m.group(1)), int(m.group(1)))
+            if new is None:
+                bag.fcurves.remove(fc)
+            else:
+                fc.data_path = f"jointwise.joints[{new}].{m.group(3)}"
+
+
+def value_path(item_index, kind):
+    """Data path of the animatable value of joint item ``item_index``."""
+    return f"jointwise.joints[{item_index}].{'length' if kind == 'length' else 'angle'}"
+
+
+def retarget_value_paths(scene):
+    """F-curves on ``joints[i].value`` (files saved before the value was split by kind)
+    moved to ``joints[i].angle`` or ``.length``. True when any moved."""
+    ad = scene.animation_data
+    if ad is None or ad.action is None:
+        return False
+    jw = scene.jointwise
+    moved = False
+    for bag in _bags(ad.action):
+        for fc in list(bag.fcurves):
+            m = _PATH.match(fc.data_path)
+            if not m or m.group(3) != "value":
+                continue
+            i = int(m.group(1)) if m.group(1) is not None else jw.joints.find(m.group(2).replace('\\"', '"'))
+            if not 0 <= i < len(jw.joints):
+                continue
+            new = value_path(i, jw.joints[i].kind)
+            if any(f.data_path == new for f in bag.fcurves):
+                continue
+            fc.data_path = new
+            moved = True
+    return moved
+
+
+def _bags(action):
+    """Every channelbag of ``action`` (or the legacy action itself on 4.x)."""
     bags = []
     if getattr(action, "layers", None) is not None and len(action.layers):
         for layer in action.layers:
@@ -113,16 +155,7 @@ def remap_coordinate_paths(scene, mapping):
                         bags.append(bag)
     elif getattr(action, "fcurves", None) is not None:
         bags.append(action)
-    for bag in bags:
-        for fc in list(bag.fcurves):
-            m = _PATH.match(fc.data_path)
-            if not m or m.group(1) is None:
-                continue
-            new = mapping.get(int(m.group(1)), int(m.group(1)))
-            if new is None:
-                bag.fcurves.remove(fc)
-            else:
-                fc.data_path = f"jointwise.joints[{new}].{m.group(3)}"
+    return bags
 
 
 # -- writing keys ---------------------------------------------------------------------------
@@ -189,6 +222,12 @@ def write_channels(obj, frames, channels):
         fc.keyframe_points.foreach_set("interpolation", np.full(n, lin, dtype=np.int32))
         fc.update()
     return action
+
+
+def is_baked(obj):
+    """The object plays keys written by a bake."""
+    ad = obj.animation_data
+    return ad is not None and ad.action is not None and bool(ad.action.get(TAG))
 
 
 def clear(obj):

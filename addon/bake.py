@@ -13,6 +13,8 @@ Public entry points:
 """
 from __future__ import annotations
 
+import json
+
 import numpy as np
 
 from . import animation, keys, posing
@@ -180,7 +182,23 @@ def basis_from_world(objs_worlds, order):
                 break
         if pw is None:
             pw = sc.matrix_host_to_core(p.matrix_world)
-        out[name] = np.linalg.inv(pw @ pinv) @ w
+        frame = pw @ pinv
+        r = frame[..., :3, :3]
+        sv = np.linalg.svd(r.reshape(-1, 3, 3), compute_uv=False)
+        if not (np.all(np.isfinite(sv)) and sv[:, -1].min() > 1e-9 * max(1.0, float(sv[:, 0].max()))):
+            raise SceneError(f"link {name!r}: give its parent object {p.name!r} a non-zero scale "
+                             f"(it is scaled to zero, so {obj.name!r} has no placement to key); "
+                             f"no keys were written")
+        basis = np.linalg.inv(frame) @ w
+        m3 = basis[..., :3, :3].reshape(-1, 3, 3)
+        g = np.einsum("nji,njk->nik", m3, m3)  # columns orthogonal <=> rotation x axis scale
+        off = np.abs(g - g * np.eye(3)).max(axis=(1, 2))
+        if off.max() > 1e-6 * max(1.0, float(np.abs(g).max())):
+            raise SceneError(f"link {name!r}: apply the scale of its parent {p.name!r} or unparent "
+                             f"{obj.name!r} before baking: a parent scaled unevenly under a rotation "
+                             f"shears it, and location and rotation keys cannot follow a shear; "
+                             f"no keys were written")
+        out[name] = basis
     return out
 
 
@@ -188,6 +206,22 @@ def channels_for(obj, basis):
     """Location and rotation keys for ``obj`` from its local matrices ``basis`` (N, 4, 4)."""
     return keys.channels_from_basis(basis, obj.rotation_mode, obj.rotation_quaternion,
                                     obj.rotation_axis_angle, obj.rotation_euler)
+
+
+def check_parents(scene):
+    """Refuse, by name, link objects whose parent chain keys cannot follow: a parent scaled
+    to zero (checked here; an uneven scale under a rotation is checked per frame in
+    :func:`basis_from_world`)."""
+    jw = scene.jointwise
+    for link in jw.links:
+        obj = link.object
+        if link.name == jw.ground or not sc.object_alive(scene, obj) or obj.parent is None:
+            continue
+        bad = sc.zero_scaled(obj.parent)
+        if bad is not None:
+            raise SceneError(f"link {link.name!r}: give its parent object {bad.name!r} a non-zero "
+                             f"scale (it is scaled to zero, so {obj.name!r} has no placement to "
+                             f"key); no keys were written")
 
 
 def prepare_channels(worlds):
@@ -209,6 +243,7 @@ def bake(scene, frame_start, frame_end, drive="", value_from=0.0, value_to=0.0, 
         raise SceneError(f"frame {fail[0]}: {fail[1]}; no keys were written")
     t1 = time.perf_counter()
     frames = solved.frames
+    check_parents(scene)
     worlds = sc.world_matrices(scene, solved.links)
     channels = prepare_channels(worlds)
     for name, ch in channels.items():
@@ -220,5 +255,56 @@ def bake(scene, frame_start, frame_end, drive="", value_from=0.0, value_to=0.0, 
         animation.write_channels(obj, frames, ch)
     for w in writers:
         w()
+    store_baked_values(scene, solved)
     t2 = time.perf_counter()
     return len(channels), t1 - t0, t2 - t1
+
+
+# -- the joint values of a bake, shown while its keys play ---------------------------------------
+
+_BAKED = {}
+
+
+def store_baked_values(scene, solved):
+    """Keep the solved joint values per frame with the scene (JSON), so the joint list can
+    show the values of the baked pose on screen while the link keys play."""
+    jw = scene.jointwise
+    data = {"frames": [int(f) for f in solved.frames],
+            "values": {k: [float(x) for x in v] for k, v in solved.joints.items() if k in jw.joints}}
+    jw.baked_values = json.dumps(data)
+
+
+def forget_baked_values(scene):
+    scene.jointwise.baked_values = ""
+
+
+def _baked_table(text):
+    hit = _BAKED.get(text)
+    if hit is None:
+        try:
+            data = json.loads(text)
+            frames = np.asarray(data["frames"], dtype=float)
+            values = {k: np.asarray(v, dtype=float) for k, v in data["values"].items()}
+        except (ValueError, KeyError, TypeError):
+            return None
+        if len(_BAKED) > 8:
+            _BAKED.clear()
+        hit = _BAKED[text] = (frames, values)
+    return hit
+
+
+def baked_values(scene, frame):
+    """{coordinate: value} of the last bake at ``frame`` (held at the ends of its range),
+    or None when no link object plays baked keys."""
+    jw = scene.jointwise
+    if not jw.baked_values:
+        return None
+    if not any(sc.object_alive(scene, link.object) and animation.is_baked(link.object)
+               for link in jw.links):
+        return None
+    table = _baked_table(jw.baked_values)
+    if table is None or not len(table[0]):
+        return None
+    frames, values = table
+    f = float(frame)
+    return {k: float(np.interp(f, frames, v)) for k, v in values.items()}

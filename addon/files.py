@@ -7,6 +7,7 @@ import math
 import numpy as np
 
 from . import animation, properties
+from .properties import ANCHOR_TAG
 from . import scene as sc
 from .convert import (METRES, SceneError, angle_file_to_host, file_number, keep_file_geometry,
                       matrix_core_to_stored, orientation, tidy)
@@ -29,9 +30,9 @@ def validate_file_objects(scene, mech):
     return out
 
 
-def import_mechanism(scene, mech, objects, marker_collection):
+def import_mechanism(scene, mech, objects, anchor_collection):
     """Store a loaded mechanism (file units) in ``scene.jointwise`` (host units); the
-    objects' current placements become home. Returns the markers made."""
+    objects' current placements become home. Returns the anchors made."""
     import bpy
     jw = scene.jointwise
     k = sc.length_file_to_host(scene, mech.length_unit)  # angles: the core holds radians already
@@ -41,7 +42,7 @@ def import_mechanism(scene, mech, objects, marker_collection):
             raise SceneError(f"{mech.source}: joints.{jname}: a lead angle of 90 degrees is a "
                              f"pure slide; model it as a prismatic joint")
     old_names = [it.name for it in jw.joints]
-    remove_markers(scene)
+    remove_anchors(scene)
     jw.links.clear()
     jw.joints.clear()
     jw.couplings.clear()
@@ -59,26 +60,26 @@ def import_mechanism(scene, mech, objects, marker_collection):
         link.object_name = obj.name if obj is not None else ""
         link.home = matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world) if obj else np.eye(4))
     size = max(float(getattr(mech, "size", 1.0)) * k, 1e-6)
-    markers = []
+    anchors = []
     for jname, j in mech.joints.items():
         src = data["joints"][jname]
-        marker = None
+        anchor = None
         if j.type != "fixed":
-            marker = bpy.data.objects.new(f"joint {jname}", None)
-            marker.empty_display_type = 'ARROWS'
-            marker.empty_display_size = 0.15 * size
-            marker["jointwise_marker"] = jname
-            marker_collection.objects.link(marker)
+            anchor = bpy.data.objects.new(f"joint {jname}", None)
+            anchor.empty_display_type = 'ARROWS'
+            anchor.empty_display_size = 0.15 * size
+            anchor[ANCHOR_TAG] = jname
+            anchor_collection.objects.link(anchor)
             frame = np.eye(4)
             frame[:3, :3] = orientation(j.axis, j.axis2)
             frame[:3, 3] = np.asarray(j.point, dtype=float) * k
-            marker.matrix_world = sc.matrix_core_to_host(frame)
+            anchor.matrix_world = sc.matrix_core_to_host(frame)
             parent_obj = objects.get(j.parent)
             if parent_obj is not None:
-                marker.parent = parent_obj
-                marker.matrix_parent_inverse = parent_obj.matrix_world.inverted()
-                marker.matrix_world = sc.matrix_core_to_host(frame)
-            markers.append(marker)
+                anchor.parent = parent_obj
+                anchor.matrix_parent_inverse = parent_obj.matrix_world.inverted()
+                anchor.matrix_world = sc.matrix_core_to_host(frame)
+            anchors.append(anchor)
         kinds = list(j.kinds) or ["angle"]
         for i, c in enumerate(j.coordinates or [jname]):  # a fixed joint keeps one item
             item = jw.joints.add()
@@ -96,14 +97,14 @@ def import_mechanism(scene, mech, objects, marker_collection):
             if lim is not None:
                 item.limit_min, item.limit_max = float(lim[0]) * f, float(lim[1]) * f
             item.drive = bool(j.drive)
-            item.marker = marker
+            item.anchor = anchor
             item.use_axis2 = "axis2" in src
             if j.type == "helical":
                 item.lead = abs(float(j.lead)) * k
                 item.hand = "left" if float(j.lead) < 0 or src.get("hand") == "left" else "right"
                 item.thread = str(src.get("thread", ""))
-            if marker is not None:
-                item.marker_home = matrix_core_to_stored(frame)
+            if anchor is not None:
+                item.anchor_home = matrix_core_to_stored(frame)
     with properties.quiet():
         for item in jw.joints:
             item.value = item.last = item.home
@@ -123,14 +124,14 @@ def import_mechanism(scene, mech, objects, marker_collection):
     new_index = {it.name: i for i, it in enumerate(jw.joints)}
     animation.remap_coordinate_paths(scene, {i: new_index.get(n) for i, n in enumerate(old_names)})
     sc.clear_cache()
-    return markers
+    return anchors
 
 
-def remove_markers(scene):
+def remove_anchors(scene):
     import bpy
     for item in scene.jointwise.joints:
-        m = item.marker
-        if m is not None and m.get("jointwise_marker") is not None:
+        m = item.anchor
+        if m is not None and m.get(ANCHOR_TAG) is not None:
             try:
                 bpy.data.objects.remove(m, do_unlink=True)
             except (ReferenceError, RuntimeError):

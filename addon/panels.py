@@ -3,28 +3,52 @@ from __future__ import annotations
 
 import bpy
 
+from . import animation, convert
 from . import scene as sc
 from . import trace
 from .convert import SceneError
 
 
+def _held_names(scene):
+    """Coordinates the solver holds: drives and keyed (animated) values."""
+    jw = scene.jointwise
+    keyed = set(animation.coordinate_fcurves(scene))
+    return keyed, {it.name for it in jw.joints if it.drive} | keyed
+
+
 class JOINTWISE_UL_joints(bpy.types.UIList):
-    """One row per joint coordinate: name, value slider, drive flag."""
+    """One row per joint coordinate: name, value (animatable, display units), key, held mark."""
 
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
+        keyed, held = _held_names(context.scene)
         row = layout.row(align=True)
         row.label(text=item.name, icon='CON_PIVOT' if item.kind == "angle" else 'CON_LOCLIKE')
         if item.type == "fixed":
             row.label(text="fixed")
         else:
-            row.prop(item, "angle" if item.kind == "angle" else "length", text="")
-            row.operator("jointwise.value_key", text="", icon='KEY_HLT', emboss=False).index = index
+            row.prop(item, "length" if item.kind == "length" else "angle", text="")
+            row.operator("jointwise.value_key", text="", icon='KEY_HLT' if item.name in keyed else 'KEY_DEHLT',
+                         emboss=False).index = index
+        if item.name in keyed:
+            row.label(text="", icon='DECORATE_KEYFRAME')  # held by its keys
         row.prop(item, "drive", text="", icon='AUTO' if item.drive else 'DOT', emboss=False)
 
 
 class JOINTWISE_UL_couplings(bpy.types.UIList):
+    """One row per coupling: follower = ratio x leader + offset, in display units."""
+
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
-        layout.label(text=f"{item.follower} = {item.ratio:g} x {item.leader} + {item.offset:g}")
+        jw = context.scene.jointwise
+        length = sc.display_length_of(context.scene)
+        lead, fol = jw.joints.get(item.leader), jw.joints.get(item.follower)
+        lk = lead.kind if lead else "angle"
+        fk = fol.kind if fol else "angle"
+        if lk == fk:
+            ratio = f"{item.ratio:g} x"
+        else:
+            ratio = f"({convert.format_value(abs(item.per_turn), 'length', length)} per turn) x"
+        off = convert.format_value(item.offset, fk, length)
+        layout.label(text=f"{item.follower} = {ratio} {item.leader} + {off}")
 
 
 class _Tab:
@@ -37,25 +61,27 @@ class JOINTWISE_PT_mechanism(_Tab, bpy.types.Panel):
     bl_label = "Mechanism"
 
     def draw(self, context):
-        jw = context.scene.jointwise
+        scene = context.scene
+        jw = scene.jointwise
         layout = self.layout
         row = layout.row(align=True)
-        row.operator("jointwise.mechanism_import", text="Import", icon='IMPORT')
-        row.operator("jointwise.mechanism_export", text="Export", icon='EXPORT')
+        row.operator("jointwise.mechanism_import", icon='IMPORT')
+        row.operator("jointwise.mechanism_export", icon='EXPORT')
         if jw.links:
             layout.label(text=f"{jw.name_text or 'mechanism'}: {len(jw.links)} links, ground {jw.ground!r}")
         row = layout.row(align=True)
         row.prop(jw, "live", toggle=True, icon='PLAY' if jw.live else 'PAUSE')
-        row.operator("jointwise.pose", text="Solve", icon='FILE_REFRESH')
+        row.operator("jointwise.pose", icon='FILE_REFRESH')
         row = layout.row(align=True)
-        row.operator("jointwise.home_set", text="Set Home", icon='PINNED')
-        row.operator("jointwise.home_restore", text="To Home", icon='HOME')
+        row.operator("jointwise.home_set", icon='PINNED')
+        row.operator("jointwise.home_restore", icon='HOME')
         box = layout.box()
         ok = jw.converged and not jw.singular
-        box.label(text=jw.message or "not solved yet", icon='CHECKMARK' if ok else 'ERROR')
+        box.label(text=jw.message or "not posed yet: drag a joint value", icon='CHECKMARK' if ok else 'ERROR')
+        label, k = sc.display_length_of(scene)
         mob = "?" if jw.mobility < 0 else str(jw.mobility)
-        box.label(text=f"closure error {jw.closure_error:.2e}  |  mobility {mob}"
-                       f"{'  |  singular' if jw.singular else ''}")
+        box.label(text=f"loops closed within {jw.closure_error * k:.2g} {label}  |  mobility {mob}"
+                       f"{'  |  near a dead point' if jw.singular else ''}")
 
 
 class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
@@ -72,9 +98,13 @@ class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
         if not 0 <= jw.joint_index < len(jw.joints):
             return
         it = jw.joints[jw.joint_index]
+        keyed, held = _held_names(context.scene)
         box = layout.box()
         box.label(text=f"{it.type} joint {it.joint!r}: {it.parent} -> {it.child}")
-        box.prop(it, "marker")
+        if it.name in held:
+            box.label(text="held: " + ("keyed, the animation sets it" if it.name in keyed else "a drive"),
+                      icon='LOCKED')
+        box.prop(it, "anchor")
         if it.type == "helical":
             row = box.row(align=True)
             row.prop(it, "lead")
@@ -118,6 +148,17 @@ class JOINTWISE_PT_couplings(_Tab, bpy.types.Panel):
         col = row.column(align=True)
         col.operator("jointwise.coupling_add", text="", icon='ADD')
         col.operator("jointwise.coupling_remove", text="", icon='REMOVE')
+        if not 0 <= jw.coupling_index < len(jw.couplings):
+            return
+        c = jw.couplings[jw.coupling_index]
+        box = self.layout.box()
+        box.prop_search(c, "leader", jw, "joints", icon='VIEWZOOM')
+        box.prop_search(c, "follower", jw, "joints", icon='VIEWZOOM')
+        lead, fol = jw.joints.get(c.leader), jw.joints.get(c.follower)
+        lk = lead.kind if lead else "angle"
+        fk = fol.kind if fol else "angle"
+        box.prop(c, "ratio" if lk == fk else "per_turn")
+        box.prop(c, "offset_length" if fk == "length" else "offset_angle")
 
 
 class JOINTWISE_PT_bake(_Tab, bpy.types.Panel):
@@ -125,9 +166,14 @@ class JOINTWISE_PT_bake(_Tab, bpy.types.Panel):
     bl_options = {'DEFAULT_CLOSED'}
 
     def draw(self, context):
+        scene = context.scene
         row = self.layout.row(align=True)
-        row.operator("jointwise.bake", text="Bake Motion", icon='KEYINGSET')
-        row.operator("jointwise.bake_clear", text="Clear", icon='X')
+        row.operator("jointwise.bake", icon='KEYINGSET')
+        row.operator("jointwise.bake_clear", icon='X')
+        self.layout.label(text=f"scene frames {scene.frame_start}-{scene.frame_end}")
+        if scene.jointwise.baked_values:
+            self.layout.label(text="baked: the link keys play; Clear Baked Motion to pose by hand",
+                              icon='KEYFRAME')
 
 
 class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
@@ -151,7 +197,7 @@ class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
         for name in names:
             row = layout.row(align=True)
             row.label(text=name + ("  (traced)" if name in traced else ""))
-            op = row.operator("jointwise.trace_add", text="Trace")
+            op = row.operator("jointwise.trace_add")
             op.measure = name
             op.frame_start = scene.frame_start
             op.frame_end = scene.frame_end

@@ -18,8 +18,16 @@ AFTER_POSE = []
 
 
 def loop_groups(mech):
-    """{joint: group id} for joints in loops; loops sharing a joint share a group."""
-    return convert.loop_groups(getattr(mech, "loops", []))
+    """{joint: group id} for joints in loops; loops sharing a joint share a group (kept
+    with the mechanism: it never changes for one)."""
+    groups = getattr(mech, "_jointwise_groups", None)
+    if groups is None:
+        groups = convert.loop_groups(getattr(mech, "loops", []))
+        try:
+            mech._jointwise_groups = groups
+        except AttributeError:
+            pass
+    return groups
 
 
 def animated_coordinates(scene):
@@ -78,7 +86,7 @@ def set_status(scene, *, converged=True, error=0.0, singular=False, message="", 
     jw.converged = bool(converged)
     jw.closure_error = float(error) if error is not None and math.isfinite(error) else 0.0
     jw.singular = bool(singular)
-    jw.message = sc.message_core_to_host(message, scene)
+    jw.message = message  # final text: core messages go through sc.message_core_to_host first
     if mobility is not None:
         jw.mobility = int(mobility)
 
@@ -119,36 +127,114 @@ def restore(scene, snap, values=True):
         obj.matrix_world = m
 
 
-def solve(scene, extra=(), values=None):
-    """Solve the scene's mechanism for the current values; returns (mech, pose).
+def clamp_to_limits(scene, held):
+    """Held values past their coordinate's limits moved onto the limit (in place).
+    Returns [(coordinate, asked, limit)] for each value moved."""
+    jw = scene.jointwise
+    moved = []
+    for name, v in held.items():
+        item = jw.joints.get(name)
+        if item is None or not item.use_limits:
+            continue
+        lo, hi = float(item.limit_min), float(item.limit_max)
+        if v < lo or v > hi:
+            held[name] = lo if v < lo else hi
+            moved.append((name, v, held[name]))
+    return moved
 
-    Raises SceneError (scene data unusable) or the core's AssemblyError."""
+
+def solve(scene, extra=(), values=None):
+    """Solve the scene's mechanism for the current values; returns (mech, pose, clamped).
+
+    Held values past a limit are held at the limit (``clamped``: [(coordinate, asked,
+    limit)]). Raises SceneError (scene data unusable) or the core's AssemblyError."""
     mech = sc.mechanism_from_scene(scene)
     held = held_values(scene, mech, extra, values)
+    clamped = clamp_to_limits(scene, held)
     start = start_from_scene(scene, mech)
     pose = mech.pose(held, start=start)
     if not pose.converged:
         err = sc.core().AssemblyError
         raise err(f"the loops did not close (closure error {pose.residual:.3g})",
                   error=pose.residual)
-    return mech, pose
+    return mech, pose, clamped
 
 
-def pose_scene(scene, extra=(), values=None, restore_values=True):
+def _value_text(scene, name, v):
+    item = scene.jointwise.joints.get(name)
+    kind = item.kind if item is not None else "angle"
+    return convert.format_value(v, kind, sc.display_length_of(scene))
+
+
+def reachable_text(scene, mech, name):
+    """"reachable from A to B" for coordinate ``name`` with the others free (display units),
+    or "" when the core cannot say."""
+    try:
+        from jointwise.sweep import reach
+        r = reach(mech, name)
+    except Exception:  # an extra for the message only; never let it hide the failure
+        return ""
+    spans = r.get("intervals") or []
+    item = scene.jointwise.joints.get(name)
+    now = float(item.last) if item is not None else 0.0
+    if not spans:
+        return ""
+    lo, hi = min(spans, key=lambda s: 0.0 if s[0] <= now <= s[1] else min(abs(now - s[0]), abs(now - s[1])))
+    return f"reachable from {_value_text(scene, name, lo)} to {_value_text(scene, name, hi)}"
+
+
+def failure_text(scene, exc, asked):
+    """A failure that leads with what the user can do, then the core's detail.
+    ``asked``: {coordinate: value} the user asked for (the dragged one)."""
+    detail = sc.message_core_to_host(convert.describe_error(exc), scene)
+    jw = scene.jointwise
+    name = next((e for e in asked if e in jw.joints), None)
+    if name is None or not isinstance(exc, sc.core().AssemblyError):
+        return detail
+    asked = asked[name]
+    head = f"{name} cannot reach {_value_text(scene, name, asked)} here"
+    try:
+        mech = sc.mechanism_from_scene(scene)
+        where = reachable_text(scene, mech, name)
+    except (SceneError, sc.core().JointwiseError):
+        where = ""
+    return f"{head}: {where} ({detail})" if where else f"{head} ({detail})"
+
+
+def status_text(scene, pose, clamped):
+    """The status line of a successful pose, with units."""
+    label, k = sc.display_length_of(scene)
+    parts = []
+    for name, asked, lim in clamped:
+        parts.append(f"{name} held at its limit {_value_text(scene, name, lim)} "
+                     f"(asked {_value_text(scene, name, asked)})")
+    head = "; ".join(parts) if parts else ("posed near a dead point: the linkage may change "
+                                           "branch here" if pose.singular else "posed")
+    err = float(pose.residual) if math.isfinite(pose.residual) else 0.0
+    return f"{head}; loops closed within {err * k:.2g} {label}"
+
+
+def pose_scene(scene, extra=(), values=None, restore_values=True, mobility=False):
     """Solve and apply. On failure the scene is left as it was (values back at the last
     solved ones unless ``restore_values`` is false, e.g. for animated values) and the
     status says why. Returns (ok, message)."""
     snap = snapshot(scene)
+    jw = scene.jointwise
+    asked = {e: (float(values[e]) if values is not None and e in values else float(jw.joints[e].value))
+             for e in extra if e in jw.joints}
     try:
-        mech, pose = solve(scene, extra, values)
+        mech, pose, clamped = solve(scene, extra, values)
         sc.apply_displacements(scene, pose.links)
         sc.write_values(scene, pose.joints)
     except (SceneError, sc.core().JointwiseError) as exc:
+        # the list keeps showing the values of the pose on screen: the value goes back
         restore(scene, snap, restore_values)
-        msg = convert.describe_error(exc)
+        msg = failure_text(scene, exc, asked)
         set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         return False, msg
+    msg = status_text(scene, pose, clamped)
     set_status(scene, converged=pose.converged, error=pose.residual, singular=pose.singular,
-               message="singular: near a dead point" if pose.singular else "solved",
-               mobility=mobility_of(mech, pose))
-    return True, ""
+               message=msg, mobility=mobility_of(mech, pose) if mobility else None)
+    for f in AFTER_POSE:
+        f(scene, mech, pose)
+    return True, msg

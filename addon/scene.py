@@ -132,6 +132,27 @@ def scene_displacement(scene, link_name):
     return matrix_host_to_core(obj.matrix_world) @ home_inverse(link.home)
 
 
+def zero_scaled(obj):
+    """The first object in ``obj``'s parent chain (itself first) with a zero scale, or None."""
+    o = obj
+    while o is not None:
+        if convert.is_singular(matrix_host_to_core(o.matrix_basis)):
+            return o
+        o = o.parent
+    return None
+
+
+def zero_scale_text(scene, link_name):
+    """What to do when a link's placement is singular, naming the object to fix."""
+    link = scene.jointwise.links.get(link_name)
+    obj = link.object if link is not None else None
+    culprit = zero_scaled(obj) if obj is not None else None
+    name = culprit.name if culprit is not None else (obj.name if obj is not None else link_name)
+    whose = "" if culprit is None or culprit == obj else f" (a parent of {obj.name!r})"
+    return (f"link {link_name!r}: give object {name!r}{whose} a non-zero scale; it is scaled to "
+            f"zero, so the link has no placement")
+
+
 def first_items(jw):
     """The first coordinate item of every joint, in collection order: {joint: item}."""
     out = {}
@@ -153,19 +174,22 @@ def items_by_joint(jw):
 
 
 def joint_frame_home(scene, item, inverse_displacements=None):
-    """Home frame (4x4, core world) of the joint of ``item`` from its marker.
+    """Home frame (4x4, core world) of the joint of ``item`` from its anchor.
     ``inverse_displacements``: a dict caching inv(D) per parent link within one build."""
-    marker = item.marker
-    if not object_alive(scene, marker):
-        raise SceneError(f"joint {item.joint!r}: its marker object is missing (deleted?); "
+    anchor = item.anchor
+    if not object_alive(scene, anchor):
+        raise SceneError(f"joint {item.joint!r}: its anchor object is missing (deleted?); "
                          f"add the joint again or re-import the mechanism")
     cache = {} if inverse_displacements is None else inverse_displacements
     inv_d = cache.get(item.parent)
     if inv_d is None:
-        inv_d = cache[item.parent] = inverse(scene_displacement(scene, item.parent))
-    m = inv_d @ matrix_host_to_core(marker.matrix_world)
+        try:
+            inv_d = cache[item.parent] = inverse(scene_displacement(scene, item.parent))
+        except SceneError:
+            raise SceneError(zero_scale_text(scene, item.parent)) from None
+    m = inv_d @ matrix_host_to_core(anchor.matrix_world)
     if not np.all(np.isfinite(m)):
-        raise SceneError(f"joint {item.joint!r}: marker {marker.name!r} has a non-finite placement")
+        raise SceneError(f"joint {item.joint!r}: anchor {anchor.name!r} has a non-finite placement")
     return m
 
 
@@ -200,11 +224,11 @@ def mechanism_dict_from_scene(scene):
                 raise SceneError(f"joint {joint!r}: its {side} link {getattr(first, side)!r} is not a link")
         if first.type != "fixed":
             frame = joint_frame_home(scene, first, inv_d)
-            frame = settled_frame(frame, matrix_stored_to_core(first.marker_home))
+            frame = settled_frame(frame, matrix_stored_to_core(first.anchor_home))
             jd["point"] = frame[:3, 3].tolist()
-            jd["axis"] = unit_column(frame, 2, joint, first.marker.name, "Z")
+            jd["axis"] = unit_column(frame, 2, joint, first.anchor.name, "Z")
             if first.type == "universal" or (first.use_axis2 and first.type in ("spherical", "planar")):
-                jd["axis2"] = unit_column(frame, 0, joint, first.marker.name, "X")
+                jd["axis2"] = unit_column(frame, 0, joint, first.anchor.name, "X")
             file_geometry(jd, geometry.get(joint, {}), to_host)
         homes = [float(it.home) for it in items]
         jd["home"] = homes[0] if len(homes) == 1 else homes
@@ -233,19 +257,66 @@ def clear_cache():
     _CACHE.clear()
 
 
+def _flat(m):
+    return tuple(x for row in m for x in row)
+
+
+def fingerprint(scene):
+    """Everything the scene's mechanism is built from, read cheaply, or None when it cannot
+    be read cheaply. An anchor parented to its joint's parent link object has the home frame
+    ``H_parent @ matrix_parent_inverse @ matrix_basis`` whatever the pose, so its local
+    matrices stand for its placement; any other anchor makes the fingerprint None."""
+    jw = scene.jointwise
+    us = scene.unit_settings
+    links = jw.links
+    parts = [jw.ground, jw.name_text, jw.file_length_unit, hash(jw.geometry_json), us.scale_length]
+    objects = {}
+    for link in links:
+        obj = link.object
+        alive = object_alive(scene, obj)
+        objects[link.name] = obj if alive else None
+        parts.append((link.name, link.object_name, alive, tuple(link.home)))
+    for it in jw.joints:
+        a = it.anchor
+        place = None
+        if a is not None and it.type != "fixed":
+            if not object_alive(scene, a):
+                return None
+            p = objects.get(it.parent)
+            if a.parent is not None and a.parent == p and a.parent_type == 'OBJECT':
+                place = (_flat(a.matrix_parent_inverse), _flat(a.matrix_basis))
+            elif a.parent is None and p is None:
+                place = _flat(a.matrix_basis)
+            else:
+                return None
+            if a.constraints:
+                return None
+        parts.append((it.name, it.joint, it.type, it.parent, it.child, it.kind, it.home, it.use_limits,
+                      it.limit_min, it.limit_max, it.lead, it.hand, it.use_axis2,
+                      tuple(it.anchor_home), a.name if a is not None else "", place))
+    for c in jw.couplings:
+        parts.append((c.name, c.leader, c.follower, c.ratio, c.offset))
+    return tuple(parts)
+
+
 def mechanism_from_scene(scene):
-    """The core ``Mechanism`` of the scene (cached while the scene's data stays the same,
-    up to float32 noise in the markers' placements)."""
-    data = mechanism_dict_from_scene(scene)
+    """The core ``Mechanism`` of the scene, cached: while the fingerprint of the scene's data
+    stays the same it is not read again; else it is rebuilt when the data changed beyond
+    float32 noise in the anchors' placements."""
     key = scene.as_pointer()
     hit = _CACHE.get(key)
+    fp = fingerprint(scene)
+    if hit is not None and fp is not None and hit[2] == fp:
+        return hit[1]
+    data = mechanism_dict_from_scene(scene)
     if hit is not None and close(hit[0], data, 1e-6):
+        _CACHE[key] = (hit[0], hit[1], fp)
         return hit[1]
     try:
         mech = core().from_dict(data, source=f"scene {scene.name!r}")
     except core().SpecError as exc:
         raise SceneError(str(exc)) from None
-    _CACHE[key] = (data, mech)
+    _CACHE[key] = (data, mech, fp)
     return mech
 
 
@@ -304,7 +375,7 @@ def apply_displacements(scene, displacements):
     ctx = bpy_context()
     view_layer = getattr(ctx, "view_layer", None)
     if view_layer is not None and getattr(ctx, "scene", None) == scene:
-        view_layer.update()  # children and markers follow at once
+        view_layer.update()  # children and anchors follow at once
 
 
 def bpy_context():

@@ -631,10 +631,11 @@ def readme_text(name, drive, a, b, frames):
               f"blend_samples/build.py).",
               f"Timeline: frames {frames[0]}-{frames[1]} hold the baked sweep of {drive} "
               f"from {a:g} to {b:g} deg (link keys, playable without jointwise).",
-              f"The value of {drive} is keyed with the same ramp, so live posing and Bake Motion "
-              f"reproduce it.",
-              "Jointwise tab in the 3D viewport's sidebar: joint values, drives, live posing, "
-              "bake, home; the scene is in millimetres (1 unit = 1 mm)."]
+              f"The value of {drive} is keyed with the same ramp, so Follow Animation and Bake "
+              f"Motion reproduce it.",
+              "Jointwise tab in the 3D viewport's sidebar: drag a joint value and the linkage "
+              "follows at once; drives, Follow Animation, bake, home; the scene is in "
+              "millimetres (1 unit = 1 mm)."]
     return "\n".join(lines) + "\n"
 
 
@@ -690,7 +691,7 @@ def build_scene(name, frames=None, trace=True):
     ra, rb = math.radians(a), math.radians(b)
     for frame, v in ((f0, ra), (f1, rb)):
         jw.joints[drive].value = v
-        scene.keyframe_insert(f"jointwise.joints[{i}].value", frame=frame)
+        scene.keyframe_insert(f"jointwise.joints[{i}].angle", frame=frame)
     from bl_ext.user_default.jointwise import animation as bk  # noqa: E402 (the installed extension)
     for fc in bk.scene_fcurves(scene):
         for kp in fc.keyframe_points:
@@ -714,7 +715,7 @@ def build_scene(name, frames=None, trace=True):
     text = bpy.data.texts.new("README")
     text.write(readme_text(name, drive, a, b, (f0, f1)))
     scene["jointwise_sample"] = name
-    jw.live = False
+    jw.live = True  # opens ready to drag and to play
     return scene
 
 

@@ -32,7 +32,7 @@ def test_import_names_the_missing_object(fresh, tmp_path):
     with pytest.raises(RuntimeError, match=r"lintel\.toml.*'rocker'.*'Rocker'"):
         bpy.ops.jointwise.mechanism_import(filepath=str(path))
     assert len(fresh.jointwise.joints) == 0
-    assert not [o for o in bpy.data.objects if o.get("jointwise_marker")]
+    assert not [o for o in bpy.data.objects if o.get("jointwise_anchor")]
 
 
 def test_import_zero_length_axis_in_file(fresh, tmp_path):
@@ -70,10 +70,10 @@ def test_deleted_link_object(fresh, tmp_path):
         bpy.ops.jointwise.bake(frame_start=1, frame_end=3)
 
 
-def test_marker_scaled_to_zero(fresh, tmp_path):
+def test_anchor_scaled_to_zero(fresh, tmp_path):
     clamp(tmp_path)
     jw = fresh.jointwise
-    jw.joints["b"].marker.scale = (0, 0, 0)
+    jw.joints["b"].anchor.scale = (0, 0, 0)
     bpy.context.view_layer.update()
     before = placements()
     with pytest.raises(RuntimeError, match=r"joint 'b'.*zero length"):
@@ -119,12 +119,15 @@ def test_bake_over_dead_point_writes_nothing_and_names_frame(fresh, tmp_path):
     jw = fresh.jointwise
     # one degree per frame from home: frame 1 = 0 deg, frame f = f - 1 deg
     jw.joints["d"].value = 0.0
-    fresh.keyframe_insert('jointwise.joints["d"].value', frame=1)
-    jw.joints["d"].value = math.radians(100)
-    fresh.keyframe_insert('jointwise.joints["d"].value', frame=101)
+    fresh.keyframe_insert('jointwise.joints["d"].angle', frame=1)
+    fresh.keyframe_insert('jointwise.joints["d"].angle', frame=101)
     for fc in ws.fcurves_of(fresh):
         for k in fc.keyframe_points:
             k.interpolation = 'LINEAR'
+        # the far key past the dead point, written on the curve (typing it poses at once,
+        # and an unreachable value is refused)
+        fc.keyframe_points[1].co[1] = math.radians(100)
+        fc.update()
     before = placements()
     with pytest.raises(RuntimeError, match=r"frame (\d+)") as info:
         bpy.ops.jointwise.bake(frame_start=1, frame_end=101)

@@ -60,9 +60,9 @@ def test_live_posing_follows_frames(fresh, tmp_path):
     objs, homes = build_clamp_by_hand(fresh)
     jw = fresh.jointwise
     mech = jointwise.load(ws.clamp_file(tmp_path))
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=1)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=1)
     jw.joints["a"].value = math.radians(360)
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=21)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=21)
     jw.live = True
     for f in (5, 11, 21, 2):
         fresh.frame_set(f)
@@ -81,12 +81,12 @@ def test_remove_joint_keeps_animation_on_its_coordinate(fresh, tmp_path):
     objs, homes = build_clamp_by_hand(fresh)
     jw = fresh.jointwise
     jw.joints["c"].value = 0.25
-    fresh.keyframe_insert('jointwise.joints["c"].value', frame=1)
+    fresh.keyframe_insert('jointwise.joints["c"].angle', frame=1)
     assert bpy.ops.jointwise.joint_remove(name="b") == {"FINISHED"}
     assert [j.name for j in jw.joints] == ["a", "c", "d"]
     paths = [fc.data_path for fc in ws.fcurves_of(fresh)]
-    assert paths == ["jointwise.joints[1].value"]
-    assert "b" not in [o.get("jointwise_marker") for o in bpy.data.objects]
+    assert paths == ["jointwise.joints[1].angle"]
+    assert "b" not in [o.get("jointwise_anchor") for o in bpy.data.objects]
 
 
 def test_undo_of_add_joint(fresh, tmp_path):
@@ -111,8 +111,8 @@ def test_coupling_add_and_export(fresh, tmp_path):
     assert tomllib.loads(out.read_text())["mechanism"]["ground"] == "body"
 
 
-def test_moving_a_marker_moves_the_joint(fresh):
-    """The marker is the joint frame: moved and turned with the ordinary tools, it changes
+def test_moving_an_anchor_moves_the_joint(fresh):
+    """The anchor is the joint frame: moved and turned with the ordinary tools, it changes
     the axis the link turns about (reference: mathutils rotation about that line)."""
     from mathutils import Matrix, Vector
     crank = ws.cube("Crank", (0.1, 0, 0), (0.05, 0.01, 0.01))
@@ -120,10 +120,10 @@ def test_moving_a_marker_moves_the_joint(fresh):
     select(crank, active=crank)
     bpy.ops.jointwise.joint_add(name="pivot", type="revolute", axis_source="GLOBAL_Z", drive=True)
     jw = fresh.jointwise
-    marker = jw.joints["pivot"].marker
+    anchor = jw.joints["pivot"].anchor
     p = Vector((0.02, -0.03, 0.01))
     axis = Vector((1, 1, 2)).normalized()
-    marker.matrix_world = Matrix.Translation(p) @ axis.to_track_quat('Z', 'Y').to_matrix().to_4x4()
+    anchor.matrix_world = Matrix.Translation(p) @ axis.to_track_quat('Z', 'Y').to_matrix().to_4x4()
     bpy.context.view_layer.update()
     jw.live = True
     jw.joints["pivot"].value = 0.8

@@ -33,7 +33,7 @@ def check_against_core(objs, homes, mech, values, unit=0.001):
     return pose
 
 
-def test_import_binds_links_and_makes_markers(fresh, tmp_path):
+def test_import_binds_links_and_makes_anchors(fresh, tmp_path):
     objs, homes, path = setup_clamp(tmp_path)
     jw = fresh.jointwise
     assert [l.name for l in jw.links] == ["frame", "crank", "coupler", "rocker"]
@@ -43,8 +43,8 @@ def test_import_binds_links_and_makes_markers(fresh, tmp_path):
     a = jw.joints["a"]
     assert a.drive and a.kind == "angle"
     assert a.value == pytest.approx(math.radians(90), abs=1e-6)
-    # marker placed at the joint point converted mm -> m, Z along the axis
-    m = np.array(jw.joints["c"].marker.matrix_world)
+    # anchor placed at the joint point converted mm -> m, Z along the axis
+    m = np.array(jw.joints["c"].anchor.matrix_world)
     assert np.allclose(m[:3, 3], ws.C * 0.001, atol=1e-7)
     assert np.allclose(m[:3, 2], [0, 0, 1], atol=1e-7)
     # nothing moved by the import
@@ -76,9 +76,9 @@ def test_interface_keyframe_path_and_bake_matches_core(fresh, tmp_path):
     mech = jointwise.load(path)
     jw = fresh.jointwise
     jw.joints["a"].value = math.radians(90)
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=1)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=1)
     jw.joints["a"].value = math.radians(450)
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=41)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=41)
     assert bpy.ops.jointwise.bake(frame_start=1, frame_end=41) == {"FINISHED"}
     jw.live = False
     for f in (1, 7, 20, 33, 41):
@@ -235,8 +235,8 @@ def test_children_follow_and_parented_links(fresh, tmp_path):
 
 def test_reimport_keeps_animation_on_names(fresh, tmp_path):
     objs, homes, path = setup_clamp(tmp_path)
-    fresh.keyframe_insert('jointwise.joints["d"].value', frame=1)
-    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[3].value"]
+    fresh.keyframe_insert('jointwise.joints["d"].angle', frame=1)
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[3].angle"]
     text = path.read_text()
     # the same file with joint d listed first: d becomes item 0
     head, rest = text.split("[joints.a]", 1)
@@ -244,7 +244,7 @@ def test_reimport_keeps_animation_on_names(fresh, tmp_path):
     path.write_text(head + "[joints.d]" + d + "\n[joints.a]" + a_to_c)
     assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
     assert fresh.jointwise.joints[0].name == "d"
-    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].angle"]
 
 
 def test_dragging_a_passive_joint_moves_the_loop(fresh, tmp_path):
@@ -291,9 +291,9 @@ def test_bake_ramp_of_a_passive_coordinate_releases_the_animated_drive(fresh, tm
     mech = jointwise.load(path)
     jw = fresh.jointwise
     jw.joints["a"].value = math.radians(90)
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=1)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=1)
     jw.joints["a"].value = math.radians(180)
-    fresh.keyframe_insert('jointwise.joints["a"].value', frame=9)
+    fresh.keyframe_insert('jointwise.joints["a"].angle', frame=9)
     d0 = mech.pose({"a": 90.0}).joints["d"]
     r = bpy.ops.jointwise.bake(frame_start=1, frame_end=9, drive="d", value_from=math.radians(d0),
                                value_to=math.radians(d0 + 8.0))
@@ -306,7 +306,7 @@ def test_bake_ramp_of_a_passive_coordinate_releases_the_animated_drive(fresh, tm
 
 
 def test_export_of_an_unchanged_import_keeps_the_file_numbers(fresh, tmp_path):
-    # float32 markers hold ~7 digits; an unchanged mechanism must export the file's own numbers
+    # float32 anchors hold ~7 digits; an unchanged mechanism must export the file's own numbers
     import tomllib
     objs, homes, path = setup_clamp(tmp_path)
     out = tmp_path / "again.toml"
@@ -316,9 +316,9 @@ def test_export_of_an_unchanged_import_keeps_the_file_numbers(fresh, tmp_path):
     for name, j in src.items():
         for key in ("point", "axis"):
             assert got[name][key] == j[key], (name, key, got[name][key], j[key])
-    # a marker moved for real is exported where it now is
+    # a anchor moved for real is exported where it now is
     jw = fresh.jointwise
-    jw.joints["d"].marker.location.x += 0.002  # 2 mm in a metre scene
+    jw.joints["d"].anchor.location.x += 0.002  # 2 mm in a metre scene
     bpy.ops.jointwise.home_set()
     assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
     moved = tomllib.loads(out.read_text())["joints"]["d"]["point"]

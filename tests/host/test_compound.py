@@ -89,7 +89,7 @@ def test_hooke_joint_and_cylindrical(fresh, tmp_path):
     assert [j.name for j in jw.joints] == ["grip", "in", "cross.1", "cross.2", "out", "sl.1", "sl.2"]
     assert jw.joints["sl.2"].kind == "length" and jw.joints["sl.1"].kind == "angle"
     mech = jointwise.load(path)
-    assert jw.joints["grip"].type == "fixed" and jw.joints["grip"].marker is None
+    assert jw.joints["grip"].type == "fixed" and jw.joints["grip"].anchor is None
     jw.live = True
     jw.joints["sl.2"].value = 0.012  # 12 mm in a metre scene
     jw.joints["sl.1"].value = math.radians(40)

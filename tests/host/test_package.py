@@ -72,10 +72,15 @@ def test_value_property_units(fresh):
     item.name = "x"
     rna = item.bl_rna.properties
     assert rna["angle"].subtype == "ANGLE" and rna["length"].subtype == "DISTANCE"
-    assert rna["value"].is_animatable
-    item.angle = 1.25
+    # the fields the joint list draws are the animatable ones; value reads whichever the
+    # coordinate's kind names (issue 10: I over the drawn field keys it)
+    assert rna["angle"].is_animatable and rna["length"].is_animatable
+    assert not rna["value"].is_animatable
+    item.kind = "angle"
+    item["angle"] = 1.25  # stored directly: no mechanism here to pose
     assert item.value == pytest.approx(1.25)
-    item.length = 0.5
+    item.kind = "length"
+    item["length"] = 0.5
     assert item.value == pytest.approx(0.5)
 
 
@@ -91,12 +96,13 @@ def test_views_and_key_button(fresh):
     fresh.frame_set(7)
     assert bpy.ops.jointwise.value_key(index=0) == {"FINISHED"}
     import workshop as ws
-    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].value"]
+    assert [fc.data_path for fc in ws.fcurves_of(fresh)] == ["jointwise.joints[0].angle"]
     with pytest.raises(RuntimeError, match="no joint value"):
         bpy.ops.jointwise.value_key(index=5)
     # a second key on the same curve, at another frame
     fresh.frame_set(19)  # (evaluates the animation: set the value after it)
-    item.value = 1.25
+    # no mechanism here to pose (a typed value would be refused and go back): stored directly
+    item["angle"] = 1.25
     assert bpy.ops.jointwise.value_key(index=0) == {"FINISHED"}
     (fc,) = ws.fcurves_of(fresh)
     assert [tuple(k.co) for k in fc.keyframe_points] == [(7.0, 0.0), (19.0, 1.25)]

@@ -18,12 +18,19 @@ class Recorder:
         return Recorder(self.log)
     row = column = box = split = _child
 
-    def label(self, text="", **k):
+    def label(self, text="", icon=None, **k):
         assert isinstance(text, str)
         self.log.append(("label", text))
+        if icon:
+            self.log.append(("icon", icon))
 
     def prop(self, data, name, **k):
         assert name in data.bl_rna.properties, f"{type(data).__name__} has no property {name!r}"
+        self.log.append(("prop", name))
+
+    def prop_search(self, data, name, search_data, search_name, **k):
+        assert name in data.bl_rna.properties, f"{type(data).__name__} has no property {name!r}"
+        assert search_name in search_data.bl_rna.properties
         self.log.append(("prop", name))
 
     def operator(self, idname, **k):

@@ -20,7 +20,7 @@ def _open(name):
 
 @pytest.mark.parametrize("frame", [9, 50, 115])
 def test_twin_shaft_solves_away_from_home(installed, frame):
-    # an overconstrained double Hooke's loop: float32 markers read through moved links
+    # an overconstrained double Hooke's loop: float32 anchors read through moved links
     # must not lock it
     import bpy
     scene = _open("heron_twin_shaft")

@@ -33,7 +33,7 @@ def test_vise_units_and_lead(fresh, tmp_path):
     assert feed.lead == pytest.approx(4.0)  # 4 mm = 4 BU at unit scale 0.001
     assert jw.joints["slide"].kind == "length"
     assert jw.joints["slide"].limit_max == pytest.approx(60.0)
-    m = np.array(jw.joints["feed"].marker.matrix_world)
+    m = np.array(jw.joints["feed"].anchor.matrix_world)
     assert np.allclose(m[:3, 3], [0, 0, 20]) and np.allclose(m[:3, 2], [1, 0, 0], atol=1e-7)
 
 
@@ -126,7 +126,7 @@ def test_file_units_into_scene_units(fresh, tmp_path, unit, metres, scale):
     assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
     jw = fresh.jointwise
     k = metres / scale
-    m = np.array(jw.joints["slide"].marker.matrix_world)
+    m = np.array(jw.joints["slide"].anchor.matrix_world)
     assert np.allclose(m[:3, 3], np.array([10, 20, 30]) * k, rtol=1e-6)
     assert jw.joints["slide"].limit_max == pytest.approx(5 * k, rel=1e-6)
     assert jw.joints["screw"].lead == pytest.approx(2 * k, rel=1e-6)
