@@ -73,7 +73,8 @@ def key_linear(scene, name, frames_values):
     jw = scene.jointwise
     for f, v in frames_values:
         jw.joints[name].value = v
-        scene.keyframe_insert(f'jointwise.joints["{name}"].value', frame=f)
+        kind = jw.joints[name].kind  # the animatable field: angle or length
+        scene.keyframe_insert(f'jointwise.joints["{name}"].{kind}', frame=f)
     for fc in ext("animation").scene_fcurves(scene):
         for k in fc.keyframe_points:
             k.interpolation = 'LINEAR'
