@@ -15,6 +15,7 @@ Conventions (the pure conversions are in :mod:`.convert`)
 """
 from __future__ import annotations
 
+import itertools
 import json
 import math
 
@@ -258,7 +259,7 @@ def clear_cache():
 
 
 def _flat(m):
-    return tuple(x for row in m for x in row)
+    return tuple(itertools.chain.from_iterable(m))
 
 
 def fingerprint(scene):
