@@ -38,8 +38,14 @@ def value_changed(item, context):
         return
     ok, msg = posing.pose_scene(scene, extra=(item.name,))
     if ok and item.name in animation.coordinate_fcurves(scene):
-        auto = getattr(scene.tool_settings, "use_keyframe_insert_auto", False)
-        if not auto:
+        if getattr(scene.tool_settings, "use_keyframe_insert_auto", False):
+            # the host's convention: with auto-keying on, a changed keyed value is keyed
+            i = scene.jointwise.joints.find(item.name)
+            animation.key_value(scene, animation.value_path(i, item.kind), scene.frame_current,
+                                float(item.value))
+            posing.set_status(scene, message=f"{msg}; keyed {item.name} at frame "
+                                             f"{scene.frame_current} (auto-keying)")
+        else:
             posing.set_status(scene, message=f"{msg}; {item.name} is keyed: the animation sets it "
                                              f"back on the next frame change (key it with I, or "
                                              f"turn on auto-keying)")

@@ -27,7 +27,8 @@ def _value(data, name):
     prop = data.bl_rna.properties[name]
     v = getattr(data, name)
     if prop.type == 'FLOAT' and prop.subtype == 'ANGLE':
-        return f"{math.degrees(v):.3g}°"
+        d = math.degrees(v)
+        return f"{0.0 if abs(d) < 5e-7 else d:.4g}°"
     if prop.type == 'FLOAT' and prop.subtype == 'DISTANCE':
         return bpy.utils.units.to_string('METRIC', 'LENGTH', v * bpy.context.scene.unit_settings.scale_length,
                                          precision=4) if bpy.context.scene.unit_settings.system != 'NONE' else f"{v:.4g}"

@@ -113,6 +113,14 @@ def test_dragging_a_keyed_value_says_the_animation_sets_it_back(fresh, tmp_path)
     fresh.keyframe_insert('jointwise.joints["a"].angle', frame=1)
     jw.joints["a"].value = math.radians(100)
     assert jw.converged and "sets it back" in jw.message
+    # auto-keying on: the changed keyed value is keyed at the current frame
+    fresh.tool_settings.use_keyframe_insert_auto = True
+    fresh.frame_set(9)
+    jw.joints["a"].value = math.radians(105)
+    (fc,) = ws.fcurves_of(fresh)
+    assert [round(k.co[0]) for k in fc.keyframe_points] == [1, 9]
+    assert fc.evaluate(9) == pytest.approx(math.radians(105), abs=1e-6)
+    assert "auto-keying" in jw.message
 
 
 def test_bake_without_a_range_uses_the_scenes(fresh, tmp_path):
