@@ -30,8 +30,11 @@ def _value(data, name):
         d = math.degrees(v)
         return f"{0.0 if abs(d) < 5e-7 else d:.4g}°"
     if prop.type == 'FLOAT' and prop.subtype == 'DISTANCE':
-        return bpy.utils.units.to_string('METRIC', 'LENGTH', v * bpy.context.scene.unit_settings.scale_length,
-                                         precision=4) if bpy.context.scene.unit_settings.system != 'NONE' else f"{v:.4g}"
+        import importlib
+        sc = importlib.import_module(MODULE + ".scene")
+        label, k = sc.display_length_of(bpy.context.scene)
+        x = v * k
+        return f"{0.0 if abs(x) < 5e-9 else x:.5g} {label}"
     if prop.type == 'POINTER':
         return v.name if v is not None else "-"
     if prop.type == 'BOOLEAN':
