@@ -296,7 +296,7 @@ def fingerprint(scene):
                       it.limit_min, it.limit_max, it.lead, it.hand, it.use_axis2,
                       tuple(it.anchor_home), a.name if a is not None else "", place))
     for c in jw.couplings:
-        parts.append((c.name, c.leader, c.follower, c.ratio, c.offset))
+        parts.append((c.name, c.leader, c.follower, c.ratio, c.offset, c.law_json))
     return tuple(parts)
 
 
