@@ -1,7 +1,19 @@
-"""The exception family of jointwise: one base class, one subclass per kind of failure."""
+"""The exception family of jointwise, and the structured reason a solve failed.
+
+One base class, one subclass per kind of failure.  Assembly failures carry a
+:class:`Reason`: what went wrong (``kind``), where (``joint``, ``loop``), the value
+asked and the bounds found, all in file units, with the unit text.  The message is
+built from those fields (:meth:`Reason.message`), so a front that shows other units
+(the Blender extension) formats its own text from the same fields.
+"""
 from __future__ import annotations
 
-__all__ = ["JointwiseError", "SpecError", "AssemblyError", "LimitError"]
+from dataclasses import dataclass
+
+__all__ = ["JointwiseError", "SpecError", "AssemblyError", "LimitError", "Reason", "KINDS"]
+
+#: Kinds of failure a :class:`Reason` names.
+KINDS = ("unreachable", "limit", "singular", "coupling", "home", "span")
 
 
 class JointwiseError(ValueError):
@@ -22,11 +34,72 @@ class SpecError(JointwiseError):
         super().__init__(": ".join(parts + [message]))
 
 
+@dataclass(frozen=True)
+class Reason:
+    """Why a pose or a step failed, in file units.
+
+    kind : one of :data:`KINDS`
+        ``"unreachable"`` (the loops cannot close with the held values), ``"limit"``
+        (a coordinate outside its joint's limits), ``"singular"``, ``"coupling"``
+        (held values contradict a coupling, or a coupling does not hold at home),
+        ``"home"`` (home does not close), ``"span"`` (held value too far to follow).
+    joint : the coordinate (or joint) concerned, if any.
+    loop : the loop concerned (the name of the joint that closes it), if any.
+    value : the value asked (held) or found (solved), file units.
+    bounds : (lo, hi) in file units: the joint's limits for ``"limit"``; for
+        ``"unreachable"`` the interval the continuation reached, as far as known
+        (``lo == hi`` when only the last closed value is known).
+    unit : unit text of ``value`` and ``bounds``.
+    error : closest closure error reached (length unit or radian), if any.
+    held : for ``"limit"``: True when the value was asked, False when the closed
+        placement put a solved coordinate there.
+    """
+    kind: str
+    joint: str | None = None
+    loop: str | None = None
+    value: float | None = None
+    bounds: tuple | None = None
+    unit: str | None = None
+    error: float | None = None
+    held: bool = True
+
+    def message(self):
+        """The core's message text (file units), built from the fields."""
+        u = f" {self.unit}" if self.unit else ""
+        if self.kind == "limit":
+            lo, hi = self.bounds
+            if self.held:
+                return f"{self.joint} = {self.value:g}{u} lies outside its limits [{lo:g}, {hi:g}]{u}"
+            return (f"infeasible: the closed placement puts {self.joint} at {self.value:.6g}{u}, "
+                    f"outside its limits [{lo:g}, {hi:g}]{u}")
+        if self.kind == "unreachable":
+            text = (f"cannot assemble: loop closed by joint {self.loop!r} stays open by {self.error:.3g} "
+                    f"(closest closure error reached)")
+            if self.joint is not None and self.bounds is not None:
+                text += (f"; the held value of {self.joint!r} is likely out of reach (the loop stays "
+                         f"closed only up to about {self.bounds[1]:.6g}{u})")
+            return text
+        parts = [self.kind]
+        if self.joint:
+            parts.append(f"joint {self.joint}")
+        if self.loop:
+            parts.append(f"loop {self.loop}")
+        if self.value is not None:
+            parts.append(f"value {self.value:g}{u}")
+        return ", ".join(parts)
+
+    def as_dict(self):
+        return {k: getattr(self, k) for k in ("kind", "joint", "loop", "value", "bounds", "unit", "error")}
+
+
 class AssemblyError(JointwiseError):
     """The mechanism cannot be assembled with the held values.
 
     Attributes
     ----------
+    reason : Reason or None
+        The structured reason; ``kind``, ``joint``, ``loop``, ``value``, ``bounds`` and
+        ``unit`` read through to it.
     loop : str or None
         Name of the loop that would not close (the joint that closes it), if any.
     error : float or None
@@ -35,11 +108,20 @@ class AssemblyError(JointwiseError):
         The joint or coordinate most likely responsible (out of reach, or a limit).
     """
 
-    def __init__(self, message, *, loop=None, error=None, joint=None):
-        self.loop = loop
-        self.error = error
-        self.joint = joint
-        super().__init__(message)
+    def __init__(self, message=None, *, reason=None, loop=None, error=None, joint=None, kind=None):
+        if reason is None:
+            reason = Reason(kind or ("limit" if isinstance(self, LimitError) else "unreachable"),
+                            joint=joint, loop=loop, error=error)
+        self.reason = reason
+        self.loop = loop if loop is not None else reason.loop
+        self.error = error if error is not None else reason.error
+        self.joint = joint if joint is not None else reason.joint
+        super().__init__(message if message is not None else reason.message())
+
+    kind = property(lambda self: self.reason.kind)
+    value = property(lambda self: self.reason.value)
+    bounds = property(lambda self: self.reason.bounds)
+    unit = property(lambda self: self.reason.unit)
 
 
 class LimitError(AssemblyError):

@@ -23,6 +23,8 @@ References
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .errors import JointwiseError
@@ -30,6 +32,7 @@ from .errors import JointwiseError
 __all__ = [
     "hat", "vee", "twist_matrix", "screw_axis", "exp3", "exp6", "log3", "log6",
     "screw_powers", "exp_unit", "adjoint", "inverse", "to_homogeneous", "from_homogeneous", "translation",
+    "cross", "compose_rp", "inverse_rp", "log_rp", "adjoint_apply", "ad", "UnitScrew",
 ]
 
 
@@ -150,6 +153,7 @@ def exp_unit(powers, theta):
 
 
 _EYE4 = np.eye(4)
+_EYE3 = np.eye(3)
 
 
 def log3(r):
@@ -185,23 +189,134 @@ def log3(r):
 
 
 def log6(t):
-    """Twist ``(w, v)`` with ``exp6(twist) == t`` (ref. 2, sec. 3.3.3.2); |w| <= pi."""
+    """Twist ``(w, v)`` with ``exp6(twist) == t`` (ref. 2, sec. 3.3.3.2); |w| <= pi.
+
+    One transform (4, 4) takes a scalar fast path; stacks go through :func:`log_rp`."""
     t = np.asarray(t, dtype=float)
+    if t.shape == (4, 4):
+        return np.concatenate(_log_one(t))
     lead = t.shape[:-2]
     t = t.reshape((-1, 4, 4))
-    w = log3(t[:, :3, :3])
-    ang = np.linalg.norm(w, axis=-1)
-    k = hat(w)
-    k2 = k @ k
+    w, v = log_rp(t[:, :3, :3], t[:, :3, 3])
+    return np.concatenate([w, v], axis=-1).reshape(lead + (6,))
+
+
+def _log_one(t):
+    """(w, v) of one rigid transform: the scalar fast path of :func:`log6`."""
+    r = t[:3, :3]
+    c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
+    if c > 0.99:  # small angle: series of the general formula, accurate to machine precision
+        sk = np.array([r[2, 1] - r[1, 2], r[0, 2] - r[2, 0], r[1, 0] - r[0, 1]]) / 2.0
+        s = math.sqrt(float(sk @ sk))
+        ang = math.asin(min(1.0, s))
+        w = sk * (ang / s if s > 1e-300 else 1.0)
+        if ang < 1e-4:
+            coef = 1 / 12 + ang * ang / 720
+        else:
+            coef = (1 - (ang / 2) / math.tan(ang / 2)) / (ang * ang)
+        p = t[:3, 3]
+        wp = np.array([w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0]])
+        wwp = np.array([w[1] * wp[2] - w[2] * wp[1], w[2] * wp[0] - w[0] * wp[2], w[0] * wp[1] - w[1] * wp[0]])
+        return w, p - 0.5 * wp + coef * wwp
+    w, v = log_rp(t[None, :3, :3], t[None, :3, 3])
+    return w[0], v[0]
+
+
+def cross(a, b):
+    """Cross products of stacked 3-vectors (broadcasting), cheaper than ``np.cross``."""
+    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
+                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
+                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
+
+
+def compose_rp(a, b):
+    """``A @ B`` of rigid motions held as (R (B, 3, 3), p (B, 3)) pairs."""
+    ra, pa = a
+    rb, pb = b
+    return ra @ rb, (ra @ pb[:, :, None])[:, :, 0] + pa
+
+
+def inverse_rp(a):
+    """Inverse of rigid motions held as (R, p) pairs."""
+    r, p = a
+    rt = np.swapaxes(r, 1, 2)
+    return rt, -(rt @ p[:, :, None])[:, :, 0]
+
+
+def log_rp(R, p):
+    """Twists (w (B, 3), v (B, 3)) of rigid motions (R (B, 3, 3), p (B, 3)), inverse of the
+    screw-motion formula (ref. 2, sec. 3.3.3.2): ``w`` from :func:`log3`'s rules (angle by
+    atan2 over the whole range, the symmetric part near pi), ``v = G^-1 p`` with
+    ``G^-1 = I - [w]/2 + (1 - (a/2) cot(a/2)) [w]^2 / a^2``."""
+    sk = 0.5 * np.stack([R[:, 2, 1] - R[:, 1, 2], R[:, 0, 2] - R[:, 2, 0], R[:, 1, 0] - R[:, 0, 1]], axis=-1)
+    s = np.sqrt((sk * sk).sum(axis=-1))
+    c = (R[:, 0, 0] + R[:, 1, 1] + R[:, 2, 2] - 1.0) / 2.0
+    ang = np.arctan2(s, c)
     small = ang < 1e-4
+    f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(s > 0, s, 1.0))
+    w = sk * f[:, None]
+    far = ang > 2.5
+    if far.any():  # near pi: the skew part vanishes; the axis comes from the symmetric part
+        w[far] = log3(R[far])
+        ang = np.sqrt((w * w).sum(axis=-1))
+        small = ang < 1e-4
     a_ = np.where(small, 1.0, ang)
-    # G^-1 = I - K/2 + (1/ang^2)(1 - (ang/2) cot(ang/2)) K^2
-    coef = np.where(small, 1 / 12 + ang**2 / 720,
-                    (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
-    ginv = np.eye(3) - k / 2 + coef[:, None, None] * k2
-    v = np.einsum("nij,nj->ni", ginv, t[:, :3, 3])
-    out = np.concatenate([w, v], axis=-1)
-    return out.reshape(lead + (6,))
+    coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
+    wp = cross(w, p)
+    return w, p - 0.5 * wp + coef[:, None] * cross(w, wp)
+
+
+def adjoint_apply(R, p, X):
+    """``Ad(R, p)`` applied to twists X: (k, 6) or (B, k, 6) -> (B, k, 6), without building
+    the 6x6 matrices: ``(R w, R v + p x R w)`` (ref. 1, eq. 2.58)."""
+    if X.ndim == 2:
+        w = (R @ X[:, :3].T).transpose(0, 2, 1)
+        v = (R @ X[:, 3:].T).transpose(0, 2, 1)
+    else:
+        w = R[:, None] @ X[:, :, :3, None]
+        v = R[:, None] @ X[:, :, 3:, None]
+        w, v = w[..., 0], v[..., 0]
+    v = v + cross(np.broadcast_to(p[:, None, :], w.shape), w)
+    return np.concatenate([w, v], axis=-1)
+
+
+def ad(x, y):
+    """Lie bracket of twists, ``[x, y] = ad_x y`` (stacks broadcast).
+
+    With ``x = (w1, v1)``, ``y = (w2, v2)``: ``ad_x y = (w1 x w2, w1 x v2 + v1 x w2)``
+    (ref. 2, definition 8.1; ref. 1, sec. 2.4); ``d/dt (Ad(T) y) = Ad(T) ad(V_body) y``."""
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    w1, v1, w2, v2 = x[..., :3], x[..., 3:], y[..., :3], y[..., 3:]
+    return np.concatenate([cross(w1, w2), cross(w1, v2) + cross(v1, w2)], axis=-1)
+
+
+class UnitScrew:
+    """A unit screw at home turned by ``q - home``: the (R, p) form of :func:`exp_unit`.
+
+    ``exp(q)`` gives stacks (R (B, 3, 3), p (B, 3)) for values q (B,):
+    ``R = I + sin t [w] + (1 - cos t) [w]^2``, ``p = t v + (1 - cos t) [w] v + (t - sin t) [w]^2 v``
+    (ref. 2, proposition 3.25); a slide (w = 0) gives ``(I, t v)``."""
+    __slots__ = ("w", "v", "K", "K2", "Kv", "K2v", "rot", "h")
+
+    def __init__(self, screw, home=0.0):
+        self.w = np.array(screw[:3], dtype=float)
+        self.v = np.array(screw[3:], dtype=float)
+        self.rot = bool(np.linalg.norm(self.w) > 0.5)
+        self.K = hat(self.w)
+        self.K2 = self.K @ self.K
+        self.Kv = self.K @ self.v
+        self.K2v = self.K2 @ self.v
+        self.h = float(home)
+
+    def exp(self, q):
+        t = q - self.h
+        if not self.rot:
+            return np.broadcast_to(_EYE3, (t.shape[0], 3, 3)), t[:, None] * self.v
+        s, c = np.sin(t), 1.0 - np.cos(t)
+        R = _EYE3 + s[:, None, None] * self.K + c[:, None, None] * self.K2
+        p = t[:, None] * self.v + c[:, None] * self.Kv + (t - s)[:, None] * self.K2v
+        return R, p
 
 
 def adjoint(t):

@@ -1,0 +1,153 @@
+"""Rates and accelerations of the loop equations: J-dot q-dot and point Jacobians.
+
+For states ``Q`` (B, n) of a mechanism, :func:`loop_bias` gives the acceleration term
+``J_dot q_dot`` of every loop of a loop group (exact, from Lie brackets of the joint
+twists, not finite differences), and :func:`point_motion` a point's position, Jacobian
+and acceleration term.  Stacked over states; B = 1 for a single pose.  The residual
+rows and Jacobian columns are those of the loop equations of :mod:`jointwise.solver`
+(Lynch & Park, *Modern Robotics*, 2017, sec. 5.1 and 7.1; Murray, Li & Sastry, 1994,
+sec. 3.2): a loop walked as steps ``(joint, sign)`` closes when ``F = T_1 ... T_n = I``;
+its Jacobian columns are the joint twists carried to the root frame by adjoints.
+
+A coupling ``follower = f(leader)`` (linear or a motion law) enters the acceleration
+equation as ``J q_ddot + bias = 0`` with ``q_ddot_follower = f' q_ddot_leader + f''
+q_dot_leader^2``: the ``f''`` term joins the right-hand side beside :func:`loop_bias`.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from . import spatial
+
+__all__ = ["loop_bias", "point_motion", "joint_motion"]
+
+
+def loop_bias(mech, block, Q, Qd):
+    """The acceleration term ``J_dot q_dot`` of every loop at its cut point, (B, 6 nl).
+
+    ``Qd`` (B, n) are coordinate rates (internal units per unit time).  The loop product
+    is a product of exponentials of constant home screws; the column of factor ``f`` is
+    ``J_f = Ad(factors left of f) Y_f`` and ``dJ_f/dq_g = ad(J_g) J_f`` for ``g`` left of
+    ``f`` (0 otherwise), so ``J_dot q_dot = sum_f [V_<f, J_f qd_f]`` with ``V_<f`` the
+    twist of the factors left of ``f`` (Lynch & Park, *Modern Robotics*, 2017, sec. 5.1.1
+    and exercise 8.x on the derivative of the space Jacobian; Murray, Li & Sastry 1994,
+    sec. 3.2).  Exact, no finite differences.  A reversed step ``E^-1`` contributes its
+    primitives in reverse order.  On the constraint manifold (``J q_dot = 0``) the
+    acceleration constraint at the cut point is ``J q_ddot + bias = 0``.
+
+    Couplings: ``Qd`` holds every coordinate's rate; a coupling ``follower = f(leader)``
+    adds ``f''(leader) leader_dot^2`` to the follower's acceleration, which a caller puts
+    on the right-hand side as ``J[:, follower] f'' leader_dot^2`` (zero for a linear
+    coupling, ``f'' = 0``).
+    """
+    m = mech
+    Q = np.asarray(Q, dtype=float)
+    Qd = np.asarray(Qd, dtype=float)
+    B = Q.shape[0]
+    joints = {jn for lp in block.loops for jn, _ in lp.steps}
+    data = {jn: joint_motion(m, jn, Q) for jn in joints}
+    out = np.zeros((B, 6 * len(block.loops)))
+    for li, loop in enumerate(block.loops):
+        R = np.broadcast_to(np.eye(3), (B, 3, 3))
+        p = np.zeros((B, 3))
+        site = None
+        V = np.zeros((B, 6))
+        acc = np.zeros((B, 6))
+        for jn, sign in loop.steps:
+            T, X = data[jn]
+            if jn == loop.name:
+                site = (R @ m.joints[loop.name].point) + p
+            R, p, tw, order = _step(R, p, T, X, sign)
+            if tw is None:
+                continue
+            start = m._slices[jn].start
+            for k in order:
+                vk = tw[:, k] * Qd[:, start + k, None]
+                acc += spatial.ad(V, vk)
+                V = V + vk
+        out[:, 6 * li:6 * li + 3] = acc[:, :3]
+        out[:, 6 * li + 3:6 * li + 6] = acc[:, 3:] - spatial.cross(site, acc[:, :3])
+    return out
+
+
+def _step(R, p, T, X, sign, twists=True):
+    """Advance the running product (R, p) by one loop or tree step.
+
+    ``T``: the joint's (R, p) displacement, ``X``: its primitive twists in the frame before
+    it; ``sign`` -1 walks the joint backwards (``T^-1``).  Returns the new (R, p), the
+    step's columns ``tw`` (B, k, 6) (None without twists) and the order of its factors in
+    the product (a reversed step's primitives come last-first)."""
+    k = X.shape[-2]
+    if sign > 0:
+        tw = spatial.adjoint_apply(R, p, X) if twists and k else None
+        R, p = spatial.compose_rp((R, p), T)
+        return R, p, tw, range(k)
+    R, p = spatial.compose_rp((R, p), spatial.inverse_rp(T))
+    tw = -spatial.adjoint_apply(R, p, X) if twists and k else None
+    return R, p, tw, reversed(range(k))
+
+
+def _path_from_ground(model, link):
+    """Steps (joint, sign) from ground to ``link`` along the spanning tree."""
+    return [(jn, sign) for _, jn, sign in reversed(model._path_up(link))]
+
+
+def point_motion(model, Q, Qd, link, at):
+    """Position, Jacobian and acceleration term of a point fixed to ``link``.
+
+    ``at``: the point at home (world); ``Q``, ``Qd`` (B, n): states and coordinate rates.
+    Returns ``(x (B, 3), Jp (B, 3, n), a0 (B, 3))``: the point's position, its velocity per
+    coordinate rate (``x_dot = Jp q_dot``) and the part of its acceleration that does not
+    depend on ``q_ddot`` (``x_ddot = Jp q_ddot + a0``).  With the link's spatial twist
+    ``V = (w, v) = sum J_f qd_f`` (columns as in :meth:`Evaluator.bias`), ``x_dot = w x x + v``
+    and ``x_ddot = Vdot_w x x + Vdot_v + w x x_dot`` (Murray, Li & Sastry 1994, sec. 2.4;
+    Lynch & Park 2017, sec. 8.2)."""
+    Q = np.asarray(Q, dtype=float)
+    Qd = np.asarray(Qd, dtype=float)
+    B, n = Q.shape
+    R = np.broadcast_to(np.eye(3), (B, 3, 3))
+    p = np.zeros((B, 3))
+    cols = np.zeros((B, 6, n))
+    V = np.zeros((B, 6))
+    acc = np.zeros((B, 6))
+    for jn, sign in _path_from_ground(model, link):
+        j = model.joints[jn]
+        T, X = joint_motion(model, jn, Q)
+        R, p, tw, order = _step(R, p, T, X, sign)
+        if tw is None:
+            continue
+        start = model._slices[j.name].start
+        for k in order:
+            cols[:, :, start + k] = tw[:, k]
+            vk = tw[:, k] * Qd[:, start + k, None]
+            acc += spatial.ad(V, vk)
+            V = V + vk
+    x = (R @ np.asarray(at, dtype=float)) + p
+    w_cols, v_cols = cols[:, :3], cols[:, 3:]
+    xc = np.broadcast_to(x[:, :, None], w_cols.shape)
+    Jp = spatial.cross(np.swapaxes(w_cols, 1, 2), np.swapaxes(xc, 1, 2)).swapaxes(1, 2) + v_cols
+    w = V[:, :3]
+    xdot = spatial.cross(w, x) + V[:, 3:]
+    a0 = spatial.cross(acc[:, :3], x) + acc[:, 3:] + spatial.cross(w, xdot)
+    return x, Jp, a0
+
+
+def joint_motion(model, jn, Q, prims=None):
+    """(R, p) stacks of joint ``jn``'s displacement and its primitive twists in the frame
+    before the joint, ``X[k] = Ad(prefix_k) S_k`` ((k, 6), or (B, k, 6) for compound joints).
+    ``prims``: the joint's :class:`spatial.UnitScrew` list, if kept by the caller."""
+    j = model.joints[jn]
+    sl = model._slices[jn]
+    B = Q.shape[0]
+    if not j.primitives:
+        return (np.broadcast_to(np.eye(3), (B, 3, 3)), np.zeros((B, 3))), np.zeros((0, 6))
+    prs = prims if prims is not None else [spatial.UnitScrew(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
+    screws = j.screws
+    T = prs[0].exp(Q[:, sl.start])
+    if len(prs) == 1:
+        return T, screws
+    cols = [np.broadcast_to(screws[0], (B, 6))]
+    for k in range(1, len(prs)):
+        cols.append(spatial.adjoint_apply(T[0], T[1], screws[k:k + 1])[:, 0])
+        T = spatial.compose_rp(T, prs[k].exp(Q[:, sl.start + k]))
+    return T, np.stack(cols, axis=1)
