@@ -45,21 +45,7 @@ _EYE4 = np.eye(4)
 
 
 def _log6_one(t):
-    """(w, v) of one rigid transform: scalar fast path of :func:`spatial.log6`."""
-    r = t[:3, :3]
-    c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
-    if c > 0.99:  # small angle: series of the general formula, accurate to machine precision
-        skew = np.array([r[2, 1] - r[1, 2], r[0, 2] - r[2, 0], r[1, 0] - r[0, 1]]) / 2.0
-        s = math.sqrt(float(skew @ skew))
-        ang = math.asin(min(1.0, s))
-        w = skew * (ang / s if s > 1e-300 else 1.0)
-        if ang < 1e-4:
-            coef = 1 / 12 + ang * ang / 720
-        else:
-            coef = (1 - (ang / 2) / math.tan(ang / 2)) / (ang * ang)
-        k = spatial.hat(w)
-        v = t[:3, 3] - 0.5 * (k @ t[:3, 3]) + coef * (k @ (k @ t[:3, 3]))
-        return w, v
+    """(w, v) of one rigid transform: :func:`spatial.log6`'s scalar fast path."""
     x = spatial.log6(t)
     return x[:3], x[3:]
 

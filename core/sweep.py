@@ -127,82 +127,13 @@ class Sweep:
 # batched evaluation of the loop equations
 # ---------------------------------------------------------------------------------------
 
-class _Prim:
-    __slots__ = ("w", "v", "K", "K2", "Kv", "K2v", "rot", "h")
-
-    def __init__(self, screw, home):
-        self.w = screw[:3].copy()
-        self.v = screw[3:].copy()
-        self.rot = bool(np.linalg.norm(self.w) > 0.5)
-        self.K = spatial.hat(self.w)
-        self.K2 = self.K @ self.K
-        self.Kv = self.K @ self.v
-        self.K2v = self.K2 @ self.v
-        self.h = float(home)
-
-    def exp(self, q):
-        """(R, p) stacks of exp([S](q - h)) for q of shape (B,); unit screws only."""
-        t = q - self.h
-        if not self.rot:
-            B = t.shape[0]
-            return np.broadcast_to(np.eye(3), (B, 3, 3)), t[:, None] * self.v
-        s, c = np.sin(t), 1.0 - np.cos(t)
-        R = np.eye(3) + s[:, None, None] * self.K + c[:, None, None] * self.K2
-        p = t[:, None] * self.v + c[:, None] * self.Kv + (t - s)[:, None] * self.K2v
-        return R, p
-
-
-def _compose(A, B):
-    """(R, p) of A @ B."""
-    ra, pa = A
-    rb, pb = B
-    return ra @ rb, (ra @ pb[:, :, None])[:, :, 0] + pa
-
-
-def _inv(A):
-    r, p = A
-    rt = np.swapaxes(r, 1, 2)
-    return rt, -(rt @ p[:, :, None])[:, :, 0]
-
-
-def _cross(a, b):
-    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
-                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
-                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
-
-
-def _log(R, p):
-    """Twist (w, v) of the rigid motion (R, p), stacked; accurate near the identity."""
-    tr = np.clip((R[:, 0, 0] + R[:, 1, 1] + R[:, 2, 2] - 1.0) / 2.0, -1.0, 1.0)
-    ang = np.arccos(tr)
-    sk = 0.5 * np.stack([R[:, 2, 1] - R[:, 1, 2], R[:, 0, 2] - R[:, 2, 0], R[:, 1, 0] - R[:, 0, 1]], axis=-1)
-    small = ang < 1e-4
-    sa = np.sin(ang)
-    f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(small, 1.0, sa))
-    w = sk * f[:, None]
-    far = ang > 3.0
-    if far.any():  # near pi: the careful logarithm of the core
-        w[far] = spatial.log3(R[far])
-        ang = np.linalg.norm(w, axis=-1)
-        small = ang < 1e-4
-    a_ = np.where(small, 1.0, ang)
-    coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
-    wp = _cross(w, p)
-    v = p - 0.5 * wp + coef[:, None] * _cross(w, wp)
-    return w, v
-
-
-def _ad_apply(R, p, X):
-    """Ad(R, p) applied to twists X: (k, 6) or (B, k, 6) -> (B, k, 6)."""
-    if X.ndim == 2:
-        w = (R @ X[:, :3].T).transpose(0, 2, 1)
-        v = (R @ X[:, 3:].T).transpose(0, 2, 1)
-    else:
-        w = R[:, None] @ X[:, :, :3, None]
-        v = R[:, None] @ X[:, :, 3:, None]
-        w, v = w[..., 0], v[..., 0]
-    v = v + _cross(np.broadcast_to(p[:, None, :], w.shape), w)
-    return np.concatenate([w, v], axis=-1)
+# the (R, p) kernel is spatial's (one copy of the rigid-motion maths)
+_Prim = spatial.UnitScrew
+_compose = spatial.compose_rp
+_inv = spatial.inverse_rp
+_cross = spatial.cross
+_log = spatial.log_rp
+_ad_apply = spatial.adjoint_apply
 
 
 class _Evaluator:
