@@ -2,14 +2,14 @@
 
 Layers, bottom to top (each module imports only from modules below it; the order is
 written once, in tests/test_addon_pure.py): convert, keys, fit, proximity (pure, no bpy)
--> properties -> scene -> animation -> posing -> live, bake -> trace, files ->
+-> properties -> scene -> animation -> posing -> live, bake -> trace, files -> drag ->
 operators -> panels, clearance -> __init__.
 """
 from __future__ import annotations
 
 import bpy
 
-from . import cam, clearance, live, operators, panels, properties
+from . import cam, clearance, drag, live, operators, panels, properties
 
 CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + clearance.CLASSES + cam.CLASSES
 
@@ -20,9 +20,11 @@ def register():
     clearance.register()
     properties.register_scene_property()
     live.register()
+    drag.register()
 
 
 def unregister():
+    drag.unregister()
     live.unregister()
     properties.unregister_scene_property()
     clearance.unregister()

@@ -9,7 +9,7 @@ import numpy as np
 from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, StringProperty
 from bpy_extras.io_utils import ExportHelper, ImportHelper
 
-from . import animation, convert, files, posing, properties, trace
+from . import animation, convert, drag, files, posing, properties, trace
 from . import bake as bk
 from . import scene as sc
 from .properties import ANCHOR_TAG, JOINT_TYPES
@@ -637,11 +637,32 @@ class JOINTWISE_OT_trace_add(_Range, _Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
+class JOINTWISE_OT_handle_add(_Base, bpy.types.Operator):
+    """Add a handle at a point measure: moving the handle drags that point, the mechanism follows"""
+    bl_idname = "jointwise.handle_add"
+    bl_label = "Add Handle"
+    measure: StringProperty(name="Point measure", default="",
+                            description="Name of a point measure of the mechanism file")
+
+    def run(self, context):
+        scene = context.scene
+        if not scene.jointwise.joints:
+            return self.fail("the scene has no mechanism: import a mechanism file first")
+        if not self.measure:
+            return self.fail("name the point measure to put a handle on")
+        try:
+            obj = drag.add_handle(scene, self.measure)
+        except _errors() as exc:
+            return self.fail(f"cannot add a handle for {self.measure!r}: {exc}")
+        self.report({'INFO'}, f"handle {obj.name!r} at {self.measure!r}: move it to drag the point"
+                    + ("" if scene.jointwise.live else " (turn live posing on)"))
+        return {'FINISHED'}
+
 
 CLASSES = (
     JOINTWISE_OT_mechanism_import, JOINTWISE_OT_mechanism_export, JOINTWISE_OT_bake,
     JOINTWISE_OT_bake_clear, JOINTWISE_OT_home_set, JOINTWISE_OT_home_restore, JOINTWISE_OT_pose,
     JOINTWISE_OT_live_toggle, JOINTWISE_OT_joint_add, JOINTWISE_OT_joint_remove,
     JOINTWISE_OT_coupling_add, JOINTWISE_OT_coupling_remove, JOINTWISE_OT_value_key,
-    JOINTWISE_OT_trace_add,
+    JOINTWISE_OT_trace_add, JOINTWISE_OT_handle_add,
 )

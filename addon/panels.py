@@ -201,6 +201,7 @@ class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
             op.measure = name
             op.frame_start = scene.frame_start
             op.frame_end = scene.frame_end
+            row.operator("jointwise.handle_add", text="Handle").measure = name
 
 
 

@@ -139,6 +139,7 @@ ADDON_LAYERS = [
     {"posing"},
     {"bake", "measures"},
     {"live", "trace", "files"},
+    {"drag"},
     {"operators"},
     {"panels", "clearance", "cam"},
     {"__init__"},

@@ -1,0 +1,290 @@
+"""Dragging: move a link object and the mechanism follows; a handle drags a point measure.
+
+A link object moved by the ordinary transform tools (or given a new ``matrix_world`` from
+Python) is a target: its new placement, as a displacement from home, goes to the core's
+``Mechanism.pose(targets=...)`` from the placement the scene shows. Every coordinate may
+move (drives included), the loops stay closed and limits hold; the solved pose is applied
+to every link, the moved one included, so it snaps onto the nearest placement the
+mechanism allows. Joint values follow, and are keyed at the current frame when auto-keying
+is on (the values a frame change holds: drives, animated values, coordinates outside
+every loop). The ground cannot be dragged: moving it moves the whole mechanism as before.
+
+A handle (``jointwise.handle_add(measure=NAME)``) is an empty at a point measure; moving it
+brings that point as close to it as the mechanism allows, then the handle snaps onto the
+point. Handles follow the point on every pose.
+
+The path of a drag: ``depsgraph_update_post`` -> which link object or handle moved (its
+placement differs from the one jointwise last gave it) -> core pose by target -> scene
+mapping -> ``matrix_world``. Active only with live posing on.
+"""
+from __future__ import annotations
+
+import bpy
+import numpy as np
+from bpy.app.handlers import persistent
+
+from . import animation, posing, properties, trace
+from . import scene as sc
+from .convert import SceneError
+
+#: Custom property of a handle object: the name of its point measure.
+HANDLE = "jointwise_handle"
+#: A placement differing from the one jointwise gave by more than this (relative to the
+#: matrix's size, well above float32 noise) is a move by the user.
+MOVED = 1e-5
+
+_shown = {}      # scene pointer -> {object name: 4x4 world matrix jointwise last gave it}
+_busy = [False]  # our own writes re-enter the handler through view_layer.update()
+
+
+# -- what the scene shows --------------------------------------------------------------------
+def _matrix(obj):
+    return sc.matrix_host_to_core(obj.matrix_world)
+
+
+def _differs(a, b):
+    return float(np.abs(a - b).max()) > MOVED * max(1.0, float(np.abs(b).max()))
+
+
+def handles(scene):
+    """Handle objects of the scene: [(object, measure name)]."""
+    return [(o, str(o[HANDLE])) for o in scene.objects if HANDLE in o]
+
+
+def record(scene):
+    """Remember every link object's and handle's placement as jointwise's own."""
+    jw = scene.jointwise
+    shown = {}
+    for link in jw.links:
+        obj = link.object
+        if link.name != jw.ground and sc.object_alive(scene, obj):
+            shown[obj.name] = _matrix(obj)
+    for obj, _ in handles(scene):
+        shown[obj.name] = _matrix(obj)
+    _shown[scene.as_pointer()] = shown
+
+
+def _expected(scene, mech):
+    """Placements of the links for the values the scene holds (no record yet)."""
+    start = posing.start_from_scene(scene, mech)
+    worlds = sc.world_matrices(scene, mech.link_poses(start.q))
+    return {obj.name: w for obj, w in worlds.values()}
+
+
+# -- handles ---------------------------------------------------------------------------------
+def point_of(scene, measure):
+    """(link, point at home in scene units) of point measure ``measure``."""
+    points = trace.point_measures(scene)
+    if measure not in points:
+        known = ", ".join(sorted(points)) or "none"
+        raise SceneError(f"no point measure named {measure!r} in the mechanism (point measures: {known})")
+    link, at = points[measure]
+    jw = scene.jointwise
+    if link not in jw.links:
+        raise SceneError(f"measure {measure!r}: its link {link!r} is not among the links")
+    k = sc.length_file_to_host(scene, jw.file_length_unit)
+    return link, np.asarray(at, dtype=float) * k
+
+
+def _add_measure(mech, measure, link, at):
+    """The scene's mechanism knows no measures: give it this point (idempotent)."""
+    from jointwise.mechanism import Measure
+    m = mech.measures.get(measure)
+    if m is None or m.type != "point" or m.a[0] != link or not np.allclose(m.a[1], at, rtol=0, atol=1e-12):
+        mech.measures[measure] = Measure(measure, "point", a=(link, tuple(float(x) for x in at)))
+
+
+def place_handles(scene, displacements=None):
+    """Put every handle on its point (displacements: {link: 4x4}, default the scene's)."""
+    hs = handles(scene)
+    if not hs:
+        return
+    from mathutils import Matrix
+    g = sc.ground_displacement(scene)
+    jw = scene.jointwise
+    for obj, measure in hs:
+        try:
+            link, at = point_of(scene, measure)
+        except SceneError:
+            continue
+        if link == jw.ground:
+            d = np.eye(4)
+        elif displacements is not None and link in displacements:
+            d = np.asarray(displacements[link])
+        else:
+            d = np.linalg.solve(g, sc.scene_displacement(scene, link))
+        p = (g @ d @ np.append(at, 1.0))[:3]
+        if np.all(np.isfinite(p)):
+            m = obj.matrix_world.copy()
+            m.translation = p.tolist()
+            obj.matrix_world = Matrix(m)
+
+
+def add_handle(scene, measure):
+    """A new handle empty at point measure ``measure``; returns the object."""
+    jw = scene.jointwise
+    link, _ = point_of(scene, measure)
+    if link == jw.ground:
+        raise SceneError(f"measure {measure!r} is on the ground link {link!r}: the ground cannot be dragged")
+    for obj, name in handles(scene):
+        if name == measure:
+            bpy.data.objects.remove(obj, do_unlink=True)
+    obj = bpy.data.objects.new(f"handle {measure}", None)
+    obj.empty_display_type = 'SPHERE'
+    k = sc.length_file_to_host(scene, "mm")
+    obj.empty_display_size = max(2.0 * k, 0.01 * _size(scene))
+    obj.show_in_front = True
+    obj[HANDLE] = measure
+    scene.collection.objects.link(obj)
+    place_handles(scene)
+    record(scene)
+    return obj
+
+
+def _size(scene):
+    try:
+        return float(sc.mechanism_from_scene(scene).size)
+    except (SceneError, sc.core().JointwiseError):
+        return 1.0
+
+
+# -- the drag ----------------------------------------------------------------------------------
+def _rigid(d):
+    """Nearest rigid motion (a scaled object leaves a scale in its displacement)."""
+    u, _, vt = np.linalg.svd(d[:3, :3])
+    r = u @ vt
+    if np.linalg.det(r) < 0:
+        u[:, -1] *= -1
+        r = u @ vt
+    out = np.eye(4)
+    out[:3, :3] = r
+    out[:3, 3] = d[:3, 3]
+    return out
+
+
+def _target(scene, mech, obj, link_name=None, measure=None):
+    g = sc.ground_displacement(scene)
+    if link_name is not None:
+        link = scene.jointwise.links[link_name]
+        d = np.linalg.solve(g, _matrix(obj)) @ sc.home_inverse(link.home)
+        return {link_name: _rigid(d)}
+    link, at = point_of(scene, measure)
+    _add_measure(mech, measure, link, at)
+    p = np.linalg.solve(g, np.append(np.asarray(obj.matrix_world.translation, dtype=float), 1.0))[:3]
+    return {measure: p}
+
+
+def key_values(scene, mech, names):
+    """Key the values ``names`` at the current frame (auto-keying)."""
+    jw = scene.jointwise
+    frame = scene.frame_current
+    for i, item in enumerate(jw.joints):
+        if item.name in names:
+            animation.key_value(scene, f"jointwise.joints[{i}].value", frame, item.value)
+
+
+def drag(scene, obj, link_name=None, measure=None):
+    """Pose the scene so that link ``link_name`` comes to ``obj``'s placement (or point
+    measure ``measure`` to handle ``obj``). Returns (ok, message); on failure the scene is
+    left as it was and the status says why."""
+    snap = posing.snapshot(scene)
+    what = link_name if link_name is not None else measure
+    _busy[0] = True
+    try:
+        mech = sc.mechanism_from_scene(scene)
+        targets = _target(scene, mech, obj, link_name, measure)
+        start = posing.start_from_scene(scene, mech)
+        pose = mech.pose(start=start, targets=targets)
+        if not pose.converged:
+            raise sc.core().AssemblyError(f"the loops did not close (closure error {pose.residual:.3g})",
+                                          error=pose.residual)
+        sc.apply_displacements(scene, pose.links)
+        sc.write_values(scene, pose.joints)
+        place_handles(scene, pose.links)
+        if scene.tool_settings.use_keyframe_insert_auto:
+            key_values(scene, mech, posing.held_values(scene, mech))
+    except (SceneError, sc.core().JointwiseError) as exc:
+        posing.restore(scene, snap)
+        msg = sc.message_core_to_host(f"dragging {what}: {exc}", scene)
+        posing.set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
+        record(scene)
+        return False, msg
+    finally:
+        _busy[0] = False
+    label, k = sc.display_length_of(scene)
+    miss = pose.target_error[what] * k
+    if pose.reached:
+        msg = f"dragged {what}: placed; loops closed"
+    else:
+        msg = (f"dragged {what}: {miss:.3g} {label} from where it was put, the nearest "
+               f"placement the joints allow")
+    posing.set_status(scene, converged=True, error=pose.residual, singular=pose.singular, message=msg)
+    for f in posing.AFTER_POSE:
+        if f is not _after_pose:
+            f(scene, mech, pose)
+    record(scene)
+    return True, msg
+
+
+@persistent
+def jointwise_drag(scene, depsgraph=None):
+    """``depsgraph_update_post``: a link object or handle moved by someone else is a drag."""
+    if _busy[0] or properties.is_quiet() or depsgraph is None:
+        return
+    jw = scene.jointwise
+    if not jw.joints or not getattr(jw, "live", True):
+        return
+    moved = set()
+    for u in depsgraph.updates:
+        if u.is_updated_transform and isinstance(u.id, bpy.types.Object):
+            moved.add(u.id.original.name)
+    if not moved:
+        return
+    shown = _shown.get(scene.as_pointer())
+    for link in jw.links:
+        obj = link.object
+        if link.name == jw.ground or obj is None or obj.name not in moved or not sc.object_alive(scene, obj):
+            continue
+        if shown is None:
+            try:
+                shown = _expected(scene, sc.mechanism_from_scene(scene))
+            except (SceneError, sc.core().JointwiseError):
+                return
+        was = shown.get(obj.name)
+        if was is None or _differs(_matrix(obj), was):
+            drag(scene, obj, link_name=link.name)
+            return
+    for obj, measure in handles(scene):
+        if obj.name not in moved:
+            continue
+        was = (shown or {}).get(obj.name)
+        if was is None or _differs(_matrix(obj), was):
+            drag(scene, obj, measure=measure)
+            return
+
+
+def _after_pose(scene, mech, pose):
+    place_handles(scene, pose.links)
+    record(scene)
+
+
+def register():
+    live_remove(bpy.app.handlers.depsgraph_update_post, jointwise_drag)
+    bpy.app.handlers.depsgraph_update_post.append(jointwise_drag)
+    if _after_pose not in posing.AFTER_POSE:
+        posing.AFTER_POSE.append(_after_pose)
+
+
+def unregister():
+    live_remove(bpy.app.handlers.depsgraph_update_post, jointwise_drag)
+    if _after_pose in posing.AFTER_POSE:
+        posing.AFTER_POSE.remove(_after_pose)
+    _shown.clear()
+
+
+def live_remove(lst, fn):
+    for h in list(lst):
+        if h is fn or (getattr(h, "__name__", None) == fn.__name__
+                       and getattr(h, "__module__", "").split(".")[-1] == fn.__module__.split(".")[-1]):
+            lst.remove(h)
+
