@@ -25,7 +25,7 @@ from bpy.app.handlers import persistent
 
 from . import animation, posing, properties, trace
 from . import scene as sc
-from .convert import SceneError
+from .convert import SceneError, home_inverse, inverse
 
 #: Custom property of a handle object: the name of its point measure.
 HANDLE = "jointwise_handle"
@@ -112,7 +112,7 @@ def place_handles(scene, displacements=None):
         elif displacements is not None and link in displacements:
             d = np.asarray(displacements[link])
         else:
-            d = np.linalg.solve(g, sc.scene_displacement(scene, link))
+            d = inverse(g) @ sc.scene_displacement(scene, link)
         p = (g @ d @ np.append(at, 1.0))[:3]
         if np.all(np.isfinite(p)):
             m = obj.matrix_world.copy()
@@ -163,15 +163,15 @@ def _rigid(d):
 
 
 def _target(scene, mech, obj, link_name=None, measure=None):
-    g = sc.ground_displacement(scene)
+    g_inv = inverse(sc.ground_displacement(scene))
     if link_name is not None:
         link = scene.jointwise.links[link_name]
-        d = np.linalg.solve(g, _matrix(obj)) @ sc.home_inverse(link.home)
+        d = g_inv @ _matrix(obj) @ home_inverse(link.home)
         return {link_name: _rigid(d)}
     link, at = point_of(scene, measure)
     _add_measure(mech, measure, link, at)
-    p = np.linalg.solve(g, np.append(np.asarray(obj.matrix_world.translation, dtype=float), 1.0))[:3]
-    return {measure: p}
+    p = g_inv @ np.append(np.asarray(obj.matrix_world.translation, dtype=float), 1.0)
+    return {measure: p[:3]}
 
 
 def key_values(scene, mech, names):
@@ -187,7 +187,6 @@ def drag(scene, obj, link_name=None, measure=None):
     """Pose the scene so that link ``link_name`` comes to ``obj``'s placement (or point
     measure ``measure`` to handle ``obj``). Returns (ok, message); on failure the scene is
     left as it was and the status says why."""
-    snap = posing.snapshot(scene)
     what = link_name if link_name is not None else measure
     _busy[0] = True
     try:
@@ -204,7 +203,12 @@ def drag(scene, obj, link_name=None, measure=None):
         if scene.tool_settings.use_keyframe_insert_auto:
             key_values(scene, mech, posing.held_values(scene, mech))
     except (SceneError, sc.core().JointwiseError) as exc:
-        posing.restore(scene, snap)
+        # nothing was placed yet (placements are checked before any is written): put the
+        # moved object back where jointwise had it
+        was = _shown.get(scene.as_pointer(), {}).get(obj.name)
+        if was is not None:
+            from mathutils import Matrix
+            obj.matrix_world = Matrix(was.tolist())
         msg = sc.message_core_to_host(f"dragging {what}: {exc}", scene)
         posing.set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         record(scene)
