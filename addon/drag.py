@@ -272,15 +272,28 @@ def _after_pose(scene, mech, pose):
     record(scene)
 
 
+@persistent
+def jointwise_drag_load_post(*_args):
+    _shown.clear()  # scene pointers of the file before mean nothing now
+
+
+_HANDLERS = (
+    (bpy.app.handlers.depsgraph_update_post, jointwise_drag),
+    (bpy.app.handlers.load_post, jointwise_drag_load_post),
+)
+
+
 def register():
-    live_remove(bpy.app.handlers.depsgraph_update_post, jointwise_drag)
-    bpy.app.handlers.depsgraph_update_post.append(jointwise_drag)
+    for lst, fn in _HANDLERS:
+        live_remove(lst, fn)
+        lst.append(fn)
     if _after_pose not in posing.AFTER_POSE:
         posing.AFTER_POSE.append(_after_pose)
 
 
 def unregister():
-    live_remove(bpy.app.handlers.depsgraph_update_post, jointwise_drag)
+    for lst, fn in _HANDLERS:
+        live_remove(lst, fn)
     if _after_pose in posing.AFTER_POSE:
         posing.AFTER_POSE.remove(_after_pose)
     _shown.clear()
