@@ -232,3 +232,19 @@ def test_handle_for_an_unknown_measure_is_refused(installed):
         bpy.ops.jointwise.handle_add(measure="sign_hok")
     assert len(bpy.data.objects) == n
     assert scene.jointwise.joints
+
+
+def test_handle_follows_a_value_pose(installed):
+    import bpy
+    import jointwise
+    scene = _open("wagtail_rocker")
+    jw = scene.jointwise
+    jw.live = True
+    mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
+    assert bpy.ops.jointwise.handle_add(measure="sign_hook") == {"FINISHED"}
+    handle = bpy.data.objects["handle sign_hook"]
+    jw.joints["crank_pin"].value = math.radians(130.0)
+    want = mech.pose({"crank_pin": 130.0}).links["coupler"] @ np.append(mech.measures["sign_hook"].a[1], 1.0)
+    assert np.allclose(_world(handle)[:3, 3], (_ground(scene) @ want)[:3], atol=2e-3)
+    # the value pose moved the handle: that is no drag
+    assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(130.0, abs=1e-4)
