@@ -8,6 +8,8 @@ to every link, the moved one included, so it snaps onto the nearest placement th
 mechanism allows. Joint values follow, and are keyed at the current frame when auto-keying
 is on (the values a frame change holds: drives, animated values, coordinates outside
 every loop). The ground cannot be dragged: moving it moves the whole mechanism as before.
+While the links play baked keys (after **Bake Motion**, until **Clear Baked Motion**) the
+keys place them and nothing is dragged.
 
 A handle (``jointwise.handle_add(measure=NAME)``) is an empty at a point measure; moving it
 brings that point as close to it as the mechanism allows, then the handle snaps onto the
@@ -15,7 +17,9 @@ point. Handles follow the point on every pose.
 
 The path of a drag: ``depsgraph_update_post`` -> which link object or handle moved (its
 placement differs from the one jointwise last gave it) -> core pose by target -> scene
-mapping -> ``matrix_world``. Active only with live posing on.
+mapping -> ``matrix_world``. Like a changed value, a drag poses at once (following the
+animation or not); keyed values go back on the next frame change unless auto-keying keys
+them.
 """
 from __future__ import annotations
 
@@ -178,9 +182,11 @@ def key_values(scene, mech, names):
     """Key the values ``names`` at the current frame (auto-keying)."""
     jw = scene.jointwise
     frame = scene.frame_current
+    curves = animation.coordinate_fcurves(scene)  # a value already animated keeps its channel
     for i, item in enumerate(jw.joints):
         if item.name in names:
-            animation.key_value(scene, f"jointwise.joints[{i}].value", frame, item.value)
+            path = curves[item.name][0].data_path if item.name in curves else animation.value_path(i, item.kind)
+            animation.key_value(scene, path, frame, item.value)
 
 
 def drag(scene, obj, link_name=None, measure=None):
@@ -200,7 +206,8 @@ def drag(scene, obj, link_name=None, measure=None):
         sc.apply_displacements(scene, pose.links)
         sc.write_values(scene, pose.joints)
         place_handles(scene, pose.links)
-        if scene.tool_settings.use_keyframe_insert_auto:
+        auto = scene.tool_settings.use_keyframe_insert_auto
+        if auto:
             key_values(scene, mech, posing.held_values(scene, mech))
     except (SceneError, sc.core().JointwiseError) as exc:
         # nothing was placed yet (placements are checked before any is written): put the
@@ -222,6 +229,8 @@ def drag(scene, obj, link_name=None, measure=None):
     else:
         msg = (f"dragged {what}: {miss:.3g} {label} from where it was put, the nearest "
                f"placement the joints allow")
+    if not auto and animation.coordinate_fcurves(scene):
+        msg += "; keyed values go back on the next frame change (turn on auto-keying to key the drag)"
     posing.set_status(scene, converged=True, error=pose.residual, singular=pose.singular, message=msg)
     for f in posing.AFTER_POSE:
         if f is not _after_pose:
@@ -236,7 +245,7 @@ def jointwise_drag(scene, depsgraph=None):
     if _busy[0] or properties.is_quiet() or depsgraph is None:
         return
     jw = scene.jointwise
-    if not jw.joints or not getattr(jw, "live", True):
+    if not jw.joints:
         return
     moved = set()
     for u in depsgraph.updates:
@@ -244,6 +253,9 @@ def jointwise_drag(scene, depsgraph=None):
             moved.add(u.id.original.name)
     if not moved:
         return
+    if any(animation.is_baked(link.object) for link in jw.links
+           if link.name != jw.ground and sc.object_alive(scene, link.object)):
+        return  # the links play baked keys (which also move them on every frame): no drag
     shown = _shown.get(scene.as_pointer())
     for link in jw.links:
         obj = link.object

@@ -654,8 +654,7 @@ class JOINTWISE_OT_handle_add(_Base, bpy.types.Operator):
             obj = drag.add_handle(scene, self.measure)
         except _errors() as exc:
             return self.fail(f"cannot add a handle for {self.measure!r}: {exc}")
-        self.report({'INFO'}, f"handle {obj.name!r} at {self.measure!r}: move it to drag the point"
-                    + ("" if scene.jointwise.live else " (turn live posing on)"))
+        self.report({'INFO'}, f"handle {obj.name!r} at {self.measure!r}: move it to drag the point")
         return {'FINISHED'}
 
 

@@ -24,12 +24,15 @@ CASES = [
 ]
 
 
-def _open(name):
+def _open(name, baked=False):
+    """A sample; its baked link keys cleared (they would place the links) unless ``baked``."""
     import bpy
     bpy.ops.wm.open_mainfile(filepath=os.path.join(SAMPLES, name + ".blend"))
     scene = bpy.context.scene
     assert scene.unit_settings.scale_length == pytest.approx(0.001)
     assert scene.jointwise.file_length_unit == "mm"
+    if not baked:
+        assert bpy.ops.jointwise.bake_clear() == {"FINISHED"}
     return scene
 
 
@@ -87,7 +90,6 @@ def test_dragging_a_link_object_matches_the_core(installed, name, link, delta, o
     import jointwise
     scene = _open(name)
     jw = scene.jointwise
-    jw.live = True
     mech = jointwise.load(os.path.join(SAMPLES, name + ".toml"))
     start = _values_file(scene, mech)
     drive = mech.driven[0]
@@ -109,7 +111,6 @@ def test_dragging_twice_follows_on(installed):
     import jointwise
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
-    jw.live = True
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
     obj = jw.links["coupler"].object
     for k in range(1, 6):
@@ -124,7 +125,6 @@ def test_dragging_twice_follows_on(installed):
 def test_the_moved_link_snaps_onto_the_nearest_placement(installed):
     scene = _open("linnet_vise")
     jw = scene.jointwise
-    jw.live = True
     jaw = jw.links["jaw"].object
     before = _world(jaw)
     aim = before.copy()
@@ -141,7 +141,6 @@ def test_the_moved_link_snaps_onto_the_nearest_placement(installed):
 def test_ground_cannot_be_dragged(installed):
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
-    jw.live = True
     before = {it.name: float(it.value) for it in jw.joints}
     frame = jw.links[jw.ground].object
     m = _world(frame)
@@ -151,7 +150,9 @@ def test_ground_cannot_be_dragged(installed):
     assert not jw.message.startswith("dragged")
 
 
-def test_no_drag_without_live_posing(installed):
+def test_dragging_poses_whether_following_the_animation_or_not(installed):
+    # like a changed value, a drag poses at once; "live" only says whether frame changes
+    # pose from the animation
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
     jw.live = False
@@ -160,8 +161,8 @@ def test_no_drag_without_live_posing(installed):
     m = _world(obj)
     m[:3, 3] += (2.0, 0.0, 0.0)
     _set_world(obj, m)
-    assert float(jw.joints["crank_pin"].value) == before
-    assert np.allclose(_world(obj), m, atol=1e-4)
+    assert float(jw.joints["crank_pin"].value) != before
+    assert jw.message.startswith("dragged coupler"), jw.message
 
 
 def test_auto_keying_keys_the_held_values(installed):
@@ -169,7 +170,6 @@ def test_auto_keying_keys_the_held_values(installed):
     import jointwise
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
-    jw.live = True
     scene.frame_set(30)
     scene.tool_settings.use_keyframe_insert_auto = True
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
@@ -177,14 +177,16 @@ def test_auto_keying_keys_the_held_values(installed):
     d = np.array(mech.pose({"crank_pin": start["crank_pin"] + 20.0}, start=start).links["rocker"])
     _set_world(jw.links["rocker"].object, _ground(scene) @ d @ _home(jw.links["rocker"]))
     scene.tool_settings.use_keyframe_insert_auto = False
-    i = list(jw.joints.keys()).index("crank_pin")
-    path = f"jointwise.joints[{i}].value"
-    ad = scene.animation_data
-    assert ad is not None and ad.action is not None
     from bl_ext.user_default.jointwise import animation
-    curves = [fc for fc in animation.scene_fcurves(scene) if fc.data_path == path]
-    assert curves, "no F-curve for the drive"
-    assert curves[0].evaluate(30) == pytest.approx(float(jw.joints["crank_pin"].value), abs=1e-5)
+    curves = animation.coordinate_fcurves(scene)
+    assert "crank_pin" in curves, "no F-curve for the drive"
+    dragged = float(jw.joints["crank_pin"].last)
+    assert math.degrees(dragged) == pytest.approx(start["crank_pin"] + 20.0, abs=1e-3)
+    assert curves["crank_pin"][0].evaluate(30) == pytest.approx(dragged, abs=1e-5)
+    # the key holds the drag over a frame change
+    scene.frame_set(31)
+    scene.frame_set(30)
+    assert float(jw.joints["crank_pin"].value) == pytest.approx(dragged, abs=1e-5)
     assert bpy.context.scene is scene
 
 
@@ -193,7 +195,6 @@ def test_handle_drags_a_point_measure(installed):
     import jointwise
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
-    jw.live = True
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
     at = np.array(mech.measures["sign_hook"].a[1])
     assert bpy.ops.jointwise.handle_add(measure="sign_hook") == {"FINISHED"}
@@ -239,7 +240,6 @@ def test_handle_follows_a_value_pose(installed):
     import jointwise
     scene = _open("wagtail_rocker")
     jw = scene.jointwise
-    jw.live = True
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
     assert bpy.ops.jointwise.handle_add(measure="sign_hook") == {"FINISHED"}
     handle = bpy.data.objects["handle sign_hook"]
@@ -248,3 +248,16 @@ def test_handle_follows_a_value_pose(installed):
     assert np.allclose(_world(handle)[:3, 3], (_ground(scene) @ want)[:3], atol=2e-3)
     # the value pose moved the handle: that is no drag
     assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(130.0, abs=1e-4)
+
+
+def test_baked_links_are_not_dragged(installed):
+    # the baked keys place the links on every frame: moving one drags nothing
+    scene = _open("wagtail_rocker", baked=True)
+    jw = scene.jointwise
+    before = {it.name: float(it.value) for it in jw.joints}
+    obj = jw.links["coupler"].object
+    m = _world(obj)
+    m[:3, 3] += (2.0, 0.0, 0.0)
+    _set_world(obj, m)
+    assert {it.name: float(it.value) for it in jw.joints} == before
+    assert not jw.message.startswith("dragged")
