@@ -130,11 +130,12 @@ def main():
             jw = scene.jointwise
             obj = jw.links[link].object
             mats = _targets(name, link, step, off)
-            bpy.app.handlers.depsgraph_update_post.remove(_drag_handler())
+            handler = _drag_handler()
+            bpy.app.handlers.depsgraph_update_post.remove(handler)
             try:
                 hosts += _time_moves(obj, mats)
             finally:
-                bpy.app.handlers.depsgraph_update_post.append(_drag_handler())
+                bpy.app.handlers.depsgraph_update_post.append(handler)
             _open(name)
             scene = bpy.context.scene
             jw = scene.jointwise
