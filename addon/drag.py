@@ -16,7 +16,9 @@ brings that point as close to it as the mechanism allows, then the handle snaps 
 point. Handles follow the point on every pose.
 
 The path of a drag: ``depsgraph_update_post`` -> which link object or handle moved (its
-placement differs from the one jointwise last gave it) -> core pose by target -> scene
+placement differs from the one jointwise last gave it; jointwise's own placements are
+written quietly, and several links moved at once are no drag but a new record) -> core
+pose by target -> scene
 mapping -> ``matrix_world``. Like a changed value, a drag poses at once (following the
 animation or not); keyed values go back on the next frame change unless auto-keying keys
 them.
@@ -257,6 +259,7 @@ def jointwise_drag(scene, depsgraph=None):
            if link.name != jw.ground and sc.object_alive(scene, link.object)):
         return  # the links play baked keys (which also move them on every frame): no drag
     shown = _shown.get(scene.as_pointer())
+    dragged = []
     for link in jw.links:
         obj = link.object
         if link.name == jw.ground or obj is None or obj.name not in moved or not sc.object_alive(scene, obj):
@@ -268,8 +271,13 @@ def jointwise_drag(scene, depsgraph=None):
                 return
         was = shown.get(obj.name)
         if was is None or _differs(_matrix(obj), was):
-            drag(scene, obj, link_name=link.name)
-            return
+            dragged.append((obj, link.name))
+    if len(dragged) == 1:
+        drag(scene, dragged[0][0], link_name=dragged[0][1])
+        return
+    if dragged:  # several links moved at once (an operator, animation removed): no drag
+        record(scene)
+        return
     for obj, measure in handles(scene):
         if obj.name not in moved:
             continue

@@ -371,12 +371,13 @@ def apply_displacements(scene, displacements):
     for name, (obj, w) in worlds.items():
         if not np.all(np.isfinite(w)):
             raise SceneError(f"link {name!r}: the solved placement is not finite")
-    for name, (obj, w) in worlds.items():
-        obj.matrix_world = matrix_core_to_host(w)
-    ctx = bpy_context()
-    view_layer = getattr(ctx, "view_layer", None)
-    if view_layer is not None and getattr(ctx, "scene", None) == scene:
-        view_layer.update()  # children and anchors follow at once
+    with properties.quiet():  # jointwise's own placements: not a drag (see drag.py)
+        for name, (obj, w) in worlds.items():
+            obj.matrix_world = matrix_core_to_host(w)
+        ctx = bpy_context()
+        view_layer = getattr(ctx, "view_layer", None)
+        if view_layer is not None and getattr(ctx, "scene", None) == scene:
+            view_layer.update()  # children and anchors follow at once
 
 
 def bpy_context():
