@@ -9,9 +9,10 @@ from __future__ import annotations
 
 import bpy
 
-from . import cam, clearance, drag, live, operators, panels, properties
+from . import axes, bake, cam, clearance, drag, edit, live, measures, operators, panels, posing, properties
 
-CLASSES = properties.CLASSES + operators.CLASSES + panels.CLASSES + clearance.CLASSES + cam.CLASSES
+CLASSES = (properties.CLASSES + operators.CLASSES + axes.CLASSES + edit.CLASSES + measures.CLASSES
+           + panels.CLASSES + clearance.CLASSES + cam.CLASSES)
 
 
 def register():
@@ -21,10 +22,19 @@ def register():
     properties.register_scene_property()
     live.register()
     drag.register()
+    posing.AFTER_POSE.append(measures.refresh)
+    bake.EXTRA_CHANNELS.append(measures.bake_channels)
+    edit.register()
+    measures.register()
 
 
 def unregister():
     drag.unregister()
+    measures.unregister()
+    edit.unregister()
+    for hooks, f in ((bake.EXTRA_CHANNELS, measures.bake_channels), (posing.AFTER_POSE, measures.refresh)):
+        while f in hooks:
+            hooks.remove(f)
     live.unregister()
     properties.unregister_scene_property()
     clearance.unregister()

@@ -69,24 +69,40 @@ def coordinate_fcurves(scene):
     return out
 
 
-def key_value(scene, data_path, frame, value):
-    """One key on the scene's own action (the joint-value key button), written on the
-    F-curve directly: the slotted action, its channelbag and the curve are made when
-    missing, as the host's own keying would."""
-    ad = scene.animation_data or scene.animation_data_create()
+def scene_curves(scene, create=True):
+    """The F-curve collection of the scene's own action (joint-value keys, measures): the
+    slotted action, its channelbag and slot are made when missing and ``create``, as the
+    host's own keying would (None when missing and not ``create``)."""
+    ad = scene.animation_data
+    if ad is None:
+        if not create:
+            return None
+        ad = scene.animation_data_create()
     action = ad.action
     if action is None:
+        if not create:
+            return None
         action = ad.action = bpy.data.actions.new(f"{scene.name} joint values")
     if not len(getattr(action, "layers", ())) and len(getattr(action, "fcurves", ())):
-        curves = action.fcurves  # a 4.x legacy action keeps its F-curves on itself
-    else:
-        slot = getattr(ad, "action_slot", None)
-        if slot is None:
-            slot = action.slots.new(id_type='SCENE', name=scene.name)
-            ad.action_slot = slot
-        if not len(action.layers):
-            action.layers.new("Layer").strips.new(type='KEYFRAME')
-        curves = action.layers[0].strips[0].channelbag(slot, ensure=True).fcurves
+        return action.fcurves  # a 4.x legacy action keeps its F-curves on itself
+    slot = getattr(ad, "action_slot", None)
+    if slot is None:
+        if not create:
+            return None
+        slot = action.slots.new(id_type='SCENE', name=scene.name)
+        ad.action_slot = slot
+    if not len(action.layers):
+        if not create:
+            return None
+        action.layers.new("Layer").strips.new(type='KEYFRAME')
+    bag = action.layers[0].strips[0].channelbag(slot, ensure=create)
+    return bag.fcurves if bag is not None else None
+
+
+def key_value(scene, data_path, frame, value):
+    """One key on the scene's own action (the joint-value key button), written on the
+    F-curve directly (see :func:`scene_curves`)."""
+    curves = scene_curves(scene)
     fc = next((f for f in curves if f.data_path == data_path and f.array_index == 0), None)
     if fc is None:
         fc = curves.new(data_path, index=0)
@@ -160,7 +176,8 @@ def _bags(action):
 
 # -- writing keys ---------------------------------------------------------------------------
 
-def _linear_value(fc):
+def linear_interpolation(fc):
+    """The enum value of 'LINEAR' for ``keyframe_points.foreach_set`` (found once)."""
     global LINEAR
     if LINEAR is None:
         kps = fc.keyframe_points
@@ -218,7 +235,7 @@ def write_channels(obj, frames, channels):
         fc.keyframe_points.add(n)
         co[1::2] = values
         fc.keyframe_points.foreach_set("co", co)
-        lin = _linear_value(fc)
+        lin = linear_interpolation(fc)
         fc.keyframe_points.foreach_set("interpolation", np.full(n, lin, dtype=np.int32))
         fc.update()
     return action

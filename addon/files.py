@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from . import animation, properties
+from . import animation, measures, properties
 from .properties import ANCHOR_TAG
 from . import scene as sc
 from .convert import (METRES, SceneError, angle_file_to_host, file_number, keep_file_geometry,
@@ -61,50 +61,51 @@ def import_mechanism(scene, mech, objects, anchor_collection):
         link.home = matrix_core_to_stored(sc.matrix_host_to_core(obj.matrix_world) if obj else np.eye(4))
     size = max(float(getattr(mech, "size", 1.0)) * k, 1e-6)
     anchors = []
-    for jname, j in mech.joints.items():
-        src = data["joints"][jname]
-        anchor = None
-        if j.type != "fixed":
-            anchor = bpy.data.objects.new(f"joint {jname}", None)
-            anchor.empty_display_type = 'ARROWS'
-            anchor.empty_display_size = 0.15 * size
-            anchor[ANCHOR_TAG] = jname
-            anchor_collection.objects.link(anchor)
-            frame = np.eye(4)
-            frame[:3, :3] = orientation(j.axis, j.axis2)
-            frame[:3, 3] = np.asarray(j.point, dtype=float) * k
-            anchor.matrix_world = sc.matrix_core_to_host(frame)
-            parent_obj = objects.get(j.parent)
-            if parent_obj is not None:
-                anchor.parent = parent_obj
-                anchor.matrix_parent_inverse = parent_obj.matrix_world.inverted()
+    with properties.quiet():  # items written as a whole: no per-field hooks
+        for jname, j in mech.joints.items():
+            src = data["joints"][jname]
+            anchor = None
+            if j.type != "fixed":
+                anchor = bpy.data.objects.new(f"joint {jname}", None)
+                anchor.empty_display_type = 'ARROWS'
+                anchor.empty_display_size = 0.15 * size
+                anchor[ANCHOR_TAG] = jname
+                anchor_collection.objects.link(anchor)
+                frame = np.eye(4)
+                frame[:3, :3] = orientation(j.axis, j.axis2)
+                frame[:3, 3] = np.asarray(j.point, dtype=float) * k
                 anchor.matrix_world = sc.matrix_core_to_host(frame)
-            anchors.append(anchor)
-        kinds = list(j.kinds) or ["angle"]
-        for i, c in enumerate(j.coordinates or [jname]):  # a fixed joint keeps one item
-            item = jw.joints.add()
-            item.name = c
-            item.joint = jname
-            item.slot = i + 1
-            item.type = j.type
-            item.parent = j.parent
-            item.child = j.child
-            item.kind = kinds[i]
-            f = k if kinds[i] == "length" else 1.0  # core holds radians already
-            item.home = float(j.home[i]) * f if i < len(j.home) else 0.0
-            lim = j.limits[i] if i < len(j.limits) else None  # noqa: E501
-            item.use_limits = lim is not None
-            if lim is not None:
-                item.limit_min, item.limit_max = float(lim[0]) * f, float(lim[1]) * f
-            item.drive = bool(j.drive)
-            item.anchor = anchor
-            item.use_axis2 = "axis2" in src
-            if j.type == "helical":
-                item.lead = abs(float(j.lead)) * k
-                item.hand = "left" if float(j.lead) < 0 or src.get("hand") == "left" else "right"
-                item.thread = str(src.get("thread", ""))
-            if anchor is not None:
-                item.anchor_home = matrix_core_to_stored(frame)
+                parent_obj = objects.get(j.parent)
+                if parent_obj is not None:
+                    anchor.parent = parent_obj
+                    anchor.matrix_parent_inverse = parent_obj.matrix_world.inverted()
+                    anchor.matrix_world = sc.matrix_core_to_host(frame)
+                anchors.append(anchor)
+            kinds = list(j.kinds) or ["angle"]
+            for i, c in enumerate(j.coordinates or [jname]):  # a fixed joint keeps one item
+                item = jw.joints.add()
+                item.name = c
+                item.joint = jname
+                item.slot = i + 1
+                item.type = j.type
+                item.parent = j.parent
+                item.child = j.child
+                item.kind = kinds[i]
+                f = k if kinds[i] == "length" else 1.0  # core holds radians already
+                item.home = float(j.home[i]) * f if i < len(j.home) else 0.0
+                lim = j.limits[i] if i < len(j.limits) else None  # noqa: E501
+                item.use_limits = lim is not None
+                if lim is not None:
+                    item.limit_min, item.limit_max = float(lim[0]) * f, float(lim[1]) * f
+                item.drive = bool(j.drive)
+                item.anchor = anchor
+                item.use_axis2 = "axis2" in src
+                if j.type == "helical":
+                    item.lead = abs(float(j.lead)) * k
+                    item.hand = "left" if float(j.lead) < 0 or src.get("hand") == "left" else "right"
+                    item.thread = str(src.get("thread", ""))
+                if anchor is not None:
+                    item.anchor_home = matrix_core_to_stored(frame)
     with properties.quiet():
         for item in jw.joints:
             item.value = item.last = item.home
@@ -123,6 +124,7 @@ def import_mechanism(scene, mech, objects, anchor_collection):
     # animation of joint values addresses items by index: keep it on the same names
     new_index = {it.name: i for i, it in enumerate(jw.joints)}
     animation.remap_coordinate_paths(scene, {i: new_index.get(n) for i, n in enumerate(old_names)})
+    measures.import_from(scene, mech)
     sc.clear_cache()
     return anchors
 
@@ -215,13 +217,9 @@ def export_dict(scene, length_unit=None, angle_unit=None):
             out["couplings"][c.name] = {"leader": c.leader, "follower": c.follower,
                                         "ratio": file_number(tidy(c.ratio * ff / lf), exact.get("ratio")),
                                         "offset": file_number(tidy(c.offset * ff), exact.get("offset"))}
-    if jw.measures_json:
-        try:
-            measures = json.loads(jw.measures_json)
-        except ValueError:
-            measures = {}
-        if measures and lu == jw.file_length_unit:
-            out["measures"] = measures
+    ms = measures.export_entries(scene, lu)
+    if ms:
+        out["measures"] = ms
     return out
 
 

@@ -9,7 +9,7 @@ import numpy as np
 from bpy.props import BoolProperty, EnumProperty, FloatProperty, IntProperty, StringProperty
 from bpy_extras.io_utils import ExportHelper, ImportHelper
 
-from . import animation, convert, drag, files, posing, properties, trace
+from . import animation, convert, drag, files, measures, posing, properties, trace
 from . import bake as bk
 from . import scene as sc
 from .properties import ANCHOR_TAG, JOINT_TYPES
@@ -210,6 +210,7 @@ class JOINTWISE_OT_bake_clear(_Base, bpy.types.Operator):
             if sc.object_alive(scene, link.object):
                 n += animation.clear(link.object)
         bk.forget_baked_values(scene)
+        measures.clear_keys(scene)
         msg = f"cleared baked motion of {n} objects"
         posing.set_status(scene, message=msg)
         self.report({'INFO'}, msg)

@@ -5,7 +5,7 @@ import bpy
 
 from . import animation, convert
 from . import scene as sc
-from . import trace
+from . import measures, trace
 from .convert import SceneError
 
 
@@ -104,7 +104,14 @@ class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
         if it.name in held:
             box.label(text="held: " + ("keyed, the animation sets it" if it.name in keyed else "a drive"),
                       icon='LOCKED')
+        row = box.row(align=True)
+        row.prop(it, "type", text="")
+        row.prop_search(it, "parent", jw, "links", text="")
+        row.prop_search(it, "child", jw, "links", text="")
         box.prop(it, "anchor")
+        row = box.row(align=True)
+        row.operator("jointwise.axis_from_selection", icon='MESH_CYLINDER')
+        row.operator("jointwise.axes_tidy", icon='SNAP_PERPENDICULAR')
         if it.type == "helical":
             row = box.row(align=True)
             row.prop(it, "lead")
@@ -205,6 +212,47 @@ class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
 
 
 
+class JOINTWISE_UL_measures(bpy.types.UIList):
+    """One row per measure: name, kind, live value in display units."""
+
+    def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
+        icons = {'POINT': 'EMPTY_SINGLE_ARROW', 'DISTANCE': 'DRIVER_DISTANCE', 'ANGLE': 'DRIVER_ROTATIONAL_DIFFERENCE',
+                 'RATE': 'DRIVER_TRANSFORM'}
+        row = layout.row(align=True)
+        row.label(text=item.name, icon=icons.get(item.kind, 'DOT'))
+        row.label(text=measures.format_measure(context.scene, item))
+
+
+class JOINTWISE_PT_measures(_Tab, bpy.types.Panel):
+    """The mechanism's measures with their values at the pose on screen; a bake keys them."""
+    bl_label = "Measures"
+
+    def draw(self, context):
+        jw = context.scene.jointwise
+        layout = self.layout
+        row = layout.row()
+        row.template_list("JOINTWISE_UL_measures", "", jw, "measures", jw, "measure_index", rows=3)
+        col = row.column(align=True)
+        col.operator("jointwise.measure_add", text="", icon='ADD')
+        col.operator("jointwise.measure_remove", text="", icon='REMOVE')
+        if not 0 <= jw.measure_index < len(jw.measures):
+            return
+        m = jw.measures[jw.measure_index]
+        box = layout.box()
+        box.prop(m, "kind")
+        if m.kind == 'RATE':
+            box.prop_search(m, "of", jw, "joints")
+            box.prop_search(m, "per", jw, "joints")
+        else:
+            box.prop_search(m, "link_a", jw, "links")
+            box.prop(m, "axis_a" if m.kind == 'ANGLE' else "at_a")
+            if m.kind != 'POINT':
+                box.prop_search(m, "link_b", jw, "links")
+                box.prop(m, "axis_b" if m.kind == 'ANGLE' else "at_b")
+        if m.problem:
+            box.label(text=m.problem, icon='ERROR')
+
+
 CLASSES = (JOINTWISE_UL_joints, JOINTWISE_UL_couplings, JOINTWISE_PT_mechanism,
            JOINTWISE_PT_joints, JOINTWISE_PT_links, JOINTWISE_PT_couplings, JOINTWISE_PT_bake,
-           JOINTWISE_PT_traces)
+           JOINTWISE_PT_traces, JOINTWISE_UL_measures, JOINTWISE_PT_measures)

@@ -70,6 +70,16 @@ def is_quiet():
     return _quiet[0] > 0
 
 
+JOINT_CHANGED = []  # set by ``edit.register``: f(item, context, prop) when type, parent or child is set
+
+
+def _joint_update(prop):
+    def update(self, context):
+        for f in JOINT_CHANGED:
+            f(self, context, prop)
+    return update
+
+
 def _value_update(self, context):
     if _quiet[0] or getattr(self.id_data, "is_evaluated", False):
         return
@@ -148,10 +158,13 @@ class JointwiseCoordinate(bpy.types.PropertyGroup):
     # joint-level data (the first coordinate of a joint counts)
     joint: StringProperty(name="Joint", description="Name of the joint this coordinate belongs to")
     slot: IntProperty(name="Slot", default=1, min=1, description="1-based index within the joint")
-    type: EnumProperty(name="Type", items=JOINT_TYPES, default="revolute",
-                       description="How the child moves against the parent")
-    parent: StringProperty(name="Parent link", description="Link the joint's anchor is fixed to")
-    child: StringProperty(name="Child link", description="Link the joint moves")
+    type: EnumProperty(name="Type", items=JOINT_TYPES, default="revolute", update=_joint_update("type"),
+                       description="How the child moves against the parent; changing it remakes the "
+                                   "joint's coordinates when their kinds change")
+    parent: StringProperty(name="Parent link", update=_joint_update("parent"),
+                           description="Link the joint's anchor is fixed to")
+    child: StringProperty(name="Child link", update=_joint_update("child"),
+                          description="Link the joint moves")
     anchor: PointerProperty(name="Anchor", type=bpy.types.Object,
                             description="Empty whose Z axis is the joint axis and whose origin "
                                         "is the joint point (moves with the parent link)")
@@ -227,6 +240,44 @@ class JointwiseCoupling(bpy.types.PropertyGroup):
                              description="A motion law's keys (JSON, host units); empty for follower = ratio * leader + offset")
 
 
+MEASURE_KINDS = (
+    ('POINT', "Point", "World position of a point fixed to a link"),
+    ('DISTANCE', "Distance", "Distance between two points fixed to links"),
+    ('ANGLE', "Angle", "Angle between two directions fixed to links"),
+    ('RATE', "Rate", "Speed ratio d(of)/d(per) along the motion"),
+)
+
+
+class JointwiseMeasure(bpy.types.PropertyGroup):
+    """One measure (the item name is the measure name); definition in host units, at home.
+    ``value`` and ``location`` are refreshed on every pose and keyed by a bake (see
+    ``measures``)."""
+    kind: EnumProperty(name="Kind", items=MEASURE_KINDS, default='POINT',
+                       description="What is measured")
+    value: FloatProperty(name="Value", precision=6, options={'ANIMATABLE'},
+                         description="Scene length (point: distance moved from home; distance), "
+                                     "radians (angle) or rate in host units")
+    location: FloatVectorProperty(name="Location", size=3, subtype='TRANSLATION', unit='LENGTH',
+                                  options={'ANIMATABLE'},
+                                  description="World position of a point measure (scene units)")
+    problem: StringProperty(name="Problem", default="",
+                            description="Why the measure has no value (empty when it has one)")
+    link_a: StringProperty(name="Link A", description="Link carrying point or direction a")
+    link_b: StringProperty(name="Link B", description="Link carrying point or direction b")
+    at_a: FloatVectorProperty(name="Point A", size=3, subtype='TRANSLATION', unit='LENGTH',
+                              description="Point a: world position at home (scene units)")
+    at_b: FloatVectorProperty(name="Point B", size=3, subtype='TRANSLATION', unit='LENGTH',
+                              description="Point b: world position at home (scene units)")
+    axis_a: FloatVectorProperty(name="Direction A", size=3, subtype='XYZ', default=(1.0, 0.0, 0.0),
+                                description="Direction a: world direction at home")
+    axis_b: FloatVectorProperty(name="Direction B", size=3, subtype='XYZ', default=(1.0, 0.0, 0.0),
+                                description="Direction b: world direction at home")
+    of: StringProperty(name="Of", description="Coordinate whose rate is measured")
+    per: StringProperty(name="Per", description="Coordinate the rate is measured per")
+    source: StringProperty(name="File entry", options={'HIDDEN'},
+                           description="The imported file's entry, written back while unchanged")
+
+
 class JointwiseMechanism(bpy.types.PropertyGroup):
     name_text: StringProperty(name="Mechanism", default="", description="Name of the mechanism")
     ground: StringProperty(name="Ground link", default="ground",
@@ -234,6 +285,8 @@ class JointwiseMechanism(bpy.types.PropertyGroup):
     links: CollectionProperty(type=JointwiseLink)
     joints: CollectionProperty(type=JointwiseCoordinate)
     couplings: CollectionProperty(type=JointwiseCoupling)
+    measures: CollectionProperty(type=JointwiseMeasure, description="Measures listed in the Measures panel")
+    measure_index: IntProperty(name="Active Measure", default=0, description="The measure picked in the list")
     joint_index: IntProperty(name="Active joint", default=0, description="Joint shown below the list")
     coupling_index: IntProperty(name="Active coupling", default=0, description="Coupling selected in the list")
     live: BoolProperty(name="Follow Animation", default=True, update=_live_update,
@@ -266,7 +319,7 @@ class JointwiseMechanism(bpy.types.PropertyGroup):
                                              "shown while its keys play")
 
 
-CLASSES = (JointwiseCoordinate, JointwiseLink, JointwiseCoupling, JointwiseMechanism)
+CLASSES = (JointwiseCoordinate, JointwiseLink, JointwiseCoupling, JointwiseMeasure, JointwiseMechanism)
 
 
 def register_scene_property():

@@ -32,8 +32,13 @@ COLOUR = (0.85, 0.25, 0.55, 1.0)
 
 
 def point_measures(scene):
-    """{name: (link, at)} of the point measures of the imported file (file units)."""
-    text = scene.jointwise.measures_json
+    """{name: (link, at)} of the scene's point measures (``scene.jointwise.measures``, the
+    file's and those added in the UI): ``at`` the world position at home, scene units."""
+    jw = scene.jointwise
+    if len(jw.measures):
+        return {m.name: (m.link_a, [float(v) for v in m.at_a]) for m in jw.measures if m.kind == 'POINT'}
+    k = sc.length_file_to_host(scene, jw.file_length_unit)  # a file saved before the list
+    text = jw.measures_json
     try:
         measures = json.loads(text) if text else {}
     except ValueError:
@@ -42,7 +47,7 @@ def point_measures(scene):
     out = {}
     for name, m in measures.items():
         if isinstance(m, dict) and m.get("type") == "point":
-            out[name] = (str(m["link"]), [float(v) for v in m["at"]])
+            out[name] = (str(m["link"]), [float(v) * k for v in m["at"]])
     return out
 
 
@@ -60,8 +65,7 @@ def trace_points(scene, measure, frame_start, frame_end, drive="", value_from=0.
     link, at = points[measure]
     if link not in jw.links:
         raise SceneError(f"measure {measure!r}: its link {link!r} is not among the links")
-    k = sc.length_file_to_host(scene, jw.file_length_unit)
-    p = np.append(np.asarray(at, dtype=float) * k, 1.0)
+    p = np.append(np.asarray(at, dtype=float), 1.0)
     solved = bk.solve_frames(scene, frame_start, frame_end, drive, value_from, value_to)
     frames = solved.frames
     fail = solved.first_failure()
