@@ -482,6 +482,45 @@ class Mechanism:
         """Largest loop-closure error of the file as modelled (length unit or radian)."""
         return self.solver.closure(self.home)[0]
 
+    # -- the holding rule ----------------------------------------------------------------------
+    def held_coordinates(self, given=(), *, drives=None, animated=(), inputs=()):
+        """Which coordinates a solve holds: the one rule the CLI, sweeps and the extension ask.
+
+        ``given``: coordinates whose values the caller sets (always held; a given coordinate
+        that is not a drive releases the drives and animated coordinates of its loop group).
+        ``drives``: the drive flags (default the file's ``drive = true``; ``()`` releases all,
+        as ``sweep --drive`` does).  ``animated``: coordinates with animated values, held like
+        drives.  ``inputs``: given coordinates that are the input of their loop group (a
+        ramp): every other drive and animated coordinate of that group is released.
+
+        Returns the held coordinate names in mechanism order: the given ones, the drives and
+        animated ones not released (one per coupling group: the coupling places the others),
+        and one coordinate (the group's leader) of every coupling group outside all loops
+        (nothing else places it)."""
+        s = self.solver
+        idx = [self._require(c) for c in given]
+        given_set = {self.coordinates[i] for i in idx}
+        drive_set = set(self.driven if drives is None else (self.coordinates[self._require(c)] for c in drives))
+        anim = {self.coordinates[self._require(c)] for c in animated}
+        group = lambda i: s.block_of_master.get(int(s.master[i]))  # noqa: E731
+        released = {group(i) for i in idx if self.coordinates[i] not in drive_set}
+        released |= {group(self._require(c)) for c in inputs}
+        released.discard(None)
+        held_m = {int(s.master[i]) for i in idx}
+        out = set(given_set)
+        for i, c in enumerate(self.coordinates):
+            g = int(s.master[i])
+            if c in given_set or g in held_m:
+                continue
+            block = s.block_of_master.get(g)
+            if block is None:
+                held_m.add(g)
+                out.add(self.coordinates[g])  # the leader: a motion law's follower cannot be held
+            elif (c in drive_set or c in anim) and block not in released:
+                held_m.add(g)
+                out.add(c)
+        return [c for c in self.coordinates if c in out]
+
     def mobility(self, q=None):
         """Kutzbach count and numeric mobility: see :meth:`jointwise.solver.Solver.mobility`."""
         return self.solver.mobility(self.home if q is None else q)

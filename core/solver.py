@@ -730,22 +730,13 @@ class Solver:
                    "crossed_singular": bool(self._crossed)}
 
     def kept_drives(self, explicit):
-        """The file's driven coordinates held besides ``explicit`` (coordinate indices).
-
-        A drive is released in a loop block where a passive coordinate is given (the user
-        moves that one instead), and is not held twice through a coupling group."""
-        driven = [self.m._index[c] for c in self.m.driven]
-        released = {self.block_of_master[int(self.master[i])] for i in explicit
-                    if i not in driven and int(self.master[i]) in self.block_of_master}
-        held = {int(self.master[i]) for i in explicit}
-        kept = []
-        for i in driven:
-            g = int(self.master[i])
-            if i in explicit or g in held or self.block_of_master.get(g) in released:
-                continue
-            held.add(g)
-            kept.append(i)
-        return kept
+        """The file's driven coordinates held besides ``explicit`` (coordinate indices), by
+        the one holding rule, :meth:`Mechanism.held_coordinates` (coordinates outside every
+        loop keep their values here anyway, so only the drives are returned)."""
+        m = self.m
+        driven = set(m.driven)
+        names = m.held_coordinates([m.coordinates[i] for i in explicit])
+        return [m._index[c] for c in names if c in driven and m._index[c] not in explicit]
 
     def _hold(self, target, source, i, v):
         g = int(self.master[i])

@@ -65,3 +65,44 @@ def test_unit_screw_matches_exp6():
     for k in range(len(t)):
         T = spatial.exp6(s, t[k] - 0.5)
         assert np.allclose(R[k], T[:3, :3], atol=1e-13) and np.allclose(p[k], T[:3, 3], atol=1e-13)
+
+
+import jointwise  # noqa: E402
+import mechanisms as M  # noqa: E402
+
+
+def four_bar(**kw):
+    return jointwise.from_dict(M.four_bar(1.0, 3.0, 2.5, 3.0, 60.0, **kw))
+
+
+def test_held_coordinates_drives_and_release():
+    m = four_bar()
+    assert m.held_coordinates() == ["crank"]                       # the file's drive
+    assert m.held_coordinates(["crank"]) == ["crank"]
+    assert m.held_coordinates(["rocker"]) == ["rocker"]            # passive given: drive released
+    assert m.held_coordinates(drives=()) == []                     # every drive released
+    assert m.held_coordinates(["pin_a"], drives=["crank"], animated=["rocker"]) == ["pin_a"]
+    assert m.held_coordinates(animated=["rocker"]) == ["crank", "rocker"]
+    assert m.held_coordinates(["crank"], inputs=["crank"], animated=["rocker"]) == ["crank"]
+
+
+def test_held_coordinates_open_chain_and_couplings():
+    g = jointwise.from_dict(M.gear_pair())
+    names = g.coordinates
+    # no loops: every coordinate group is placed by its value only, once per coupling group
+    held = g.held_coordinates()
+    assert len(held) == len({int(g.solver.master[g.coordinates.index(c)]) for c in names})
+    # a given coordinate takes its group's place
+    held2 = g.held_coordinates([names[-1]])
+    assert names[-1] in held2 and len(held2) == len(held)
+
+
+def test_one_rule_for_pose_and_follow():
+    # follow (the rows of a table) and pose agree where a passive coordinate is given
+    m = four_bar()
+    p = m.pose({"rocker": 95.0})
+    f = m.follow({"rocker": np.array([95.0])})
+    assert f.converged[0]
+    assert f.joints["crank"][0] == pytest.approx(p.joints["crank"], abs=1e-9)
+
+
