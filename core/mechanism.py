@@ -229,6 +229,58 @@ class Mechanism:
         return j.parent if sign > 0 else j.child
 
     def _settle_axes(self):
+        """Settle drawing noise only where it locks the loops; report every change.
+
+        In the home convention every loop closes at home by construction; what drawing
+        noise breaks is closure *away* from home: a planar linkage whose pins are 0.01 deg
+        out of parallel is, strictly, a rigid spatial loop.  So the settled geometry of
+        :meth:`_settle_geometry` is kept only when it frees motion the drawing locks (the
+        loop Jacobian at home loses rank, tested to rounding level); a truly spatial
+        linkage whose axes happen to lie within the tolerance of parallel moves as drawn
+        and is used exactly as given.  Kept settling is reported per joint: the angle each
+        axis turned and the distance each point moved.
+        """
+        raw = {n: (getattr(j, "axis", None), getattr(j, "point", None)) for n, j in self.joints.items()}
+        raw = {n: (None if a is None else np.array(a, float), None if p is None else np.array(p, float))
+               for n, (a, p) in raw.items()}
+        notes = self._settle_geometry()
+        if not notes:
+            return []
+        settled = {n: (getattr(j, "axis", None), getattr(j, "point", None)) for n, j in self.joints.items()}
+        free_settled = self._loop_rank_deficit()
+        self._set_geometry(raw)
+        if free_settled <= self._loop_rank_deficit():
+            return []  # the drawing moves as given: keep it exactly
+        self._set_geometry(settled)
+        for n, j in self.joints.items():
+            a0, p0 = raw[n]
+            a1, p1 = settled[n]
+            if a0 is not None and a1 is not None and np.linalg.norm(a1 - a0) > 0:
+                ang = math.degrees(math.atan2(np.linalg.norm(np.cross(a0, a1)), float(np.dot(a0, a1))))
+                notes.append(f"axis of joint {n} turned by {ang:.3g} deg")
+            if p0 is not None and p1 is not None and np.linalg.norm(p1 - p0) > 0:
+                notes.append(f"point of joint {n} moved by {float(np.linalg.norm(p1 - p0)):.3g} {self.length_unit}")
+        return notes
+
+    def _set_geometry(self, geometry):
+        for n, (a, p) in geometry.items():
+            j = self.joints[n]
+            if a is not None:
+                j.axis = np.array(a, float)
+            if p is not None:
+                j.point = np.array(p, float)
+            j.primitives = j._build()
+
+    def _loop_rank_deficit(self):
+        """Coordinates minus the rank of the loop Jacobian at home (to rounding level)."""
+        from .solver import Solver  # noqa: E402  (solver imports this module)
+        J = Solver(self).full_jacobian(self.home.copy())
+        if not J.size:
+            return 0
+        sv = np.linalg.svd(J, compute_uv=False)
+        return int(J.shape[1] - (sv > 1e-12 * max(sv[0], 1e-300)).sum())
+
+    def _settle_geometry(self):
         """Make nearly parallel joint axes of the loops exactly parallel.
 
         Axes drawn in a modeller are rarely exact; a planar linkage whose pins are

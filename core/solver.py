@@ -180,6 +180,8 @@ class Solver:
         self._home_notes = []
         self._rot_twists = {}
         self._crossed = False
+        #: after a failed continuation: the farthest closed state it reached (for ``reach``)
+        self.last_closed = None
         self.is_length = np.array([k == "length" for k in mech._kind], dtype=bool)
         # dimensionless scale of each coordinate
         self.cscale = np.where(self.is_length, 1.0 / self.L, 1.0)
@@ -912,6 +914,7 @@ class Solver:
 
     def _fail(self, b, q, held_b, source, err, errs, h0):
         m = self.m
+        self.last_closed = q.copy()  # the farthest closed state the continuation reached
         worst = int(np.argmax(errs)) if len(errs) else 0
         loop = b.loops[worst].name
         moving = [g for g in held_b if abs(held_b[g] - h0[g]) > 0]

@@ -1336,18 +1336,30 @@ def sweep_schedule(mech, schedule, samples=None, *, start=None, ease="linear", r
 # reachable range
 # ---------------------------------------------------------------------------------------
 
-def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_travel=None):
+#: ``reach`` searches this far from home unless told otherwise: turns of an angle drive,
+#: mechanism sizes of a length drive (a lead screw with far limits is searched to them).
+SEARCH_TURNS = 1000
+SEARCH_SIZES = 1000
+
+
+def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_travel=None):
     """Reachable interval(s) of ``drive`` from home, file units.
 
-    Steps out from home both ways (steps of ``step`` file units, default 2 deg or 1/50 of
-    the mechanism size) with warm-started solves, then bisects each bracket to ``tol`` of
-    the drive's unit.  Returns ``{"drive", "intervals": [[lo, hi]], "reasons": [[why_lo,
+    Steps out from home both ways (first steps of ``step`` file units, default 2 deg or
+    1/50 of the mechanism size, doubling up to eight turns or eight sizes while the
+    solves succeed: the solver's continuation covers a step) until a dead point or a
+    limit, however many turns away, up to a search bound (``max_turns``, default
+    ``SEARCH_TURNS``; ``max_travel`` file units; ``SEARCH_SIZES`` sizes for a length
+    drive).  Each end is then refined to ``tol`` of the drive's unit: a failed solve
+    reports the farthest closed state its continuation reached, which brackets a dead
+    point at once, and bisection finishes.  Returns ``{"drive", "intervals": [[lo, hi]], "reasons": [[why_lo,
     why_hi]]}``.  Reasons: ``"dead point"`` (no closed placement beyond: the mechanism
     locks, its Jacobian becomes singular there), ``"limit of joint X"`` (the drive's own or
     a passive joint's limit), ``"turns fully"`` (an angle drive that comes back to its home
     placement after one turn: reported as [home - 180 deg, home + 180 deg] in file units,
-    both ends open), ``"no end found within N turns"`` / ``"... within L <unit>"`` (the
-    search stopped).  The file's drives are released, ``held`` holds others.
+    both ends open), ``"no end found within N turns (search bound)"`` / ``"... within L
+    <unit> (search bound)"`` (the search stopped at its bound: the drive goes on beyond
+    it).  The file's drives are released, ``held`` holds others.
     """
     s = mech.solver
     di = mech._require(drive)
@@ -1370,12 +1382,16 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
     j = mech.joints[mech._owner[drive]]
     lim = j.limits[di - mech._slices[j.name].start]
     if max_travel is None:
-        max_travel = max_turns * full if is_angle else 20.0 * mech.size
+        if is_angle:
+            max_travel = (SEARCH_TURNS if max_turns is None else max_turns) * full
+        else:
+            max_travel = SEARCH_SIZES * mech.size / unit
         if lim is not None:  # a limited drive (a lead screw, say) is searched up to its limits
             max_travel = max(max_travel, (lim[1] - lim[0]) / unit)
-    max_step = 16 * step
+    max_step = max(16 * step, 8 * full if is_angle else 8 * mech.size / unit)
 
     def solve(value, qstart):
+        s.last_closed = None
         h = dict(heldv)
         h[di] = value * unit
         if lim is not None and not (lim[0] - 1e-12 <= value * unit <= lim[1] + 1e-12):
@@ -1413,15 +1429,8 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
                         return v, f"limit of joint {j.name}", False
             qn, why = solve(nv, q)
             if qn is None:
-                good, bad, qg = v, nv, q
-                while abs(bad - good) > tol:
-                    mid = 0.5 * (good + bad)
-                    qm, w2 = solve(mid, qg)
-                    if qm is None:
-                        bad, why = mid, w2
-                    else:
-                        good, qg = mid, qm
-                return good, why, False
+                end, why = _refine_end(solve, s, di, unit, v, nv, q, why, tol)
+                return end, why, False
             travelled += abs(nv - v)
             q, v = qn, nv
             if lim is not None and v == (lim[1] if direction > 0 else lim[0]) / unit:
@@ -1433,7 +1442,7 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
                 u = mech.angle_unit if is_angle else mech.length_unit
                 what = (f"{max_travel * unit / (2 * math.pi):g} turns" if is_angle
                         else f"{max_travel:g} {u}")
-                return v, f"no end found within {what}", False
+                return v, f"no end found within {what} (search bound)", False
 
     hi, why_hi, turns = walk(+1)
     if turns:
@@ -1451,6 +1460,32 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=4, max_trave
         raise AssemblyError(f"{drive} cannot move{what}: it is locked at {home:.6g} {u} "
                             f"({why_lo} below, {why_hi} above)", joint=drive)
     return {"drive": drive, "intervals": [[float(lo), float(hi)]], "reasons": [[why_lo, why_hi]]}
+
+
+def _refine_end(solve, s, di, unit, good, bad, qg, why, tol):
+    """Narrow [good, bad] (closed at ``good``, not at ``bad``) to ``tol``; returns (the
+    last closed value, why the drive stops beyond it).
+
+    A dead point: the failed solve's continuation stopped at the farthest closed state
+    it could reach (``Solver.last_closed``), within rounding of the dead point, so the
+    bracket is taken from there and checked one ``tol`` beyond; bisection otherwise."""
+    while abs(bad - good) > tol:
+        lc = s.last_closed if why == "dead point" else None
+        s.last_closed = None
+        mid = 0.5 * (good + bad)
+        if lc is not None:
+            vc = float(lc[di]) / unit
+            if (vc - good) * (bad - good) > 0 and abs(vc - good) < abs(bad - good):
+                good, qg = vc, lc.copy()
+                if abs(bad - good) <= tol:
+                    break
+                mid = good + math.copysign(0.5 * tol, bad - good)
+        qm, w2 = solve(mid, qg)
+        if qm is None:
+            bad, why = mid, w2
+        else:
+            good, qg = mid, qm
+    return good, why
 
 
 def _same_placement(mech, qa, qb):
