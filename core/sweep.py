@@ -967,58 +967,88 @@ def _joint_rotation(ev, jn, q):
     return np.asarray(T[0])
 
 
-def _certify_pairs(ev, Qa, Qb):
-    """Per pair of closed states: (proven, same_orientation), bool arrays (B,).
+def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
+    """Per pair of closed states: (proven, same_orientation, degenerate), bool arrays (B,).
 
     ``proven``: ``Qb`` is the Newton limit from the predictor at ``Qa`` (Kantorovich-style
     uniqueness, so it continues ``Qa``); ``same_orientation``: the solved block keeps
-    its orientation (see :mod:`jointwise.solver`, "branch continuity").  Proven with the
-    orientation changed means the step passed a singular point (a change point)."""
+    its orientation (see :mod:`jointwise.solver`, "branch continuity"); ``degenerate``:
+    the orientation at ``Qa`` is undefined (a singular state).  Proven with the
+    orientation changed means the step passed a singular point (a change point).
+
+    Vectorised over pairs, with no SVD where the solved block has full rank:
+    the orientation test det(U^T J_b V) > 0 equals det(J_a^T J_b) > 0 (or det(J_a J_b^T)
+    for a wide block), since J_a = U S V^T; the chord increments use the scaled Jacobian
+    at the predictor (least norm, normal equations).  ``Jsa``, ``Jsb``: scaled Jacobians
+    at the states, if already evaluated."""
     from .solver import ORIENT_RATIO, branch_step_certified, orientation_agrees, orientation_frame
     B = Qa.shape[0]
     cols = ev.cols_rot
     if not cols or B == 0:
         return np.ones(B, bool), np.ones(B, bool), np.zeros(B, bool)
     if B > CHUNK:
-        parts = [_certify_pairs(ev, Qa[k:k + CHUNK], Qb[k:k + CHUNK]) for k in range(0, B, CHUNK)]
+        parts = [_certify_pairs(ev, Qa[k:k + CHUNK], Qb[k:k + CHUNK],
+                                None if Jsa is None else Jsa[k:k + CHUNK],
+                                None if Jsb is None else Jsb[k:k + CHUNK]) for k in range(0, B, CHUNK)]
         return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
     s = ev.s
     cs = ev._cscale(cols)
     rs = ev.rs
-    # predictor: the previous state with the new held values
+    if Jsa is None:
+        Jsa = _scaled_jacobian(ev, Qa)
+    if Jsb is None:
+        Jsb = _scaled_jacobian(ev, Qb)
+    mrow, k = Jsa.shape[1:]
+    rank = _block_rank(ev, Jsa)
+    # predictor: the previous state with the new held values; chord Newton increments
     X0 = Qa.copy()
     if ev.held:
         X0[:, ev.held] = Qb[:, ev.held]
         _derive(s, X0, ev.held)
     r0, _, J0 = ev.eval(X0, cols)
     Js0 = J0 * rs[None, :, None] * cs[None, None, :]
-    u, sv, vt = np.linalg.svd(Js0, full_matrices=False)
-    top = np.maximum(sv[:, :1], 1e-300)
-    rank = int((sv > 1e-9 * top).sum(axis=1).max())
-    key = ("orient", ev.block.index, tuple(cols))
-    rank = max(1, rank, s._generic_rank.get(key, 0))
-    s._generic_rank[key] = rank
-    ur, svr, vr = u[:, :, :rank], sv[:, :rank], np.swapaxes(vt[:, :rank, :], 1, 2)
-    inv = np.where(svr > 1e-12 * top, 1.0 / np.maximum(svr, 1e-300), 0.0)
-
-    def pinv_apply(res):
-        y = np.einsum("bmr,bm->br", ur, -res * rs[None, :]) * inv
-        return np.einsum("bkr,br->bk", vr, y)
-    d0 = pinv_apply(r0)
+    d0 = _least_norm(Js0, -(r0 * rs[None, :])[:, :, None])[0][:, :, 0]
     X1 = X0.copy()
     ev.apply(X1, d0 * cs[None, :], cols)
     r1 = ev.eval(X1)[0]
-    d1 = pinv_apply(r1)
+    d1 = _least_norm(Js0, -(r1 * rs[None, :])[:, :, None])[0][:, :, 0]
     diff = _rot_diff(ev, X0, Qb)
-    dist = np.linalg.norm(np.einsum("bkr,bk->br", vr, diff), axis=1)  # row-space part
-    ok = branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1), dist)
-    # orientation: frames at the previous states, the solved block at the new ones
-    _, _, Ja = ev.eval(Qa, cols)
-    _, _, Jb = ev.eval(Qb, cols)
-    Jsa = Ja * rs[None, :, None] * cs[None, None, :]
-    Jsb = Jb * rs[None, :, None] * cs[None, None, :]
-    frame = orientation_frame(Jsa, rank)
-    return ok, orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
+    if rank < k:  # idle freedoms (a coupler's spin) are not part of the branch: row-space part
+        diff = _least_norm(Js0, (Js0 @ diff[:, :, None]))[0][:, :, 0]
+    ok = branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1),
+                               np.linalg.norm(diff, axis=1))
+    Jt = np.swapaxes(Jsa, 1, 2)
+    if rank == k:
+        G, M = Jt @ Jsa, Jt @ Jsb
+    elif rank == mrow:
+        G, M = Jsa @ Jt, Jsa @ np.swapaxes(Jsb, 1, 2)
+    else:
+        frame = orientation_frame(Jsa, rank)
+        return ok, orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
+    # how well the orientation is defined: det(G) against |G|^g (the engine's certificate)
+    defined = _chol_solve(G, np.zeros((B, G.shape[1], 1)))[1]
+    degenerate = defined < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
+    return ok, (np.linalg.det(M) > 0) | degenerate, degenerate
+
+
+def _scaled_jacobian(ev, Q):
+    cols = ev.cols_rot
+    _, _, J = ev.eval(Q, cols)
+    return J * ev.rs[None, :, None] * ev._cscale(cols)[None, None, :]
+
+
+def _block_rank(ev, Js):
+    """Generic rank of the block's solved Jacobian (SVD of a few states, kept per block)."""
+    key = ("orient", ev.block.index, tuple(ev.cols_rot))
+    rank = ev.s._generic_rank.get(key)
+    if rank is None or getattr(ev, "_rank_seen", 0) < 8:
+        sample = Js[np.linspace(0, len(Js) - 1, min(len(Js), 8)).astype(int)]
+        sv = np.linalg.svd(sample, compute_uv=False)
+        r = int((sv > 1e-9 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1).max())
+        rank = max(r, rank or 0)
+        ev.s._generic_rank[key] = rank
+        ev._rank_seen = getattr(ev, "_rank_seen", 0) + len(sample)
+    return rank
 
 
 def _prove_branch(ev, Q, ok, err, reasons, pose_one):
@@ -1038,8 +1068,12 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one):
     cert = np.ones(N, bool)
     orient = np.ones(N, bool)
     degenerate = np.zeros(N, bool)
-    if len(idx):
-        cert[idx], orient[idx], degenerate[idx] = _certify_pairs(ev, Q[idx - 1], Q[idx])
+    for k0 in range(0, len(idx), CHUNK):  # the Jacobian of each row evaluated once
+        sel = idx[k0:k0 + CHUNK]
+        rows = np.union1d(sel - 1, sel)
+        Js = _scaled_jacobian(ev, Q[rows])
+        pa, pb = np.searchsorted(rows, sel - 1), np.searchsorted(rows, sel)
+        cert[sel], orient[sel], degenerate[sel] = _certify_pairs(ev, Q[sel - 1], Q[sel], Js[pa], Js[pb])
     last = before = None
     for i in range(N):
         if not ok[i]:
