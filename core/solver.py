@@ -26,9 +26,13 @@ modelled in 3D, or redundant constraints, converge and coordinates no constraint
 determines keep their previous values.  A step that raises the residual is halved.
 Free spherical joints move by rotation increments, so they keep three freedoms at
 every orientation.  Held values are reached by continuation: a tangent predictor
-and a Newton corrector over sub-steps of at most ``MAX_STEP`` (dimensionless); a
-corrector that moves much more than the sub-step is treated as a jump to another
-assembly branch and the sub-step is halved.
+and a Newton corrector over sub-steps of at most ``MAX_STEP`` (dimensionless).  A
+sub-step is accepted only when its corrector contracts (it fails within a few
+iterations otherwise, so an unreachable target fails fast), moves no more than the
+prediction allows, and keeps the orientation of the solved block; else it is halved.
+Where halving reaches the smallest step and the orientation still changes, the path
+passes a singular point and the result is flagged singular.  The argument and its
+sources are under "branch continuity" below.
 """
 from __future__ import annotations
 

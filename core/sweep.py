@@ -35,7 +35,16 @@ How a sweep is solved
    are solved one by one with :meth:`Solver.pose` from the neighbouring good sample.
    Inside a stretch that cannot be reached, the first failure stops the walk into it;
    the rest of that stretch is flagged without further attempts.
-4. Every sample gets ``converged`` and ``singular`` flags; a failed sample repeats the
+4. *Branch proof*: every step between neighbouring closed rows must be certified
+   (:func:`_certify_pairs`: the row is the Newton limit from the predictor at the row
+   before, by a Kantorovich-style contraction and distance test, and the solved block
+   keeps its orientation; the argument is in :mod:`jointwise.solver`, "branch
+   continuity").  A row whose step is not certified is solved again from the row
+   before by :meth:`Solver.pose` (certified sub-steps); where that differs, the rows
+   after it were on another branch and are solved again, batched, from it.  A step
+   that is certified but changes orientation passed a singular point: flagged singular.
+   An anchor beyond a held value where the walk already failed is not tried again.
+5. Every sample gets ``converged`` and ``singular`` flags; a failed sample repeats the
    last good pose (finite values, never NaN).  A coordinate outside its joint limits
    makes a sample fail as well (reason "limit of joint X").
 
