@@ -324,3 +324,10 @@ def test_device_or_link_as_out_is_written_in_place_never_replaced(tmp_path):
     assert code == 0, err
     assert link.is_symlink() and target.read_text().startswith("step,crank_pin")
     assert sorted(os.listdir(tmp_path)) == ["link.csv", "real.csv"]
+
+
+@pytest.mark.parametrize("start", ["-1e1", "-10", "-1.5e1", "-.5e2"])
+def test_negative_numbers_in_scientific_form_are_values(start):
+    code, out, err = run_in("sweep", ROCKER, "--drive", "crank_pin", "--from", start, "--to", "0", "--steps", "2")
+    assert code == 0, err
+    assert float(out.splitlines()[1].split(",")[1]) == float(start)
