@@ -25,6 +25,7 @@ import json
 import math
 import os
 import re
+import signal
 import sys
 import time
 import tomllib
@@ -154,10 +155,15 @@ def _inline(v):
 def command(draw, name):
     data = DATA[name]
     coords = list(data.get("joints", {})) + ["nope", "crank_pin", ""]
-    cmd = draw(st.sampled_from(["check", "check", "pose", "pose", "sweep", "sweep", "sweep", "range"]))
+    cmd = draw(st.sampled_from(["check", "check", "pose", "pose", "sweep", "sweep", "sweep", "range", "tidy"]))
     if cmd == "range" and name == "plover_lift":
         cmd = "sweep"  # its range search takes seconds: kept out of a campaign of hundreds
     args = [cmd]
+    if cmd == "tidy":
+        args += ["--out", draw(st.sampled_from(["ok/t.toml", "ro/t.toml", "missing/t.toml", "ok"]))]
+        args += draw(st.sampled_from([[], ["--angle-tolerance", "1"], ["--angle-tolerance", "-1"],
+                                      ["--angle-tolerance", "nan"], ["--angle-tolerance", "1e300"]]))
+        return args
     if cmd == "check":
         args += draw(st.sampled_from([[], ["--format", "json"], ["--format", "text"], ["--format", "xml"]]))
         return args
@@ -165,9 +171,15 @@ def command(draw, name):
     for c, v in sets:
         args += ["--set", f"{c}={v}"]
     if cmd == "pose":
+        if draw(st.booleans()):
+            points = [n for n, m in data.get("measures", {}).items() if m.get("type") == "point"] + ["nope"]
+            args += ["--target", f"{draw(st.sampled_from(points))}="
+                                 f"{draw(st.sampled_from(['1,2,3', '1e300,0,0', 'nan,0,0', '1,2', '25,50,0']))}"]
         args += draw(st.sampled_from([[], ["--format", "json"]]))
         return args
     drive = draw(st.sampled_from([DRIVES[name]] * 4 + coords))
+    if name == "plover_lift" and drive in data.get("joints", {}) and drive != DRIVES[name]:
+        drive = DRIVES[name]  # its passive pins swept past their reach take minutes (issue 14 item 6)
     args += ["--drive", drive]
     if cmd == "range":
         args += draw(st.sampled_from([[], ["--format", "json"]]))
@@ -200,16 +212,34 @@ def _finite_text(text, where):
     assert hit is None, f"non-finite value {hit.group(0)!r} in {where}: ...{text[max(0, hit.start() - 80):hit.end() + 80]}"
 
 
+class _OverBudget(BaseException):
+    """A case ran past its time budget (not an Exception: nothing in jointwise catches it)."""
+
+
+BUDGET = 15  # seconds per case; slowness is issue 14 item 6's (solver), tallied, not failed
+
+
+def _alarm(signum, frame):
+    raise _OverBudget()
+
+
 def _run(argv):
     out, err = io.StringIO(), io.StringIO()
     code, crash = None, None
+    old = signal.signal(signal.SIGALRM, _alarm)
+    signal.alarm(BUDGET)
     with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
         try:
             code = cli.main(argv)
         except SystemExit as exc:
             code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
+        except _OverBudget:
+            code = "over budget"
         except BaseException as exc:  # noqa: BLE001 - exactly what the campaign looks for
             crash = exc
+        finally:
+            signal.alarm(0)
+            signal.signal(signal.SIGALRM, old)
     return code, crash, out.getvalue(), err.getvalue()
 
 
@@ -236,12 +266,15 @@ def check_case(tmp, name, fname, raw, special, args):
     else:
         target = str(path)
     argv = [args[0], target] + [a.replace("ok/", f"{work}/ok/").replace("ro/", f"{ro}/")
-                                .replace("missing/", f"{work}/missing/") if a.endswith((".csv", ".png", ".txt"))
+                                .replace("missing/", f"{work}/missing/") if a.endswith((".csv", ".png", ".txt", ".toml"))
                                 else (str(work / "ok") if a == "ok" else a) for a in args[1:]]
     if not root:
         os.chmod(ro, 0o555)
     before = {"ok": _listing(work / "ok"), "ro": _listing(ro)}
     t0 = time.perf_counter()
+    if os.environ.get("JOINTWISE_CAMPAIGN_LOG"):
+        with open(os.environ["JOINTWISE_CAMPAIGN_LOG"] + ".start", "a") as fh:
+            fh.write(json.dumps(argv) + "\n")
     try:
         code, crash, out, err = _run(argv)
         after = {"ok": _listing(work / "ok"), "ro": _listing(ro)}
@@ -257,6 +290,8 @@ def check_case(tmp, name, fname, raw, special, args):
     problems = []
     if crash is not None:
         problems.append(f"traceback: {type(crash).__name__}: {str(crash)[:200]}")
+    elif code == "over budget":
+        TALLY["over the time budget"] += 1
     elif code not in (0, 2, 3):
         problems.append(f"undocumented exit code {code}")
     try:
@@ -265,12 +300,14 @@ def check_case(tmp, name, fname, raw, special, args):
         problems.append(str(exc))
     written = [work / "ok" / n for n in (after["ok"] or []) if n not in (before["ok"] or [])]
     for p in written:
-        if p.suffix in (".csv", ".json", ".txt") and p.is_file():
+        if p.suffix in (".csv", ".json", ".txt", ".toml") and p.is_file():
             try:
                 _finite_text(p.read_text(errors="replace"), p.name)
             except AssertionError as exc:
                 problems.append(str(exc))
-    kept = code == 0 or (code == 3 and args[0] == "sweep")
+    kept = code == 0 or (code == 3 and args[0] == "sweep")  # tidy: exit 3 writes nothing
+    if code == "over budget":
+        kept = True  # stopped from outside: the output may be on its way
     if crash is not None or not kept:
         if written:
             problems.append(f"left behind after exit {code}: {[p.name for p in written]}")
