@@ -227,19 +227,24 @@ def _run(argv):
     out, err = io.StringIO(), io.StringIO()
     code, crash = None, None
     old = signal.signal(signal.SIGALRM, _alarm)
-    signal.alarm(BUDGET)
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+    try:
+        signal.alarm(BUDGET)
         try:
-            code = cli.main(argv)
-        except SystemExit as exc:
-            code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
-        except _OverBudget:
-            code = "over budget"
-        except BaseException as exc:  # noqa: BLE001 - exactly what the campaign looks for
-            crash = exc
+            with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+                try:
+                    code = cli.main(argv)
+                except SystemExit as exc:
+                    code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
+                except BaseException as exc:  # noqa: BLE001 - exactly what the campaign looks for
+                    if isinstance(exc, _OverBudget):
+                        raise
+                    crash = exc
         finally:
             signal.alarm(0)
-            signal.signal(signal.SIGALRM, old)
+    except _OverBudget:  # wherever the alarm struck
+        code, crash = "over budget", None
+    finally:
+        signal.signal(signal.SIGALRM, old)
     return code, crash, out.getvalue(), err.getvalue()
 
 
