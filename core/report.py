@@ -18,12 +18,12 @@ import json
 import math
 import os
 import sys
-import tempfile
 from types import SimpleNamespace
 
 import numpy as np
 
 from .errors import JointwiseError, SpecError
+from .outputs import Outputs
 
 __all__ = ["sweep_table", "sweep_json", "sweep_command", "range_command", "plot_sweep",
            "PLOT_INSTALL", "Outputs", "sweep_chunks", "SWEEP_CHUNK"]
@@ -268,72 +268,6 @@ class _PlotData:
                for key in RATE_KEYS})
 
 
-class Outputs:
-    """The files one command writes, kept under temporary names in their target folders
-    and moved into place together by :meth:`commit`; leaving the ``with`` block without a
-    commit removes them, so a failure leaves no file and no half of a pair (table and plot)
-    behind.  ``reserve`` creates the temporary file at once: an unwritable folder is found
-    before any work is done."""
-
-    def __init__(self):
-        self._items = []
-
-    def reserve(self, path, option):
-        folder = os.path.dirname(os.path.abspath(path))
-        if not os.path.isdir(folder):
-            raise SpecError(f"{option} {path!r}: folder {folder!r} does not exist")
-        if os.path.isdir(path):
-            raise SpecError(f"{option} {path!r} is a folder")
-        if os.path.islink(path) or (os.path.exists(path) and not os.path.isfile(path)):
-            # a device, a pipe or a link (/dev/null, /dev/stdout, a FIFO): written directly,
-            # never replaced by a rename (that would swap the device or link for a file)
-            if not os.access(path, os.W_OK):
-                raise SpecError(f"{option} {path!r}: cannot write there (no permission)")
-            self._items.append((None, path, option))
-            return path
-        try:
-            fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".part", dir=folder)
-        except OSError as exc:
-            raise SpecError(f"{option} {path!r}: cannot write in folder {folder!r}: "
-                            f"{exc.strerror or exc}") from None
-        os.close(fd)
-        mask = os.umask(0)
-        os.umask(mask)
-        try:
-            os.chmod(tmp, 0o666 & ~mask)
-        except OSError:
-            pass
-        self._items.append((tmp, path, option))
-        return tmp
-
-    def commit(self):
-        for tmp, path, option in self._items:
-            if tmp is None:
-                continue
-            try:
-                os.replace(tmp, path)
-            except OSError as exc:
-                raise SpecError(f"{option} {path!r}: cannot write: {exc.strerror or exc}") from None
-        self._items = []
-
-    def discard(self):
-        for tmp, _, _ in self._items:
-            if tmp is None:
-                continue
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
-        self._items = []
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        self.discard()
-        return False
-
-
 def _plot_available():
     try:
         import matplotlib  # noqa: F401
@@ -451,14 +385,12 @@ def plot_sweep(mech, sw, drive, path):
         axes[-1].set_xlabel(f"{drive} [{du}]")
     fig.suptitle(f"{mech.name or mech.source}: sweep of {drive}")
     fig.tight_layout()
-    tmp = f"{path}.tmp-{os.getpid()}"
+    # ``path`` is the temporary name :class:`Outputs` reserved (or a device written in
+    # place): saved directly, never renamed here, so ``--plot /dev/null`` stays a device
     try:
-        fig.savefig(tmp, format="png", dpi=100)
-        os.replace(tmp, path)
+        fig.savefig(path, format="png", dpi=100)
     finally:
         plt.close(fig)
-        if os.path.exists(tmp):
-            os.unlink(tmp)
 
 
 def _check_span(mech, drive, start, end):

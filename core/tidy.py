@@ -33,6 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import AssemblyError, SpecError
+from .outputs import write_text
 
 __all__ = ["Tilt", "TiltError", "find_tilts", "plan", "tidy_text", "DEFAULT_TOLERANCE_DEG",
            "SPATIAL_DEG"]
@@ -274,19 +275,5 @@ def tidy_file(path, out, tolerance_deg=DEFAULT_TOLERANCE_DEG, mech=None):
     left = find_tilts(fixed, limit_deg=max(SPATIAL_DEG, tolerance_deg))
     if left:  # pragma: no cover - a guard: the written file must be tidy
         raise SpecError(f"tidying left {left[0].describe()}", source=name)
-    _write_atomic(out, new)
+    write_text(out, new)
     return tilts, fixed
-
-
-def _write_atomic(path, text):
-    tmp = f"{path}.tmp-{os.getpid()}"
-    try:
-        try:
-            with open(tmp, "w", encoding="utf-8", newline="") as fh:
-                fh.write(text)
-            os.replace(tmp, path)
-        except OSError as exc:
-            raise SpecError(f"cannot write {str(path)!r}: {exc.strerror or exc}", key="--out") from None
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)

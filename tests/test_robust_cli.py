@@ -331,3 +331,17 @@ def test_negative_numbers_in_scientific_form_are_values(start):
     code, out, err = run_in("sweep", ROCKER, "--drive", "crank_pin", "--from", start, "--to", "0", "--steps", "2")
     assert code == 0, err
     assert float(out.splitlines()[1].split(",")[1]) == float(start)
+
+
+def test_plot_to_a_link_is_refused_and_nothing_is_written(tmp_path):
+    # a PNG cannot go to a device or through a link: refused before any work, the link
+    # and its target untouched and no table written either (whole or nothing)
+    target = tmp_path / "real.png"
+    target.write_bytes(b"old")
+    link = tmp_path / "link.png"
+    link.symlink_to(target)
+    code, _, err = run_in("sweep", ROCKER, "--drive", "crank_pin", "--from", "60", "--to", "420",
+                          "--steps", "5", "--out", tmp_path / "t.csv", "--plot", link)
+    assert code == 2 and "--plot" in err and "give a file name" in err
+    assert link.is_symlink() and target.read_bytes() == b"old"
+    assert sorted(os.listdir(tmp_path)) == ["link.png", "real.png"]

@@ -153,3 +153,20 @@ def test_plan_raises_tilt_error_naming_every_joint_beyond():
         plan(mech, 2.0)
     assert [t.joint for t in e.value.tilts] == ["rocker"]
     assert [t.joint for t in plan(mech, 3.5)] == ["rocker"]
+
+
+def test_tidy_writes_through_a_link_and_leaves_it_a_link(cli, mech_file, tmp_path):
+    # --out may be a link, a pipe or a device (/dev/null): written in place, never
+    # replaced by a rename (core/outputs.py); checked here with a link, which takes the
+    # same path as a device without risking the machine's /dev/null
+    src = mech_file(_tilted())
+    target = tmp_path / "real.toml"
+    target.write_text("old\n")
+    link = tmp_path / "link.toml"
+    link.symlink_to(target)
+    r = cli("tidy", src, "--out", link)
+    M.no_traceback(r)
+    assert r.code == 0, r
+    assert link.is_symlink() and "axis = [0.0, 0.0, 1.0]" in target.read_text()
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name.endswith(".toml")) == \
+        sorted({"link.toml", "real.toml", src.name} & {p.name for p in tmp_path.iterdir()})
