@@ -38,6 +38,14 @@ class JOINTWISE_UL_couplings(bpy.types.UIList):
     """One row per coupling: follower = ratio x leader + offset, in display units."""
 
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
+        if item.law_json:  # a motion law (program, geneva, table): named, not a ratio
+            import json
+            try:
+                law = json.loads(item.law_json).get("law", "law")
+            except (ValueError, AttributeError):
+                law = "law"
+            layout.label(text=f"{item.follower} = {law}({item.leader})")
+            return
         jw = context.scene.jointwise
         length = sc.display_length_of(context.scene)
         lead, fol = jw.joints.get(item.leader), jw.joints.get(item.follower)

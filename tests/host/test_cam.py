@@ -68,3 +68,34 @@ def test_cam_profile_warns_of_a_steep_cam(scene):
     # the operator reports warnings but still draws; the pressure angle check is the core's
     assert bpy.ops.jointwise.cam_profile(coupling="marking_cam", base_radius=3.0, roller_radius=2.0) == {"FINISHED"}
     assert "cam marking_cam" in bpy.data.objects
+
+
+def test_couplings_list_names_the_motion_laws(scene):
+    """The couplings list shows a motion law by name, not the unused ratio (recorded draw
+    calls, as in test_panels)."""
+    import types
+    from test_panels import Recorder
+    log = []
+    bpy.types.JOINTWISE_PT_couplings.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    labels = [t for kind, t in log if kind == "label"]
+    assert "table_spindle = geneva(drive_shaft)" in labels
+    assert "marking_slide = program(drive_shaft)" in labels
+
+
+def test_export_keeps_the_motion_laws(scene, tmp_path):
+    """Import -> export: the Geneva and program couplings come back with their keys in the
+    file's units (degrees, millimetres), and the exported file poses like the original."""
+    import jointwise
+    out = tmp_path / "kittiwake_out.toml"
+    assert bpy.ops.jointwise.mechanism_export(filepath=str(out)) == {"FINISHED"}
+    orig = jointwise.load(build.toml_path("kittiwake_index"))
+    back = jointwise.load(out)
+    assert back.couplings["index"].kind == "geneva" and back.couplings["index"].spec["slots"] == 6
+    segs = back.couplings["marking_cam"].spec["segments"]
+    want = orig.couplings["marking_cam"].spec["segments"]
+    assert [s[4] for s in segs] == [s[4] for s in want]
+    assert np.allclose([s[:4] for s in segs], [s[:4] for s in want], atol=1e-4)
+    for v in (200.0, 30.0, 95.0):
+        a, b = orig.pose({"drive_shaft": v}), back.pose({"drive_shaft": v})
+        for c in ("table_spindle", "marking_slide"):
+            assert b.joints[c] == pytest.approx(a.joints[c], abs=1e-4), (v, c)
