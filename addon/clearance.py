@@ -39,7 +39,6 @@ from __future__ import annotations
 
 import itertools
 import math
-import os
 import time
 
 import bpy
@@ -658,7 +657,7 @@ class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
             path = bpy.path.abspath(self.filepath)
             try:
                 write_csv(path, rows)
-            except OSError as exc:
+            except (OSError, ValueError) as exc:
                 return self.fail(f"cannot write {path}: {exc}; no clearance results were written")
         note = "; ".join(check.notes)
         apply(scene, rows, note)

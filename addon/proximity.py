@@ -16,8 +16,8 @@ caller uses (scene units in the extension).
 from __future__ import annotations
 
 import csv
+import io
 import os
-import tempfile
 
 import numpy as np
 
@@ -184,24 +184,15 @@ def transform_points(m, points):
 # -- files ---------------------------------------------------------------------------------------
 
 def write_csv_atomic(path, header, rows):
-    """Write ``rows`` under ``header`` to ``path``: first to a temporary file in the same
-    folder, then moved over ``path`` (a failure leaves any earlier file as it was)."""
-    path = os.path.abspath(path)
-    folder = os.path.dirname(path) or "."
-    fd, tmp = tempfile.mkstemp(prefix=".~" + os.path.basename(path), suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "w", newline="", encoding="utf-8") as fh:
-            w = csv.writer(fh)
-            w.writerow(header)
-            for row in rows:
-                w.writerow(row)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+    """Write ``rows`` under ``header`` to ``path`` whole or not at all (``jointwise.outputs``:
+    a failure leaves any earlier file as it was; a link or device is written in place)."""
+    from jointwise.outputs import write_text  # late: the core's wheel is on the path once enabled
+    buf = io.StringIO()
+    w = csv.writer(buf)
+    w.writerow(header)
+    for row in rows:
+        w.writerow(row)
+    write_text(os.path.abspath(path), buf.getvalue(), option="filepath")
 
 
 # -- bounds ---------------------------------------------------------------------------------------

@@ -7,9 +7,7 @@ inline tables (dicts below the section level). Written atomically by ``write``.
 from __future__ import annotations
 
 import math
-import os
 import re
-import tempfile
 
 _BARE = re.compile(r"^[A-Za-z0-9_-]+$")
 
@@ -77,17 +75,7 @@ def dumps(data):
 
 
 def write(path, data):
-    """Write ``data`` as TOML to ``path`` atomically (temporary file + os.replace)."""
-    text = dumps(data)
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".jointwise-", suffix=".toml", dir=folder)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as f:
-            f.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+    """Write ``data`` as TOML to ``path`` whole or not at all (``jointwise.outputs``: a
+    temporary file moved into place; a link or device written in place, never replaced)."""
+    from jointwise.outputs import write_text  # late: the core's wheel is on the path once enabled
+    write_text(path, dumps(data), option="export")
