@@ -92,9 +92,9 @@ def make_scene(n_links, n_frames, folder):
         turns = 0.5 + 0.25 * (i % 4)  # half a turn to 1.25 turns over the frames, alternating sense
         for f, v in ((1, 0.0), (n_frames, (-1) ** i * 2 * math.pi * turns)):
             jw.joints[name].value = v
-            scene.keyframe_insert(f'jointwise.joints["{name}"].value', frame=f)
-    bake = importlib.import_module(f"{MODULE}.bake")
-    for fc in bake.scene_fcurves(scene):
+            scene.keyframe_insert(f'jointwise.joints["{name}"].angle', frame=f)  # the animatable field (radians)
+    animation = importlib.import_module(f"{MODULE}.animation")
+    for fc in animation.scene_fcurves(scene):
         for k in fc.keyframe_points:
             k.interpolation = 'LINEAR'
         fc.update()
