@@ -841,6 +841,8 @@ class Solver:
                         return 0.0, False
                     self._fail(b, q, held_b, source, err, errs, h0)
             q[:] = trial
+            if t1 < 1.0:
+                self._stop_at_limit(q, cols)
             pred = rmax * (t1 - t)
             t = t1
             J_here = Jall
@@ -987,6 +989,33 @@ class Solver:
                 if i != g:
                     dq[i] = self.member_slope(i, q[g]) * dq[g]
         return dq
+
+    def _stop_at_limit(self, q, cols):
+        """Stop a continuation whose path has carried a solved coordinate of this block past
+        its limit: a limit is a hard stop, so a target beyond it on this path cannot be
+        reached without passing through it.  Failing here, at the limit, instead of at the
+        end keeps an unreachable request as cheap as the stretch up to the stop (a lift
+        table's screw driven past its end no longer walks tens of thousands of degrees)."""
+        m = self.m
+        groups = {c[1] for c in cols if c[0] == "m"}
+        for i, c in enumerate(m.coordinates):
+            if int(self.master[i]) not in groups:
+                continue
+            j = m.joints[m._owner[c]]
+            lim = j.limits[i - m._slices[j.name].start]
+            if lim is None:
+                continue
+            slack = TOLERANCE / self.qerr[i]
+            if not lim[0] - slack <= q[i] <= lim[1] + slack:
+                self.last_closed = q.copy()
+                u = m._unit(i)
+                unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+                from .errors import LimitError, Reason
+                edge = lim[0] if q[i] < lim[0] else lim[1]
+                why = Reason("limit", joint=c, value=float(edge / u), bounds=(lim[0] / u, lim[1] / u),
+                             unit=unit, held=False)
+                raise LimitError(f"infeasible: on the way there {c} reaches its limit {edge / u:g} {unit} "
+                                 f"(limits [{lim[0] / u:g}, {lim[1] / u:g}] {unit})", reason=why)
 
     def _check_passive_limits(self, q, held_groups):
         m = self.m
