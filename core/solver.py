@@ -195,6 +195,7 @@ class Solver:
         self.escale = np.array([1, 1, 1] + [self.pos_weight] * 3)
         #: a closure error of a coordinate, scale-free (radian; length times pos_weight)
         self.qerr = np.where(self.is_length, self.pos_weight, 1.0)
+        self._limit_table = None  # built on first use by _limits (limits never change)
 
     # -- couplings: affine groups ------------------------------------------------------
     def _couplings(self):
@@ -990,49 +991,54 @@ class Solver:
                     dq[i] = self.member_slope(i, q[g]) * dq[g]
         return dq
 
+    def _limits(self):
+        """The coordinates that have limits, as ``(index, lo, hi, slack, name)`` in internal
+        units; ``slack`` is the scale-free closure tolerance (a radian or a fraction of the
+        size).  Built once per solver; both limit tests below read it."""
+        table = self._limit_table
+        if table is None:
+            m = self.m
+            table = []
+            for i, c in enumerate(m.coordinates):
+                j = m.joints[m._owner[c]]
+                lim = j.limits[i - m._slices[j.name].start]
+                if lim is not None:
+                    table.append((i, lim[0], lim[1], TOLERANCE / self.qerr[i], c))
+            self._limit_table = table
+        return table
+
+    def _limit_error(self, i, value, c, lo, hi, on_the_way):
+        m = self.m
+        u = m._unit(i)
+        unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+        from .errors import LimitError, Reason
+        if on_the_way:
+            why = Reason("limit", joint=c, value=float(value / u), bounds=(lo / u, hi / u), unit=unit,
+                         held=False)
+            return LimitError(f"infeasible: on the way there {c} reaches its limit {value / u:g} {unit} "
+                              f"(limits [{lo / u:g}, {hi / u:g}] {unit})", reason=why)
+        return LimitError(f"infeasible: the closed placement puts {c} at {value / u:.6g} {unit}, "
+                          f"outside its limits [{lo / u:g}, {hi / u:g}] {unit}", joint=c)
+
     def _stop_at_limit(self, q, cols):
         """Stop a continuation whose path has carried a solved coordinate of this block past
         its limit: a limit is a hard stop, so a target beyond it on this path cannot be
         reached without passing through it.  Failing here, at the limit, instead of at the
         end keeps an unreachable request as cheap as the stretch up to the stop (a lift
         table's screw driven past its end no longer walks tens of thousands of degrees)."""
-        m = self.m
+        table = self._limits()
+        if not table:
+            return
         groups = {c[1] for c in cols if c[0] == "m"}
-        for i, c in enumerate(m.coordinates):
-            if int(self.master[i]) not in groups:
-                continue
-            j = m.joints[m._owner[c]]
-            lim = j.limits[i - m._slices[j.name].start]
-            if lim is None:
-                continue
-            slack = TOLERANCE / self.qerr[i]
-            if not lim[0] - slack <= q[i] <= lim[1] + slack:
+        for i, lo, hi, slack, c in table:
+            if int(self.master[i]) in groups and not lo - slack <= q[i] <= hi + slack:
                 self.last_closed = q.copy()
-                u = m._unit(i)
-                unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
-                from .errors import LimitError, Reason
-                edge = lim[0] if q[i] < lim[0] else lim[1]
-                why = Reason("limit", joint=c, value=float(edge / u), bounds=(lim[0] / u, lim[1] / u),
-                             unit=unit, held=False)
-                raise LimitError(f"infeasible: on the way there {c} reaches its limit {edge / u:g} {unit} "
-                                 f"(limits [{lim[0] / u:g}, {lim[1] / u:g}] {unit})", reason=why)
+                raise self._limit_error(i, lo if q[i] < lo else hi, c, lo, hi, on_the_way=True)
 
     def _check_passive_limits(self, q, held_groups):
-        m = self.m
-        for i, c in enumerate(m.coordinates):
-            if int(self.master[i]) in held_groups:
-                continue
-            j = m.joints[m._owner[c]]
-            lim = j.limits[i - m._slices[j.name].start]
-            if lim is None:
-                continue
-            slack = TOLERANCE / self.qerr[i]  # scale-free: radian or fraction of the size
-            if not lim[0] - slack <= q[i] <= lim[1] + slack:
-                u = m._unit(i)
-                unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
-                from .errors import LimitError
-                raise LimitError(f"infeasible: the closed placement puts {c} at {q[i] / u:.6g} {unit}, "
-                                 f"outside its limits [{lim[0] / u:g}, {lim[1] / u:g}] {unit}", joint=c)
+        for i, lo, hi, slack, c in self._limits():
+            if int(self.master[i]) not in held_groups and not lo - slack <= q[i] <= hi + slack:
+                raise self._limit_error(i, q[i], c, lo, hi, on_the_way=False)
 
     # -- mobility ----------------------------------------------------------------------
     def full_jacobian(self, q):
