@@ -23,6 +23,7 @@ from bpy.props import FloatProperty, StringProperty
 
 from . import scene as sc
 from .operators import _Base, _errors
+from .trace import curve_object
 
 TAG = "jointwise_cam"
 COLOUR = (0.95, 0.75, 0.20, 1.0)
@@ -68,39 +69,11 @@ def profile_points(scene, coupling, base_radius, roller_radius, offset):
     return link, local, warns
 
 
-def _material():
-    mat = bpy.data.materials.get("jointwise cam")
-    if mat is None:
-        mat = bpy.data.materials.new("jointwise cam")
-        mat.diffuse_color = COLOUR
-    return mat
-
-
 def write_curve(scene, coupling, link, local, bevel):
     """Create (or replace) the curve object ``cam NAME`` parented to ``link``'s object."""
     jw = scene.jointwise
     parent = sc.link_object(scene, jw.links[link])
-    name = f"cam {coupling}"
-    for obj in [o for o in scene.objects if o.get(TAG) == coupling]:
-        data = obj.data
-        bpy.data.objects.remove(obj, do_unlink=True)
-        if data is not None and data.users == 0:
-            bpy.data.curves.remove(data)
-    curve = bpy.data.curves.new(name, 'CURVE')
-    curve.dimensions = '3D'
-    curve.bevel_depth = bevel
-    curve.bevel_resolution = 2
-    spline = curve.splines.new('POLY')
-    spline.points.add(len(local) - 1)
-    co = np.ones((len(local), 4), dtype=np.float32)
-    co[:, :3] = local
-    spline.points.foreach_set("co", co.ravel())
-    spline.use_cyclic_u = True
-    curve.materials.append(_material())
-    obj = bpy.data.objects.new(name, curve)
-    obj[TAG] = coupling
-    obj.color = COLOUR
-    scene.collection.objects.link(obj)
+    obj = curve_object(scene, f"cam {coupling}", TAG, coupling, local, bevel, COLOUR, cyclic=True)
     obj.parent = parent
     obj.matrix_parent_inverse.identity()
     obj.matrix_basis.identity()

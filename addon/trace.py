@@ -82,18 +82,20 @@ def trace_points(scene, measure, frame_start, frame_end, drive="", value_from=0.
     return xyz
 
 
-def _material():
-    mat = bpy.data.materials.get("jointwise trace")
+def _material(name, colour):
+    mat = bpy.data.materials.get(name)
     if mat is None:
-        mat = bpy.data.materials.new("jointwise trace")
-        mat.diffuse_color = COLOUR
+        mat = bpy.data.materials.new(name)
+        mat.diffuse_color = colour
     return mat
 
 
-def write_curve(scene, measure, xyz, bevel):
-    """Create (or replace) the curve object ``trace NAME`` holding the points ``xyz``."""
-    name = f"trace {measure}"
-    for obj in [o for o in scene.objects if o.get(TAG) == measure]:
+def curve_object(scene, name, tag, key, xyz, bevel, colour, *, cyclic):
+    """Create (or replace: objects whose ``tag`` property is ``key``) a curve object
+    ``name`` of one poly spline through ``xyz`` (its own coordinates), bevelled by
+    ``bevel``, in the material ``jointwise <tag word>`` of ``colour``; linked to the scene,
+    unparented.  Traces and cam profiles both draw through this."""
+    for obj in [o for o in scene.objects if o.get(tag) == key]:
         data = obj.data
         bpy.data.objects.remove(obj, do_unlink=True)
         if data is not None and data.users == 0:
@@ -108,13 +110,19 @@ def write_curve(scene, measure, xyz, bevel):
     co = np.ones((len(xyz), 4), dtype=np.float32)
     co[:, :3] = xyz
     spline.points.foreach_set("co", co.ravel())
-    closed = len(xyz) > 2 and np.linalg.norm(xyz[0] - xyz[-1]) <= 1e-6 * max(1.0, float(np.abs(xyz).max()))
-    spline.use_cyclic_u = bool(closed)
-    curve.materials.append(_material())
+    spline.use_cyclic_u = bool(cyclic)
+    curve.materials.append(_material("jointwise " + tag.split("_", 1)[-1], colour))
     obj = bpy.data.objects.new(name, curve)
-    obj[TAG] = measure
-    obj.color = COLOUR
+    obj[tag] = key
+    obj.color = colour
     scene.collection.objects.link(obj)
+    return obj
+
+
+def write_curve(scene, measure, xyz, bevel):
+    """Create (or replace) the curve object ``trace NAME`` holding the points ``xyz``."""
+    closed = len(xyz) > 2 and np.linalg.norm(xyz[0] - xyz[-1]) <= 1e-6 * max(1.0, float(np.abs(xyz).max()))
+    obj = curve_object(scene, f"trace {measure}", TAG, measure, xyz, bevel, COLOUR, cyclic=closed)
     jw = scene.jointwise
     ground = jw.links.get(jw.ground)
     gobj = sc.link_object(scene, ground, required=False) if ground is not None else None
