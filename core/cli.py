@@ -307,7 +307,7 @@ def check_report(mech):
     ``problems`` holds only what stops the mechanism or misleads (home out of reach, a
     structure that cannot move, drives that do not match the freedoms); ``notes`` holds
     information: a settled home, an overconstraint explained by special geometry."""
-    from .solver import TOLERANCE
+    from .units import TOLERANCE
     problems, notes = [], [f"settled: {n}" for n in mech.settle_notes]
     closure = float(mech.home_closure())
     q = mech.home

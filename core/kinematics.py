@@ -1,4 +1,9 @@
-"""Rates and accelerations of the loop equations: J-dot q-dot and point Jacobians.
+"""The kinematic evaluator: loop residuals, constraint Jacobians, J-dot q-dot, point Jacobians.
+
+:class:`Evaluator` evaluates one solver block's loop equations over a stack of states
+``Q`` (B, n): residuals at the cut points, the Jacobian of any set of columns (coupled
+groups with their slopes, free spherical joints by rotation increments), steps applied
+back to the states; :func:`tangent` gives dq/dheld from it.
 
 For states ``Q`` (B, n) of a mechanism, :func:`loop_bias` gives the acceleration term
 ``J_dot q_dot`` of every loop of a loop group (exact, from Lie brackets of the joint
@@ -18,8 +23,10 @@ from __future__ import annotations
 import numpy as np
 
 from . import spatial
+from .linalg import least_norm
+from .units import CHUNK
 
-__all__ = ["loop_bias", "point_motion", "joint_motion"]
+__all__ = ["Evaluator", "derive", "tangent", "loop_bias", "point_motion", "joint_motion"]
 
 
 def loop_bias(mech, block, Q, Qd):
@@ -151,3 +158,163 @@ def joint_motion(model, jn, Q, prims=None):
         cols.append(spatial.adjoint_apply(T[0], T[1], screws[k:k + 1])[:, 0])
         T = spatial.compose_rp(T, prs[k].exp(Q[:, sl.start + k]))
     return T, np.stack(cols, axis=1)
+
+
+# ---------------------------------------------------------------------------------------
+# the batched evaluator of one solver block's loop equations
+# ---------------------------------------------------------------------------------------
+
+class Evaluator:
+    """Loop equations of one solver block, evaluated over stacks of states ``Q`` (B, n)."""
+
+    def __init__(self, mech, block, held_masters):
+        s = mech.solver
+        self.m, self.s, self.block = mech, s, block
+        self.held = sorted(g for g in block.groups if g in held_masters)
+        self.joints = list(block.joints)
+        self.prims = {}
+        self.rotj = set()
+        for jn in self.joints:
+            j = mech.joints[jn]
+            self.prims[jn] = [spatial.UnitScrew(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
+            if j.type == "spherical":
+                idx = range(mech._slices[jn].start, mech._slices[jn].stop)
+                if all(s.master[i] == i and len(s.members[i]) == 1 and i not in held_masters for i in idx):
+                    self.rotj.add(jn)
+        # unknown columns, Newton mode (free spherical joints by rotation increments)
+        self.cols_rot = []
+        for g in block.groups:
+            if g in held_masters:
+                continue
+            if mech._owner[mech.coordinates[g]] in self.rotj:
+                continue
+            self.cols_rot.append(("m", g))
+        for jn in self.joints:
+            if jn in self.rotj:
+                self.cols_rot.extend(("s", jn, k) for k in range(3))
+        # unknown columns, coordinate mode (tangents, rates)
+        self.cols_coord = [("m", g) for g in block.groups if g not in held_masters]
+        self.cols_held = [("m", g) for g in self.held]
+        self.nl = len(block.loops)
+        self.rs = np.tile(s.rscale, self.nl)
+        self.es = np.tile(s.escale, self.nl)
+        self.sites = [mech.joints[lp.name].point for lp in block.loops]
+
+    def _cscale(self, cols):
+        """Column scale making the Jacobian dimensionless: a length column is multiplied by
+        the mechanism size (du = scale * du_dimensionless)."""
+        return np.array([1.0 / self.s.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
+
+    def _joint(self, jn, Q, rotmode):
+        prs = self.prims[jn]
+        if rotmode and jn in self.rotj:
+            sl = self.m._slices[jn]
+            T = prs[0].exp(Q[:, sl.start])
+            for k in range(1, len(prs)):
+                T = spatial.compose_rp(T, prs[k].exp(Q[:, sl.start + k]))
+            return T, self.m.joints[jn].rotation_twists()
+        return joint_motion(self.m, jn, Q, prs)
+
+    def eval(self, Q, cols=None, rotmode=True):
+        """Residual (B, 6 nl), per-step largest loop error (B,), and J (B, 6 nl, len(cols))."""
+        B = Q.shape[0]
+        if B > CHUNK:  # bound the memory of the stacked transforms
+            parts = [self.eval(Q[k:k + CHUNK], cols, rotmode) for k in range(0, B, CHUNK)]
+            J = None if cols is None else np.concatenate([p[2] for p in parts])
+            return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]), J
+        m, s = self.m, self.s
+        data = {jn: self._joint(jn, Q, rotmode) for jn in self.joints}
+        r = np.zeros((B, 6 * self.nl))
+        J = None if cols is None else np.zeros((B, 6 * self.nl, len(cols)))
+        for li, loop in enumerate(self.block.loops):
+            R = np.broadcast_to(np.eye(3), (B, 3, 3))
+            p = np.zeros((B, 3))
+            site = None
+            rows = {}
+            for jn, sign in loop.steps:
+                T, X = data[jn]
+                if jn == loop.name:
+                    site = (R @ self.sites[li])[:, :] + p
+                R, p, tw, _ = _step(R, p, T, X, sign, twists=cols is not None)
+                if tw is None:
+                    continue
+                if rotmode and jn in self.rotj:
+                    for k in range(3):
+                        key = ("s", jn, k)
+                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
+                else:
+                    sl = m._slices[jn]
+                    for k in range(sl.stop - sl.start):
+                        key = ("c", sl.start + k)
+                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
+            w, v = spatial.log_rp(R, p)
+            v = v + spatial.cross(w, site)
+            r[:, 6 * li:6 * li + 3] = w
+            r[:, 6 * li + 3:6 * li + 6] = v
+            if cols is not None:
+                for ci, c in enumerate(cols):
+                    if c[0] == "m":
+                        col = None
+                        for i in s.members[c[1]]:
+                            t = rows.get(("c", i))
+                            if t is not None:
+                                a = s.alpha[i] if i not in s.law else s.member_slope(i, Q[:, c[1]])[:, None]
+                                col = a * t if col is None else col + a * t
+                        if col is None:
+                            continue
+                    else:
+                        col = rows.get(c)
+                        if col is None:
+                            continue
+                    J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
+                    J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - spatial.cross(site, col[:, :3])
+        rr = (np.abs(r) * self.es[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
+        errs = rr.max(axis=(1, 2))
+        return r, errs, J
+
+    def apply(self, Q, du, cols):
+        """Add steps du (B, len(cols)) (internal units) to states Q (B, n), in place."""
+        m, s = self.m, self.s
+        sph = {}
+        masters = []
+        for ci, c in enumerate(cols):
+            if c[0] == "m":
+                Q[:, c[1]] += du[:, ci]
+                masters.append(c[1])
+            else:
+                sph.setdefault(c[1], [None] * 3)[c[2]] = du[:, ci]
+        derive(s, Q, masters)
+        for jn, parts in sph.items():
+            j = m.joints[jn]
+            sl = m._slices[jn]
+            d = np.stack(parts, axis=-1)
+            Rd = spatial.exp3(d)
+            T = self.prims[jn][0].exp(Q[:, sl.start])
+            for k in (1, 2):
+                T = spatial.compose_rp(T, self.prims[jn][k].exp(Q[:, sl.start + k]))
+            Rn = Rd @ T[0]
+            Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
+
+
+def derive(s, Q, masters):
+    """Set every coupled member of ``masters`` from its master, in place (states Q (B, n))."""
+    for g in masters:
+        for i in s.members[g]:
+            if i != g:
+                Q[:, i] = s.member_rates(i, Q[:, g])[0] if i in s.law else s.alpha[i] * Q[:, g] + s.beta[i]
+
+
+def tangent(ev, Q):
+    """dq/dheld (B, n_coordcols, n_held) in coordinate mode and the coord columns."""
+    if Q.shape[0] > CHUNK:
+        return np.concatenate([tangent(ev, Q[k:k + CHUNK]) for k in range(0, Q.shape[0], CHUNK)])
+    cols = ev.cols_coord + ev.cols_held
+    _, _, J = ev.eval(Q, cols, rotmode=False)
+    nu = len(ev.cols_coord)
+    cs = ev._cscale(cols)
+    Js = J * ev.rs[None, :, None] * cs[None, None, :]
+    Ju, Jh = Js[:, :, :nu], Js[:, :, nu:]
+    if nu == 0:
+        return np.zeros((Q.shape[0], 0, len(ev.held)))
+    x, _ = least_norm(Ju, -Jh)
+    return x * cs[None, :nu, None] / cs[None, None, nu:]

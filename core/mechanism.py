@@ -24,17 +24,9 @@ import numpy as np
 
 from . import spatial
 from .errors import LimitError, SpecError
-from .spec import ANGLE_UNITS, FORMAT
+from .units import ANGLE_UNITS, ASSEMBLY_TOLERANCE, COAXIAL_TOLERANCE, FORMAT
 
 __all__ = ["Link", "Coupling", "Measure", "Loop", "Mechanism", "Pose", "ASSEMBLY_TOLERANCE"]
-
-#: Home placements that miss closure by no more than this are settled by ``pose``:
-#: position error up to this fraction of the mechanism's size (the largest distance
-#: between joint points), angle error up to this in radians.
-ASSEMBLY_TOLERANCE = 1e-3
-#: Parallel turning axes of loop joints closer than this fraction of the mechanism's size
-#: (or of its coordinates' magnitude, if larger) are made coaxial (drawing noise, e.g. float32 storage of a screw's bearing and nut).
-COAXIAL_TOLERANCE = 1e-5
 
 
 @dataclass

@@ -32,7 +32,7 @@ iterations otherwise, so an unreachable target fails fast), moves no more than t
 prediction allows, and keeps the orientation of the solved block; else it is halved.
 Where halving reaches the smallest step and the orientation still changes, the path
 passes a singular point and the result is flagged singular.  The argument and its
-sources are under "branch continuity" below.
+sources are under "branch continuity" in :mod:`jointwise.linalg`.
 """
 from __future__ import annotations
 
@@ -42,6 +42,10 @@ import numpy as np
 
 from . import spatial
 from .errors import AssemblyError, SpecError
+from .linalg import orientation_agrees, orientation_frame
+from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
+                    JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
+                    MAX_SPAN, MAX_STEP, SINGULAR_RATIO, TOLERANCE)
 
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
 
@@ -52,109 +56,6 @@ def _log6_one(t):
     """(w, v) of one rigid transform: :func:`spatial.log6`'s scalar fast path."""
     x = spatial.log6(t)
     return x[:3], x[3:]
-
-#: Converged when every loop closes within this many radians, and within ``CLOSE_POSITION``
-#: of the mechanism's size in position (scale-free: results do not depend on the drawing's
-#: unit or scale).  Closure errors are reported in radians, with positions weighted by
-#: ``TOLERANCE / (CLOSE_POSITION * size)`` so that one number compares with ``TOLERANCE``.
-TOLERANCE = 1e-9
-CLOSE_POSITION = 1e-11
-#: A pose is flagged singular when the smallest (generic-rank) singular value of the
-#: dimensionless constraint Jacobian of the solved coordinates falls below this
-#: fraction of the largest.
-SINGULAR_RATIO = 1e-3
-#: First continuation sub-step: predicted motion of the solved coordinates,
-#: dimensionless (radian, or length / mechanism size); grows to ``MAX_MOTION``
-#: while the corrector stays small.
-MAX_STEP = 0.1
-MAX_MOTION = 0.3
-#: ... and up to this where the motion is close to linear (screws).
-MAX_LINEAR_MOTION = 2 * math.pi
-#: Largest sub-step of the held coordinates themselves (eight turns).
-MAX_HELD_STEP = 16 * math.pi
-#: A corrector that moves more than half the predicted motion plus this is a jump.
-JUMP_SLACK = 0.01
-MAX_ITER = 30
-#: Held values farther than this from the start (dimensionless: radians, about 1600 turns,
-#: or mechanism sizes) are refused rather than followed for minutes.
-MAX_SPAN = 1e4
-#: Jacobians of this many recent closed states are kept for warm starts from them.
-JACOBIAN_MEMORY = 256
-#: Continuation corrector: each Newton increment must be at most this fraction of the one
-#: before (a Kantorovich-style contraction test, see :func:`branch_step_certified`).
-CONTRACTION = 0.25
-#: Newton iterations of the continuation corrector (it converges quadratically or fails;
-#: linearly, ratio 1/2, only at a dead point reached exactly).
-CORRECTOR_ITER = 24
-#: Increments below this (dimensionless) are not tested for contraction: a branch that
-#: near is the same branch at a singular point, where Newton converges linearly.
-CONTRACT_FLOOR = 1e-6
-#: The corrector gives up when an increment exceeds this fraction of the one before: it
-#: admits the linear convergence (ratio 1/2) of Newton at a dead point reached exactly;
-#: whether the result continues the branch is decided by the orientation and distance
-#: tests (and, for sweeps, by :func:`branch_step_certified` with ``CONTRACTION``).
-CORRECTOR_RATIO = 0.6
-#: Increments below this (dimensionless) are rounding noise: no contraction test on them.
-NOISE_STEP = 1e-11
-#: A relative singular value below this leaves the orientation of a state undefined.
-ORIENT_RATIO = 1e-7
-
-
-# -- branch continuity ---------------------------------------------------------------------------
-#
-# Why a continuation step stays on its assembly branch (the argument the corrector and
-# the sweep's per-step check implement; Allgower & Georg, *Introduction to Numerical
-# Continuation Methods*, 1990/2003, ch. 2 (orientation of the solution curve) and ch. 6
-# (step control from the corrector's contraction); Kantorovich's theorem as in Deuflhard,
-# *Newton Methods for Nonlinear Problems*, 2004, sec. 1.2 and 2.1):
-#
-# 1. Uniqueness near the predictor.  Let x0 be the predictor (the previous state with the
-#    new held values), d0 the least-norm Newton increment there and d1 the next chord
-#    increment.  With omega the (affine-covariant) Lipschitz constant of the dimensionless
-#    Jacobian, Newton-Kantorovich gives: if h = omega |d0| <= 1/2, Newton from x0
-#    converges to a solution within r- = |d0| (1 - sqrt(1 - 2h)) / h and that solution is
-#    the only one within r+ = |d0| (1 + sqrt(1 - 2h)) / h >= 2 |d0|.  The first contraction
-#    theta = |d1| / |d0| estimates h / 2, so ``theta <= CONTRACTION`` (1/4) asks for
-#    h <= 1/2 with the estimate's factor-two margin.  A new state that closes the loops and
-#    lies within 2 |d0| of x0 (row-space part: idle freedoms such as a coupler's spin
-#    between two balls are not part of the branch) is therefore *the* Newton limit from
-#    x0, i.e. the continuation of the previous state, not a state of another branch.
-# 2. Orientation.  The solved block J_u of the dimensionless Jacobian (generic rank r) is
-#    regular along a branch between singular points, so the sign of det(U_r^T J_u V_r),
-#    with U_r, V_r the leading singular vectors at the previous state (where the
-#    determinant is the product of the r largest singular values, > 0), stays positive
-#    from one state to the next.  A sign change means the step crossed J_u = 0: it either
-#    jumped to the mirrored branch (four-bar open <-> crossed, slider above <-> below) or
-#    passed a singular point.
-#
-# A step failing either test is halved.  Where halving reaches the smallest step and the
-# orientation still changes, the path truly passes a singular point (a change point or
-# bifurcation): the step is taken and the state is flagged singular.
-
-def orientation_frame(Js, rank):
-    """Leading singular vectors (U_r, V_r) of scaled Jacobians ``Js`` (..., m, k), and the
-    relative r-th singular value (how well the orientation is defined there)."""
-    u, sv, vt = np.linalg.svd(Js, full_matrices=False)
-    r = max(1, min(rank, sv.shape[-1]))
-    top = np.maximum(sv[..., :1], 1e-300)
-    return u[..., :, :r], np.swapaxes(vt[..., :r, :], -1, -2), sv[..., r - 1] / top[..., 0]
-
-
-def orientation_agrees(frame, Js):
-    """True where det(U_r^T Js V_r) > 0 for the frames of :func:`orientation_frame`."""
-    u, v, defined = frame
-    m = np.swapaxes(u, -1, -2) @ Js @ v
-    return (np.linalg.det(m) > 0) | (defined < ORIENT_RATIO)
-
-
-def branch_step_certified(d0, d1, dist):
-    """The Kantorovich-style test of the module notes: first contraction
-    ``|d1| / |d0| <= CONTRACTION`` and the new state within ``2 |d0|`` of the predictor
-    (arrays of norms, dimensionless)."""
-    d0 = np.asarray(d0, float)
-    theta = np.where(d0 > NOISE_STEP, np.asarray(d1, float) / np.maximum(d0, 1e-300), 0.0)
-    return (theta <= CONTRACTION) & (np.asarray(dist, float) <= 2.0 * d0 + 1e4 * NOISE_STEP)
-
 
 class _Block:
     """Loops that share coordinates, solved together."""
@@ -659,7 +560,6 @@ class Solver:
         """The home state, settled onto closure if within the assembly tolerance."""
         if self._home_q is not None:
             return self._home_q.copy()
-        from .mechanism import ASSEMBLY_TOLERANCE
         m = self.m
         q = m.home.copy()
         notes = [f"home placement settled: {n}" for n in m.settle_notes]

@@ -22,25 +22,9 @@ import numpy as np
 
 from .errors import JointwiseError, SpecError
 from .joints import JOINT_TYPES, Joint, lead_from_angle, thread_lead
+from .units import ANGLE_UNITS, FORMAT, LENGTH_UNITS, LIMITS
 
 __all__ = ["load", "loads", "from_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT", "LIMITS"]
-
-FORMAT = 1
-#: Documented input limits (README, "Input limits").  Beyond them input is refused with
-#: exit 2 before any large allocation.
-LIMITS = {
-    "file_bytes": 16 * 1024 * 1024,   # a mechanism file is read with this cap
-    "nesting": 64,                    # levels of lists and tables
-    "items": 100_000,                 # entries of one list or table
-    "magnitude": 1e12,                # any number in a file (coordinates in file units)
-    "steps": 100_000_000,             # samples of one sweep
-    "turns": 1e4,                     # span of an angle drive in one sweep, in turns
-    "sizes": 1e6,                     # span of a length drive, in mechanism sizes
-}
-#: Length units accepted, with their size in millimetres.
-LENGTH_UNITS = {"mm": 1.0, "cm": 10.0, "m": 1000.0, "in": 25.4}
-#: Angle units accepted, with their size in radians.
-ANGLE_UNITS = {"deg": math.pi / 180, "rad": 1.0}
 
 TOP_KEYS = ("format", "mechanism", "links", "joints", "couplings", "measures")
 MECHANISM_KEYS = ("name", "length_unit", "angle_unit", "ground")

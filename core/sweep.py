@@ -38,7 +38,7 @@ How a sweep is solved
 4. *Branch proof*: every step between neighbouring closed rows must be certified
    (:func:`_certify_pairs`: the row is the Newton limit from the predictor at the row
    before, by a Kantorovich-style contraction and distance test, and the solved block
-   keeps its orientation; the argument is in :mod:`jointwise.solver`, "branch
+   keeps its orientation; the argument is in :mod:`jointwise.linalg`, "branch
    continuity").  A row whose step is not certified is solved again from the row
    before by :meth:`Solver.pose` (certified sub-steps); where that differs, the rows
    after it were on another branch and are solved again, batched, from it.  A step
@@ -69,8 +69,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import spatial
+from . import kinematics, linalg, spatial
 from .errors import AssemblyError, JointwiseError, LimitError, SpecError
+from .linalg import branch_step_certified, orientation_agrees, orientation_frame
+from .units import CHUNK, ORIENT_RATIO, SINGULAR_RATIO, TOLERANCE
 
 __all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule_csv",
            "ANCHOR_STEP", "REFINE_STEP"]
@@ -132,218 +134,17 @@ class Sweep:
         return out
 
 
-# ---------------------------------------------------------------------------------------
-# batched evaluation of the loop equations
-# ---------------------------------------------------------------------------------------
-
-# the (R, p) kernel is spatial's (one copy of the rigid-motion maths)
+# the batched evaluator lives in kinematics, the stacked linear algebra in linalg
+_Evaluator = kinematics.Evaluator
+_derive = kinematics.derive
+_tangent = kinematics.tangent
+_least_norm = linalg.least_norm
+_chol_solve = linalg.chol_solve
+# old names of spatial's (R, p) kernel, for modules not yet moved to it
 _Prim = spatial.UnitScrew
 _compose = spatial.compose_rp
 _inv = spatial.inverse_rp
-_cross = spatial.cross
-_log = spatial.log_rp
 _ad_apply = spatial.adjoint_apply
-
-
-class _Evaluator:
-    """Loop equations of one solver block, evaluated over stacks of states ``Q`` (B, n)."""
-
-    def __init__(self, mech, block, held_masters):
-        s = mech.solver
-        self.m, self.s, self.block = mech, s, block
-        self.held = sorted(g for g in block.groups if g in held_masters)
-        self.joints = list(block.joints)
-        self.prims = {}
-        self.rotj = set()
-        for jn in self.joints:
-            j = mech.joints[jn]
-            self.prims[jn] = [_Prim(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
-            if j.type == "spherical":
-                idx = range(mech._slices[jn].start, mech._slices[jn].stop)
-                if all(s.master[i] == i and len(s.members[i]) == 1 and i not in held_masters for i in idx):
-                    self.rotj.add(jn)
-        # unknown columns, Newton mode (free spherical joints by rotation increments)
-        self.cols_rot = []
-        for g in block.groups:
-            if g in held_masters:
-                continue
-            if mech._owner[mech.coordinates[g]] in self.rotj:
-                continue
-            self.cols_rot.append(("m", g))
-        for jn in self.joints:
-            if jn in self.rotj:
-                self.cols_rot.extend(("s", jn, k) for k in range(3))
-        # unknown columns, coordinate mode (tangents, rates)
-        self.cols_coord = [("m", g) for g in block.groups if g not in held_masters]
-        self.cols_held = [("m", g) for g in self.held]
-        self.nl = len(block.loops)
-        self.rs = np.tile(s.rscale, self.nl)
-        self.es = np.tile(s.escale, self.nl)
-        self.sites = [mech.joints[lp.name].point for lp in block.loops]
-
-    def _cscale(self, cols):
-        """Column scale making the Jacobian dimensionless: a length column is multiplied by
-        the mechanism size (du = scale * du_dimensionless)."""
-        return np.array([1.0 / self.s.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
-
-    def _joint(self, jn, Q, rotmode):
-        m = self.m
-        sl = m._slices[jn]
-        prs = self.prims[jn]
-        if not prs:
-            B = Q.shape[0]
-            return (np.broadcast_to(np.eye(3), (B, 3, 3)), np.zeros((B, 3))), np.zeros((0, 6))
-        if len(prs) == 1:
-            T = prs[0].exp(Q[:, sl.start])
-            return T, m.joints[jn].screws
-        if rotmode and jn in self.rotj:
-            T = prs[0].exp(Q[:, sl.start])
-            for k in range(1, len(prs)):
-                T = _compose(T, prs[k].exp(Q[:, sl.start + k]))
-            return T, m.joints[jn].rotation_twists()
-        screws = m.joints[jn].screws
-        T = prs[0].exp(Q[:, sl.start])
-        cols = [np.broadcast_to(screws[0], (Q.shape[0], 6))]
-        for k in range(1, len(prs)):
-            cols.append(_ad_apply(T[0], T[1], screws[k:k + 1])[:, 0])
-            T = _compose(T, prs[k].exp(Q[:, sl.start + k]))
-        return T, np.stack(cols, axis=1)
-
-    def eval(self, Q, cols=None, rotmode=True):
-        """Residual (B, 6 nl), per-step largest loop error (B,), and J (B, 6 nl, len(cols))."""
-        B = Q.shape[0]
-        if B > CHUNK:  # bound the memory of the stacked transforms
-            parts = [self.eval(Q[k:k + CHUNK], cols, rotmode) for k in range(0, B, CHUNK)]
-            J = None if cols is None else np.concatenate([p[2] for p in parts])
-            return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]), J
-        m, s = self.m, self.s
-        data = {jn: self._joint(jn, Q, rotmode) for jn in self.joints}
-        r = np.zeros((B, 6 * self.nl))
-        J = None if cols is None else np.zeros((B, 6 * self.nl, len(cols)))
-        for li, loop in enumerate(self.block.loops):
-            R = np.broadcast_to(np.eye(3), (B, 3, 3))
-            p = np.zeros((B, 3))
-            site = None
-            rows = {}
-            for jn, sign in loop.steps:
-                T, X = data[jn]
-                if jn == loop.name:
-                    site = (R @ self.sites[li])[:, :] + p
-                if sign > 0:
-                    tw = _ad_apply(R, p, X) if cols is not None and len(X) else None
-                    R, p = _compose((R, p), T)
-                else:
-                    R, p = _compose((R, p), _inv(T))
-                    tw = -_ad_apply(R, p, X) if cols is not None and len(X) else None
-                if tw is None:
-                    continue
-                if rotmode and jn in self.rotj:
-                    for k in range(3):
-                        key = ("s", jn, k)
-                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
-                else:
-                    sl = m._slices[jn]
-                    for k in range(sl.stop - sl.start):
-                        key = ("c", sl.start + k)
-                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
-            w, v = _log(R, p)
-            v = v + _cross(w, site)
-            r[:, 6 * li:6 * li + 3] = w
-            r[:, 6 * li + 3:6 * li + 6] = v
-            if cols is not None:
-                for ci, c in enumerate(cols):
-                    if c[0] == "m":
-                        col = None
-                        for i in s.members[c[1]]:
-                            t = rows.get(("c", i))
-                            if t is not None:
-                                a = s.alpha[i] if i not in s.law else s.member_slope(i, Q[:, c[1]])[:, None]
-                                col = a * t if col is None else col + a * t
-                        if col is None:
-                            continue
-                    else:
-                        col = rows.get(c)
-                        if col is None:
-                            continue
-                    J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
-                    J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - _cross(site, col[:, :3])
-        rr = (np.abs(r) * self.es[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
-        errs = rr.max(axis=(1, 2))
-        return r, errs, J
-
-    def apply(self, Q, du, cols):
-        """Add steps du (B, len(cols)) (internal units) to states Q (B, n), in place."""
-        m, s = self.m, self.s
-        sph = {}
-        masters = []
-        for ci, c in enumerate(cols):
-            if c[0] == "m":
-                Q[:, c[1]] += du[:, ci]
-                masters.append(c[1])
-            else:
-                sph.setdefault(c[1], [None] * 3)[c[2]] = du[:, ci]
-        _derive(s, Q, masters)
-        for jn, parts in sph.items():
-            j = m.joints[jn]
-            sl = m._slices[jn]
-            d = np.stack(parts, axis=-1)
-            Rd = spatial.exp3(d)
-            T = self.prims[jn][0].exp(Q[:, sl.start])
-            for k in (1, 2):
-                T = _compose(T, self.prims[jn][k].exp(Q[:, sl.start + k]))
-            Rn = Rd @ T[0]
-            Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
-
-
-def _derive(s, Q, masters):
-    for g in masters:
-        for i in s.members[g]:
-            if i != g:
-                Q[:, i] = s.member_rates(i, Q[:, g])[0] if i in s.law else s.alpha[i] * Q[:, g] + s.beta[i]
-
-
-def _chol_solve(G, b):
-    """Solve G x = b for stacks of symmetric positive (semi)definite G (B, g, g), b (B, g, k).
-
-    Vectorised Cholesky over the stack; returns (x, det(G) / |G|_F^g) where the second is
-    the scale-free certificate used for singular flags."""
-    B, g, _ = G.shape
-    fro = np.sqrt((G * G).sum(axis=(1, 2)))
-    scale = np.maximum(fro, 1e-300)
-    Gs = G / scale[:, None, None]
-    mu = 1e-13
-    L = np.zeros_like(Gs)
-    for i in range(g):
-        for k in range(i + 1):
-            acc = Gs[:, i, k] - (L[:, i, :k] * L[:, k, :k]).sum(axis=1)
-            if i == k:
-                L[:, i, i] = np.sqrt(np.maximum(acc + mu, mu))
-            else:
-                L[:, i, k] = acc / L[:, k, k]
-    diag = np.stack([L[:, i, i] for i in range(g)], axis=1)
-    cert = np.prod(diag * diag, axis=1)
-    y = np.zeros_like(b)
-    bs = b / scale[:, None, None]
-    for i in range(g):
-        y[:, i] = (bs[:, i] - (L[:, i, :i, None] * y[:, :i]).sum(axis=1)) / L[:, i, i, None]
-    x = np.zeros_like(b)
-    for i in reversed(range(g)):
-        x[:, i] = (y[:, i] - (L[:, i + 1:, i, None] * x[:, i + 1:]).sum(axis=1)) / L[:, i, i, None]
-    return x, cert
-
-
-def _least_norm(Js, rhs):
-    """Least-norm / least-squares solutions x of Js x = rhs, stacked (rhs (B, m, k)).
-
-    Normal equations on the smaller side: (J^T J) x = J^T rhs when J has no more columns
-    than rows, else x = J^T (J J^T)^-1 rhs.  Returns (x, certificate)."""
-    B, mrow, ncol = Js.shape
-    Jt = np.swapaxes(Js, 1, 2)
-    if ncol <= mrow:
-        x, cert = _chol_solve(Jt @ Js, Jt @ rhs)
-        return x, cert
-    y, cert = _chol_solve(Js @ Jt, rhs)
-    return Jt @ y, cert
 
 
 # ---------------------------------------------------------------------------------------
@@ -474,27 +275,6 @@ def _dimless_path(ev, Hm):
     return np.concatenate([[0.0], np.cumsum(d)])
 
 
-#: Batched steps are processed in chunks of this many rows, which bounds the memory
-#: of the stacked Jacobians (rows x loop equations x unknowns) whatever the sweep length.
-CHUNK = 2048
-
-
-def _tangent(ev, Q):
-    """dq/dheld (B, n_coordcols, n_held) in coordinate mode and the coord columns."""
-    if Q.shape[0] > CHUNK:
-        return np.concatenate([_tangent(ev, Q[k:k + CHUNK]) for k in range(0, Q.shape[0], CHUNK)])
-    cols = ev.cols_coord + ev.cols_held
-    _, _, J = ev.eval(Q, cols, rotmode=False)
-    nu = len(ev.cols_coord)
-    cs = ev._cscale(cols)
-    Js = J * ev.rs[None, :, None] * cs[None, None, :]
-    Ju, Jh = Js[:, :, :nu], Js[:, :, nu:]
-    if nu == 0:
-        return np.zeros((Q.shape[0], 0, len(ev.held)))
-    x, _ = _least_norm(Ju, -Jh)
-    return x * cs[None, :nu, None] / cs[None, None, nu:]
-
-
 def _idle_tangents(ev, Q, Hm, known, ok, Tall):
     """Give the tangents at known samples the idle motion the path really has.
 
@@ -540,7 +320,6 @@ def _newton(ev, Q, idx, iters=BATCH_ITER):
     cs = ev._cscale(cols)
     active = np.arange(len(idx))
     errs = np.full(len(idx), np.inf)
-    from .solver import TOLERANCE
     for it in range(iters + 1):
         rows = idx[active]
         sub = Q[rows]
@@ -617,7 +396,6 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
 
 
 def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
-    from .solver import TOLERANCE
     m, s = ctx.m, ctx.s
     N = Q.shape[0]
     Hm = np.stack([target[g] for g in ev.held], axis=1) if ev.held else np.zeros((N, 0))
@@ -873,7 +651,6 @@ def _singular_flags(ev, Q, conv):
     The certificate is computed exactly at the points of the last refinement level and
     interpolated between them; wherever the interpolated value comes within a factor 30 of
     the threshold (or a level point is a local minimum) it is computed exactly."""
-    from .solver import SINGULAR_RATIO
     N = Q.shape[0]
     coarse = getattr(ev, "last_level", None)
     sq = np.zeros(N)
@@ -981,7 +758,7 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
 
     ``proven``: ``Qb`` is the Newton limit from the predictor at ``Qa`` (Kantorovich-style
     uniqueness, so it continues ``Qa``); ``same_orientation``: the solved block keeps
-    its orientation (see :mod:`jointwise.solver`, "branch continuity"); ``degenerate``:
+    its orientation (see :mod:`jointwise.linalg`, "branch continuity"); ``degenerate``:
     the orientation at ``Qa`` is undefined (a singular state).  Proven with the
     orientation changed means the step passed a singular point (a change point).
 
@@ -990,7 +767,6 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
     for a wide block), since J_a = U S V^T; the chord increments use the scaled Jacobian
     at the predictor (least norm, normal equations).  ``Jsa``, ``Jsb``: scaled Jacobians
     at the states, if already evaluated."""
-    from .solver import ORIENT_RATIO, branch_step_certified, orientation_agrees, orientation_frame
     B = Qa.shape[0]
     cols = ev.cols_rot
     if not cols or B == 0:

@@ -1,0 +1,116 @@
+"""Stacked linear algebra of the solver and the sweeps: least-norm steps from the normal
+equations (a Cholesky factorisation vectorised over a stack), the scale-free singular
+certificate, and the orientation and contraction tests that keep a continuation on its
+assembly branch.
+
+Pure numpy; nothing here knows a mechanism.  Scaled (dimensionless) Jacobians come in,
+numbers and flags go out.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .units import CONTRACTION, NOISE_STEP, ORIENT_RATIO
+
+__all__ = ["chol_solve", "least_norm", "orientation_frame", "orientation_agrees",
+           "branch_step_certified"]
+
+
+def chol_solve(G, b):
+    """Solve G x = b for stacks of symmetric positive (semi)definite G (B, g, g), b (B, g, k).
+
+    Vectorised Cholesky over the stack; returns (x, det(G) / |G|_F^g) where the second is
+    the scale-free certificate used for singular flags."""
+    B, g, _ = G.shape
+    fro = np.sqrt((G * G).sum(axis=(1, 2)))
+    scale = np.maximum(fro, 1e-300)
+    Gs = G / scale[:, None, None]
+    mu = 1e-13
+    L = np.zeros_like(Gs)
+    for i in range(g):
+        for k in range(i + 1):
+            acc = Gs[:, i, k] - (L[:, i, :k] * L[:, k, :k]).sum(axis=1)
+            if i == k:
+                L[:, i, i] = np.sqrt(np.maximum(acc + mu, mu))
+            else:
+                L[:, i, k] = acc / L[:, k, k]
+    diag = np.stack([L[:, i, i] for i in range(g)], axis=1)
+    cert = np.prod(diag * diag, axis=1)
+    y = np.zeros_like(b)
+    bs = b / scale[:, None, None]
+    for i in range(g):
+        y[:, i] = (bs[:, i] - (L[:, i, :i, None] * y[:, :i]).sum(axis=1)) / L[:, i, i, None]
+    x = np.zeros_like(b)
+    for i in reversed(range(g)):
+        x[:, i] = (y[:, i] - (L[:, i + 1:, i, None] * x[:, i + 1:]).sum(axis=1)) / L[:, i, i, None]
+    return x, cert
+
+
+def least_norm(Js, rhs):
+    """Least-norm / least-squares solutions x of Js x = rhs, stacked (rhs (B, m, k)).
+
+    Normal equations on the smaller side: (J^T J) x = J^T rhs when J has no more columns
+    than rows, else x = J^T (J J^T)^-1 rhs.  Returns (x, certificate)."""
+    B, mrow, ncol = Js.shape
+    Jt = np.swapaxes(Js, 1, 2)
+    if ncol <= mrow:
+        x, cert = chol_solve(Jt @ Js, Jt @ rhs)
+        return x, cert
+    y, cert = chol_solve(Js @ Jt, rhs)
+    return Jt @ y, cert
+
+
+# -- branch continuity ---------------------------------------------------------------------------
+#
+# Why a continuation step stays on its assembly branch (the argument the corrector and
+# the sweep's per-step check implement; Allgower & Georg, *Introduction to Numerical
+# Continuation Methods*, 1990/2003, ch. 2 (orientation of the solution curve) and ch. 6
+# (step control from the corrector's contraction); Kantorovich's theorem as in Deuflhard,
+# *Newton Methods for Nonlinear Problems*, 2004, sec. 1.2 and 2.1):
+#
+# 1. Uniqueness near the predictor.  Let x0 be the predictor (the previous state with the
+#    new held values), d0 the least-norm Newton increment there and d1 the next chord
+#    increment.  With omega the (affine-covariant) Lipschitz constant of the dimensionless
+#    Jacobian, Newton-Kantorovich gives: if h = omega |d0| <= 1/2, Newton from x0
+#    converges to a solution within r- = |d0| (1 - sqrt(1 - 2h)) / h and that solution is
+#    the only one within r+ = |d0| (1 + sqrt(1 - 2h)) / h >= 2 |d0|.  The first contraction
+#    theta = |d1| / |d0| estimates h / 2, so ``theta <= CONTRACTION`` (1/4) asks for
+#    h <= 1/2 with the estimate's factor-two margin.  A new state that closes the loops and
+#    lies within 2 |d0| of x0 (row-space part: idle freedoms such as a coupler's spin
+#    between two balls are not part of the branch) is therefore *the* Newton limit from
+#    x0, i.e. the continuation of the previous state, not a state of another branch.
+# 2. Orientation.  The solved block J_u of the dimensionless Jacobian (generic rank r) is
+#    regular along a branch between singular points, so the sign of det(U_r^T J_u V_r),
+#    with U_r, V_r the leading singular vectors at the previous state (where the
+#    determinant is the product of the r largest singular values, > 0), stays positive
+#    from one state to the next.  A sign change means the step crossed J_u = 0: it either
+#    jumped to the mirrored branch (four-bar open <-> crossed, slider above <-> below) or
+#    passed a singular point.
+#
+# A step failing either test is halved.  Where halving reaches the smallest step and the
+# orientation still changes, the path truly passes a singular point (a change point or
+# bifurcation): the step is taken and the state is flagged singular.
+
+def orientation_frame(Js, rank):
+    """Leading singular vectors (U_r, V_r) of scaled Jacobians ``Js`` (..., m, k), and the
+    relative r-th singular value (how well the orientation is defined there)."""
+    u, sv, vt = np.linalg.svd(Js, full_matrices=False)
+    r = max(1, min(rank, sv.shape[-1]))
+    top = np.maximum(sv[..., :1], 1e-300)
+    return u[..., :, :r], np.swapaxes(vt[..., :r, :], -1, -2), sv[..., r - 1] / top[..., 0]
+
+
+def orientation_agrees(frame, Js):
+    """True where det(U_r^T Js V_r) > 0 for the frames of :func:`orientation_frame`."""
+    u, v, defined = frame
+    m = np.swapaxes(u, -1, -2) @ Js @ v
+    return (np.linalg.det(m) > 0) | (defined < ORIENT_RATIO)
+
+
+def branch_step_certified(d0, d1, dist):
+    """The Kantorovich-style test of the module notes: first contraction
+    ``|d1| / |d0| <= CONTRACTION`` and the new state within ``2 |d0|`` of the predictor
+    (arrays of norms, dimensionless)."""
+    d0 = np.asarray(d0, float)
+    theta = np.where(d0 > NOISE_STEP, np.asarray(d1, float) / np.maximum(d0, 1e-300), 0.0)
+    return (theta <= CONTRACTION) & (np.asarray(dist, float) <= 2.0 * d0 + 1e4 * NOISE_STEP)
