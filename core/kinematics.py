@@ -26,7 +26,8 @@ from . import spatial
 from .linalg import least_norm
 from .units import CHUNK
 
-__all__ = ["Evaluator", "derive", "tangent", "loop_bias", "point_motion", "joint_motion"]
+__all__ = ["Evaluator", "derive", "tangent", "loop_bias", "loop_columns", "walk_terms", "at_site",
+           "point_motion", "axis_motion", "link_motion", "joint_motion"]
 
 
 def loop_bias(mech, block, Q, Qd):
@@ -47,34 +48,85 @@ def loop_bias(mech, block, Q, Qd):
     on the right-hand side as ``J[:, follower] f'' leader_dot^2`` (zero for a linear
     coupling, ``f'' = 0``).
     """
+    Qd = np.asarray(Qd, dtype=float)
+    return np.concatenate([at_site(walk_terms(cols, Qd)[1], site)
+                           for cols, site in loop_columns(mech, block, Q)], axis=1)
+
+
+def loop_columns(mech, block, Q):
+    """The spatial columns of every loop of ``block`` in product order, and its cut point.
+
+    Returns one ``(cols, site)`` per loop: ``cols`` a list of ``(coordinate index, (B, 6)
+    column J_f)`` in the order of the loop's product (a coordinate appears once per time
+    its joint is walked), ``site`` (B, 3) the cut joint's point where the loop's residual
+    rows are taken (:func:`at_site`)."""
     m = mech
     Q = np.asarray(Q, dtype=float)
-    Qd = np.asarray(Qd, dtype=float)
     B = Q.shape[0]
     joints = {jn for lp in block.loops for jn, _ in lp.steps}
     data = {jn: joint_motion(m, jn, Q) for jn in joints}
-    out = np.zeros((B, 6 * len(block.loops)))
-    for li, loop in enumerate(block.loops):
+    out = []
+    for loop in block.loops:
         R = np.broadcast_to(np.eye(3), (B, 3, 3))
         p = np.zeros((B, 3))
         site = None
-        V = np.zeros((B, 6))
-        acc = np.zeros((B, 6))
+        cols = []
         for jn, sign in loop.steps:
             T, X = data[jn]
             if jn == loop.name:
                 site = (R @ m.joints[loop.name].point) + p
             R, p, tw, order = _step(R, p, T, X, sign)
-            if tw is None:
-                continue
-            start = m._slices[jn].start
-            for k in order:
-                vk = tw[:, k] * Qd[:, start + k, None]
-                acc += spatial.ad(V, vk)
-                V = V + vk
-        out[:, 6 * li:6 * li + 3] = acc[:, :3]
-        out[:, 6 * li + 3:6 * li + 6] = acc[:, 3:] - spatial.cross(site, acc[:, :3])
+            if tw is not None:
+                start = m._slices[jn].start
+                cols.extend((start + k, tw[:, k]) for k in order)
+        out.append((cols, site))
     return out
+
+
+def walk_terms(cols, Qd, Qdd=None):
+    """Running sums over a walk's columns ``c_f`` (product order) at rates ``Qd`` (B, n).
+
+    Returns ``(V, bias)`` and, with ``Qdd`` (B, n), ``(V, bias, jerk)``:
+
+    - ``V = sum_f c_f qd_f``, the twist of the product;
+    - ``bias = sum_f [V_<f, c_f qd_f]``, the part of the twist's rate that does not depend
+      on ``q_ddot`` (``J_dot q_dot``; ``V_dot = sum c_f qdd_f + bias``), from
+      ``dc_f/dt = [V_<f, c_f]`` with ``V_<f`` the twist of the factors left of ``f``
+      (Lynch & Park, *Modern Robotics*, 2017, sec. 5.1.1; Murray, Li & Sastry 1994,
+      sec. 3.2);
+    - ``jerk``, the part of the twist's second rate that does not depend on the third
+      derivatives (``V_ddot = sum c_f qddd_f + jerk``): differentiating ``V_dot`` once more
+      with the same rule, ``jerk = sum_f (2 [V_<f, c_f qdd_f] + [A_<f, c_f qd_f] +
+      [V_<f, [V_<f, c_f qd_f]])``, ``A_<f = sum_{g<f} (c_g qdd_g + [V_<g, c_g qd_g])`` the
+      rate of ``V_<f``.  On a closed loop ``V = V_dot = V_ddot = 0``, so
+      ``J q_dddot = -jerk`` gives third derivatives exactly.
+    """
+    B = Qd.shape[0]
+    V = np.zeros((B, 6))
+    bias = np.zeros((B, 6))
+    if Qdd is None:
+        for i, col in cols:
+            vk = col * Qd[:, i, None]
+            bias += spatial.ad(V, vk)
+            V = V + vk
+        return V, bias
+    A = np.zeros((B, 6))
+    jerk = np.zeros((B, 6))
+    for i, col in cols:
+        vk = col * Qd[:, i, None]
+        ak = col * Qdd[:, i, None]
+        bv = spatial.ad(V, vk)
+        jerk += 2.0 * spatial.ad(V, ak) + spatial.ad(A, vk) + spatial.ad(V, bv)
+        A = A + ak + bv
+        bias += bv
+        V = V + vk
+    return V, bias, jerk
+
+
+def at_site(v, site):
+    """Twists or columns (B, 6) in the solver's row form: moved to the cut point ``site``
+    (the angular part kept, the linear part ``v - site x w``)."""
+    return np.concatenate([v[:, :3], v[:, 3:] - spatial.cross(site, v[:, :3])], axis=1)
 
 
 def _step(R, p, T, X, sign, twists=True):
@@ -99,6 +151,40 @@ def _path_from_ground(model, link):
     return [(jn, sign) for _, jn, sign in reversed(model._path_up(link))]
 
 
+def link_motion(model, Q, Qd, link):
+    """Displacement, twist columns, twist and acceleration term of ``link``.
+
+    Walks the spanning tree from ground to ``link`` over states ``Q`` with rates ``Qd``
+    (B, n).  Returns ``((R, p), cols (B, 6, n), V (B, 6), bias (B, 6))``: the link's
+    displacement from home, its spatial twist per coordinate rate (``V = cols q_dot``),
+    the twist and its rate's part that does not depend on ``q_ddot`` (``V_dot = cols
+    q_ddot + bias``, :func:`walk_terms`)."""
+    Q = np.asarray(Q, dtype=float)
+    Qd = np.asarray(Qd, dtype=float)
+    B, n = Q.shape
+    R = np.broadcast_to(np.eye(3), (B, 3, 3))
+    p = np.zeros((B, 3))
+    cols = np.zeros((B, 6, n))
+    walk = []
+    for jn, sign in _path_from_ground(model, link):
+        T, X = joint_motion(model, jn, Q)
+        R, p, tw, order = _step(R, p, T, X, sign)
+        if tw is None:
+            continue
+        start = model._slices[jn].start
+        for k in order:
+            cols[:, :, start + k] += tw[:, k]
+            walk.append((start + k, tw[:, k]))
+    V, bias = walk_terms(walk, Qd)
+    return (R, p), cols, V, bias
+
+
+def _cross_cols(w_cols, x):
+    """``w_k x x`` for stacked columns ``w_cols`` (B, 3, n) and vectors ``x`` (B, 3): (B, 3, n)."""
+    xc = np.broadcast_to(x[:, None, :], (x.shape[0], w_cols.shape[2], 3))
+    return spatial.cross(np.swapaxes(w_cols, 1, 2), xc).swapaxes(1, 2)
+
+
 def point_motion(model, Q, Qd, link, at):
     """Position, Jacobian and acceleration term of a point fixed to ``link``.
 
@@ -106,37 +192,33 @@ def point_motion(model, Q, Qd, link, at):
     Returns ``(x (B, 3), Jp (B, 3, n), a0 (B, 3))``: the point's position, its velocity per
     coordinate rate (``x_dot = Jp q_dot``) and the part of its acceleration that does not
     depend on ``q_ddot`` (``x_ddot = Jp q_ddot + a0``).  With the link's spatial twist
-    ``V = (w, v) = sum J_f qd_f`` (columns as in :meth:`Evaluator.bias`), ``x_dot = w x x + v``
-    and ``x_ddot = Vdot_w x x + Vdot_v + w x x_dot`` (Murray, Li & Sastry 1994, sec. 2.4;
+    ``V = (w, v) = sum J_f qd_f`` (:func:`link_motion`), ``x_dot = w x x + v`` and
+    ``x_ddot = Vdot_w x x + Vdot_v + w x x_dot`` (Murray, Li & Sastry 1994, sec. 2.4;
     Lynch & Park 2017, sec. 8.2)."""
-    Q = np.asarray(Q, dtype=float)
-    Qd = np.asarray(Qd, dtype=float)
-    B, n = Q.shape
-    R = np.broadcast_to(np.eye(3), (B, 3, 3))
-    p = np.zeros((B, 3))
-    cols = np.zeros((B, 6, n))
-    V = np.zeros((B, 6))
-    acc = np.zeros((B, 6))
-    for jn, sign in _path_from_ground(model, link):
-        j = model.joints[jn]
-        T, X = joint_motion(model, jn, Q)
-        R, p, tw, order = _step(R, p, T, X, sign)
-        if tw is None:
-            continue
-        start = model._slices[j.name].start
-        for k in order:
-            cols[:, :, start + k] = tw[:, k]
-            vk = tw[:, k] * Qd[:, start + k, None]
-            acc += spatial.ad(V, vk)
-            V = V + vk
+    (R, p), cols, V, acc = link_motion(model, Q, Qd, link)
     x = (R @ np.asarray(at, dtype=float)) + p
-    w_cols, v_cols = cols[:, :3], cols[:, 3:]
-    xc = np.broadcast_to(x[:, :, None], w_cols.shape)
-    Jp = spatial.cross(np.swapaxes(w_cols, 1, 2), np.swapaxes(xc, 1, 2)).swapaxes(1, 2) + v_cols
+    Jp = _cross_cols(cols[:, :3], x) + cols[:, 3:]
     w = V[:, :3]
     xdot = spatial.cross(w, x) + V[:, 3:]
     a0 = spatial.cross(acc[:, :3], x) + acc[:, 3:] + spatial.cross(w, xdot)
     return x, Jp, a0
+
+
+def axis_motion(model, Q, Qd, link, axis):
+    """Direction, Jacobian and acceleration term of a unit axis fixed to ``link``.
+
+    ``axis``: the direction at home (world, any length).  Returns ``(u (B, 3), Ju (B, 3, n),
+    a0 (B, 3))`` with ``u_dot = w x u = Ju q_dot`` and ``u_ddot = w_dot x u + w x u_dot =
+    Ju q_ddot + a0`` (a free vector turns with the link's angular velocity ``w``; Murray,
+    Li & Sastry 1994, sec. 2.2)."""
+    (R, _), cols, V, acc = link_motion(model, Q, Qd, link)
+    a = np.asarray(axis, dtype=float)
+    u = R @ (a / np.linalg.norm(a))
+    Ju = _cross_cols(cols[:, :3], u)
+    w = V[:, :3]
+    udot = spatial.cross(w, u)
+    a0 = spatial.cross(acc[:, :3], u) + spatial.cross(w, udot)
+    return u, Ju, a0
 
 
 def joint_motion(model, jn, Q, prims=None):

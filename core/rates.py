@@ -1,135 +1,181 @@
 """Velocities and accelerations of a swept mechanism driven at a speed.
 
-Given solved states ``Q`` (N, n) of a sweep and the drive's rate and acceleration at each
-state, every coordinate's rate and acceleration follow from the loop constraints, not
-from differences of positions:
+A sweep is a one-parameter motion: every coordinate is a function ``q(x)`` of the drive's
+value ``x``.  :func:`drive_derivatives` gives ``q'``, ``q''`` (and ``q'''``) per unit of
+drive exactly, from the loop constraints, not from differences of positions; at a drive
+rate ``x_dot`` and acceleration ``x_ddot`` the chain rule gives the time derivatives,
+``q_dot = q' x_dot`` and ``q_ddot = q'' x_dot^2 + q' x_ddot``.  The loop equations come from
+:mod:`jointwise.kinematics` (one ``J_dot q_dot`` in the core):
 
-- velocity: ``J_u q_dot_u = -J_h q_dot_h`` (the constraint Jacobian of the unknown and
-  the held coordinates; least-norm solution as in the solver);
-- acceleration: differentiating ``J(q) q_dot = 0`` once more gives
-  ``J_u q_ddot_u = -J_h q_ddot_h - J_dot q_dot``.  The loop product is a product of
-  exponentials; its spatial column of factor ``f`` is ``J_f = Ad(factors left of f) Y_f``
-  and ``dJ_f/dq_g = ad(J_g) J_f`` for ``g`` left of ``f``, so ``J_dot q_dot = sum_f
-  [V_<f, J_f q_dot_f]`` with ``V_<f`` the twist of the factors left of ``f`` (the Lie
-  bracket ``[V, W] = ad_V W``; Lynch & Park, *Modern Robotics*, 2017, sec. 5.1 and 8.2;
-  Murray, Li & Sastry 1994, sec. 3.2).  A coupling ``q_i = f(q_g)`` adds
-  ``f''(q_g) q_dot_g^2`` to ``q_ddot_i``, which goes to the right-hand side.
-- a point fixed to a link: with the link's spatial twist ``V = (w, v)`` (sum of the tree
-  path's columns times rates), ``x_dot = w x x + v`` and ``x_ddot = w_dot x x + v_dot +
-  w x x_dot``, ``V_dot = sum J_f q_ddot_f + sum_f [V_<f, J_f q_dot_f]`` (Murray, Li &
-  Sastry 1994, sec. 2.4).
+- first: ``J_u q'_u = -J_h x'`` (the constraint Jacobian of the unknown and the held
+  coordinates; least-norm solution as in the solver);
+- second: differentiating ``J q' = 0`` once more, ``J q'' = -J_dot q'`` with
+  ``J_dot q'`` from Lie brackets (:func:`kinematics.walk_terms`; Lynch & Park, *Modern
+  Robotics*, 2017, sec. 5.1 and 8.2; Murray, Li & Sastry 1994, sec. 3.2);
+- third (rate measures only): once more, ``J q''' = -(2 J_dot q'' + J_ddot q')``, the
+  bracket form of :func:`kinematics.walk_terms` (``jerk``).
 
-Internal units throughout (radians, the file's length unit, seconds).  The sweep
-evaluator of :mod:`jointwise.sweep` gives the loop Jacobians (with the coupling slopes).
+A coupling ``q_i = f(q_g)`` gives ``q_i' = f' g'``, ``q_i'' = f' g'' + f'' g'^2`` and
+``q_i''' = f' g''' + 3 f'' g' g'' + f''' g'^3``; the terms without the master's own
+derivative go to the right-hand side.  ``f'`` and ``f''`` are the laws' exact ones;
+``f'''`` (third order only) is a central difference of the exact ``f''`` (step 1e-4 rad,
+or 1e-4 mechanism sizes for a length leader).
+
+Measures (file units per s and per s^2; angles in degrees):
+
+- point: ``x_dot = Jp q_dot``, ``x_ddot = Jp q_ddot + a0`` (:func:`kinematics.point_motion`);
+- distance ``d = |r|``, ``r = x_a - x_b``: ``d_dot = r . r_dot / d``,
+  ``d_ddot = (r_dot . r_dot + r . r_ddot - d_dot^2) / d``;
+- angle ``t = acos(u_a . u_b)`` of two unit axes (:func:`kinematics.axis_motion`):
+  ``t_dot = -c_dot / sin t``, ``t_ddot = -(c_ddot + cos t t_dot^2) / sin t``;
+- rate ``M = d(of)/d(per) = q'_of / q'_per`` along the sweep's path:
+  ``M' = (q''_of q'_per - q'_of q''_per) / q'_per^2``,
+  ``M'' = (q'''_of q'_per - q'_of q'''_per) / q'_per^2 - 2 q''_per M' / q'_per``, then
+  ``M_dot = M' x_dot``, ``M_ddot = M'' x_dot^2 + M' x_ddot`` (the quotient and chain
+  rules; checked in tests/test_rates.py against the closed form of a slider-crank's
+  ratio derivatives and against central differences).
+
+Undefined values are NaN here (written as empty cells, never as NaN): rows that did not
+converge; a rate measure where ``q'_per = 0`` (``per`` stands still: a dead point);
+a rate measure whose own motion is not the sweep's (its ``of``, or its ``per`` other than
+the drive, is held in the run, so the measure releases or holds another coordinate);
+a distance of zero; an angle of 0 or 180 degrees.
+
+Internal units throughout (radians, the file's length unit, seconds) except in
+:func:`attach`, which gives file units.
 """
 from __future__ import annotations
 
 import numpy as np
 
-from . import spatial
+from . import kinematics
+from .linalg import least_norm
+from .units import CHUNK
 
-__all__ = ["coordinate_rates", "point_rates", "loop_bias"]
+__all__ = ["drive_derivatives", "coordinate_rates", "measure_rates", "drive_timing", "attach"]
 
-
-def _cross(a, b):
-    return np.stack([a[..., 1] * b[..., 2] - a[..., 2] * b[..., 1],
-                     a[..., 2] * b[..., 0] - a[..., 0] * b[..., 2],
-                     a[..., 0] * b[..., 1] - a[..., 1] * b[..., 0]], axis=-1)
-
-
-def _bracket(V, W):
-    """[V, W] = ad_V W for stacked twists (w, v): (w_V x w_W, w_V x v_W + v_V x w_W)."""
-    return np.concatenate([_cross(V[:, :3], W[:, :3]),
-                           _cross(V[:, :3], W[:, 3:]) + _cross(V[:, 3:], W[:, :3])], axis=-1)
+#: A rate measure's ``per`` counts as standing still where ``|q'_per|`` is below this
+#: fraction of its largest value over the sweep.
+DEAD = 1e-12
 
 
-def _joint_motion(mech, jn, Q, prims):
-    """(R, p) of joint ``jn`` and its per-coordinate columns in the frame before it (B, k, 6)."""
-    from .sweep import _ad_apply, _compose
-    j = mech.joints[jn]
-    sl = mech._slices[jn]
+def drive_derivatives(mech, Q, held_masters, drive, order=2):
+    """Derivatives of every coordinate per unit of the drive along a sweep's path.
+
+    ``Q`` (N, n) solved states; ``held_masters``: solver master indices held in the run
+    (the drive's among them; the others stand still); ``drive``: the driving coordinate's
+    index.  Returns ``[D1, D2]`` (``order=2``) or ``[D1, D2, D3]`` (``order=3``), each
+    (N, n): ``d^k q / dx^k`` in internal units (x the drive's value, internal units).
+    One walk of each loop per chunk of states gives the columns of every order."""
+    s = mech.solver
+    Q = np.asarray(Q, dtype=float)
+    N, n = Q.shape
+    D = [np.zeros((N, n)) for _ in range(order)]
+    g = int(s.master[drive])
+    D[0][:, g] = 1.0 / (s.member_slope(drive, Q[:, g]) * np.ones(N))   # a linear member: 1 / alpha
+    bi = s.block_of_master.get(g)
+    if bi is not None:
+        b = s.blocks[bi]
+        unknown = [m for m in b.groups if m not in held_masters]
+        if unknown:
+            for k0 in range(0, N, CHUNK):
+                sl = slice(k0, min(N, k0 + CHUNK))
+                part = _block_derivatives(mech, b, Q[sl], [d[sl] for d in D], g, unknown)
+                for d, v in zip(D, part):
+                    d[sl] = v
+    _members(s, Q, D, [int(m) for m in s.members])   # members of every group follow their master
+    return D
+
+
+def _block_derivatives(mech, b, Q, D, g, unknown):
+    """:func:`drive_derivatives` on one chunk of states for the drive's block ``b``."""
+    s = mech.solver
     B = Q.shape[0]
-    prs = prims[jn]
-    if not prs:
-        return (np.broadcast_to(np.eye(3), (B, 3, 3)), np.zeros((B, 3))), np.zeros((B, 0, 6))
-    screws = j.screws
-    T = prs[0].exp(Q[:, sl.start])
-    cols = [np.broadcast_to(screws[0], (B, 6))]
-    for k in range(1, len(prs)):
-        cols.append(_ad_apply(T[0], T[1], screws[k:k + 1])[:, 0])
-        T = _compose(T, prs[k].exp(Q[:, sl.start + k]))
-    return T, np.stack(cols, axis=1)
+    D = [d.copy() for d in D]
+    walks = kinematics.loop_columns(mech, b, Q)
+    col_of = {m: k for k, m in enumerate(unknown)}
+    cs = np.array([1.0 / s.cscale[m] for m in unknown])   # length columns: mechanism sizes
+    rs = np.tile(s.rscale, len(b.loops))
+    Ju = np.zeros((B, 6 * len(b.loops), len(unknown)))
+    jh = np.zeros((B, 6 * len(b.loops)))
+    for li, (cols, site) in enumerate(walks):
+        for i, col in cols:
+            m = int(s.master[i])
+            if m != g and m not in col_of:
+                continue
+            row = kinematics.at_site(col, site) * np.reshape(s.member_slope(i, Q[:, m]) * np.ones(B), (-1, 1))
+            if m == g:
+                jh[:, 6 * li:6 * li + 6] += row
+            else:
+                Ju[:, 6 * li:6 * li + 6, col_of[m]] += row
+    Js = Ju * rs[None, :, None] * cs[None, None, :]
+
+    def solve(rest, k):
+        """The masters' k-th derivatives from ``Ju u + jh D_k[g] + rest = 0``."""
+        rhs = -((jh * D[k][:, g, None] + rest) * rs[None, :])[:, :, None]
+        u = least_norm(Js, rhs)[0][:, :, 0] * cs[None, :]
+        for m, c in col_of.items():
+            D[k][:, m] = u[:, c]
+        _members(s, Q, D[:k + 1], b.groups, only=k)
+
+    def rest(terms, extra):
+        """Loop rows of ``terms`` (per loop, (B, 6)) plus ``sum_f c_f extra_f``."""
+        out = [kinematics.at_site(t + sum(col * extra[:, i, None] for i, col in cols), site)
+               for t, (cols, site) in zip(terms, walks)]
+        return np.concatenate(out, axis=1)
+
+    solve(0.0, 0)
+    if len(D) > 1:
+        bias = [kinematics.walk_terms(cols, D[0])[1] for cols, _ in walks]
+        solve(rest(bias, _curvature(s, Q, D, b.groups, 1)), 1)
+    if len(D) > 2:
+        jerk = [kinematics.walk_terms(cols, D[0], D[1])[2] for cols, _ in walks]
+        solve(rest(jerk, _curvature(s, Q, D, b.groups, 2)), 2)
+    return D
 
 
-def _prims(mech):
-    from .sweep import _Prim
-    return {jn: [_Prim(pr.screw, h) for pr, h in zip(j.primitives, j.home)] for jn, j in mech.joints.items()}
+def _law_terms(s, i, qg, order):
+    """(f', f'', f''') of member ``i`` over master values ``qg``; f''' (order 3 only) by a
+    central difference of the law's exact f''."""
+    _, d1, d2 = s.member_rates(i, qg)
+    d3 = np.zeros_like(qg)
+    if order > 2 and i in s.law:
+        h = 1e-4 / s.cscale[int(s.master[i])]
+        d3 = (s.member_rates(i, qg + h)[2] - s.member_rates(i, qg - h)[2]) / (2 * h)
+    return d1, d2, d3
 
 
-def _columns(mech, steps, Q, prims):
-    """Walk ``steps`` (joint, sign) from the identity over states Q.
-
-    Returns the final (R, p), the walk's (R, p) before each joint (dict), and the factors'
-    spatial columns in product order: a list of (coordinate index, (B, 6) twist)."""
-    from .sweep import _ad_apply, _compose, _inv
-    B = Q.shape[0]
-    R = np.broadcast_to(np.eye(3), (B, 3, 3))
-    p = np.zeros((B, 3))
-    frames = {}
-    cols = []
-    for jn, sign in steps:
-        T, X = _joint_motion(mech, jn, Q, prims)
-        frames[jn] = (R, p)
-        k = X.shape[1]
-        start = mech._slices[jn].start
-        if sign > 0:
-            tw = _ad_apply(R, p, X) if k else None
-            R, p = _compose((R, p), T)
-            order = range(k)
-        else:
-            R, p = _compose((R, p), _inv(T))
-            tw = -_ad_apply(R, p, X) if k else None
-            order = reversed(range(k))
-        if tw is not None:
-            cols.extend((start + c, tw[:, c]) for c in order)
-    return (R, p), frames, cols
-
-
-def _accumulate(cols, Qd, extra=None):
-    """The twist ``V = sum J_f q_dot_f`` of a walk's columns and ``sum_f [V_<f, J_f q_dot_f]``
-    (plus ``sum_f J_f extra_f`` when ``extra`` (B, n) is given)."""
-    B = Qd.shape[0]
-    V = np.zeros((B, 6))
-    acc = np.zeros((B, 6))
-    for i, col in cols:
-        vk = col * Qd[:, i, None]
-        acc += _bracket(V, vk)
-        V += vk
-        if extra is not None:
-            acc += col * extra[:, i, None]
-    return V, acc
-
-
-def _walk(mech, steps, Q, Qd, prims, extra=None):
-    (R, p), frames, cols = _columns(mech, steps, Q, prims)
-    V, acc = _accumulate(cols, Qd, extra)
-    return (R, p), frames, V, acc
-
-
-def _site_rows(v, site):
-    """A spatial twist (or column) in the solver's row form: moved to the cut point."""
-    out = v.copy()
-    out[:, 3:] = v[:, 3:] - _cross(site, v[:, :3])
+def _curvature(s, Q, D, masters, k):
+    """The part of the members' (k+1)-th derivatives that does not depend on their master's
+    own (k+1)-th derivative (N, n): ``f'' g'^2`` (k=1) or ``3 f'' g' g'' + f''' g'^3`` (k=2)."""
+    out = np.zeros_like(D[0])
+    for g in masters:
+        for i in s.members[g]:
+            if i == g or i not in s.law:
+                continue
+            d1, d2, d3 = _law_terms(s, i, Q[:, g], k + 1)
+            g1 = D[0][:, g]
+            out[:, i] = d2 * g1 ** 2 if k == 1 else 3 * d2 * g1 * D[1][:, g] + d3 * g1 ** 3
     return out
 
 
-def loop_bias(mech, loop, Q, Qd, prims, extra=None):
-    """``J_dot q_dot`` (+ ``J extra``) of one loop at its cut point, (B, 6), in the row form
-    of the solver's residual (twist moved to the point where the loop is cut)."""
-    (R, p), frames, V, acc = _walk(mech, loop.steps, Q, Qd, prims, extra)
-    Rc, pc = frames[loop.name]
-    site = (Rc @ np.asarray(mech.joints[loop.name].point, float)) + pc
-    return _site_rows(acc, site)
+def _members(s, Q, D, masters, only=None):
+    """Set members' derivatives from their masters' (in place in the list ``D``; ``only``:
+    just that order)."""
+    orders = range(len(D)) if only is None else [only]
+    for g in masters:
+        for i in s.members[g]:
+            if i == g:
+                continue
+            d1, d2, d3 = _law_terms(s, i, Q[:, g], max(orders) + 1)
+            g1 = D[0][:, g]
+            for k in orders:
+                if k == 0:
+                    D[0][:, i] = d1 * g1
+                elif k == 1:
+                    D[1][:, i] = d1 * D[1][:, g] + d2 * g1 ** 2
+                else:
+                    D[2][:, i] = d1 * D[2][:, g] + 3 * d2 * g1 * D[1][:, g] + d3 * g1 ** 3
 
 
 def coordinate_rates(mech, Q, held_masters, drive, qd_drive, qdd_drive):
@@ -138,148 +184,96 @@ def coordinate_rates(mech, Q, held_masters, drive, qd_drive, qdd_drive):
     ``Q`` (N, n) solved states; ``held_masters``: solver master indices held in the run;
     ``drive``: the driving coordinate's index; ``qd_drive``, ``qdd_drive`` (N,): its rate
     and acceleration (internal units).  Other held coordinates stand still.  Returns
-    ``(Qd, Qdd)`` (N, n).  One walk of each loop per chunk of states gives the columns
-    of both the velocity and the acceleration equations."""
-    from .sweep import CHUNK, _least_norm
-    s = mech.solver
-    Q = np.asarray(Q, dtype=float)
-    N, n = Q.shape
-    g = int(s.master[drive])
-    slope = s.member_slope(drive, Q[:, g]) * np.ones(N)
-    gd = qd_drive / slope                      # master rate (a linear member: / alpha)
-    gdd = qdd_drive / slope
-    Qd = np.zeros((N, n))
-    Qdd = np.zeros((N, n))
-    Qd[:, g], Qdd[:, g] = gd, gdd
-    bi = s.block_of_master.get(g)
-    prims = _prims(mech)
-    if bi is not None:
-        b = s.blocks[bi]
-        unknown = [m for m in b.groups if m not in held_masters]
-        col_of = {m: k for k, m in enumerate(unknown)}
-        cs = np.array([1.0 / s.cscale[m] for m in unknown])   # length columns: mechanism sizes
-        rs = np.tile(s.rscale, len(b.loops))
-        nu = len(unknown)
-        for k0 in range(0, N, CHUNK):
-            sl = slice(k0, min(N, k0 + CHUNK))
-            Qc = Q[sl]
-            B = Qc.shape[0]
-            walks = []
-            Ju = np.zeros((B, 6 * len(b.loops), nu))
-            jh = np.zeros((B, 6 * len(b.loops)))
-            for li, lp in enumerate(b.loops):
-                _, frames, cols = _columns(mech, lp.steps, Qc, prims)
-                Rc, pc = frames[lp.name]
-                site = (Rc @ np.asarray(mech.joints[lp.name].point, float)) + pc
-                walks.append((cols, site))
-                for i, col in cols:
-                    m = int(s.master[i])
-                    row = _site_rows(col, site)
-                    if m == g:
-                        sl_ = s.member_slope(i, Qc[:, m])
-                        jh[:, 6 * li:6 * li + 6] += row * (np.asarray(sl_)[:, None] if np.ndim(sl_) else sl_)
-                    elif m in col_of:
-                        sl_ = s.member_slope(i, Qc[:, m])
-                        Ju[:, 6 * li:6 * li + 6, col_of[m]] += row * (np.asarray(sl_)[:, None] if np.ndim(sl_) else sl_)
-            Qdc = np.zeros((B, n))
-            Qdc[:, g] = gd[sl]
-            if nu:
-                Js = Ju * rs[None, :, None] * cs[None, None, :]
-                rhs = -(jh * gd[sl, None] * rs[None, :])[:, :, None]
-                x, _ = _least_norm(Js, rhs)
-                ud = x[:, :, 0] * cs[None, :]
-                for m, k in col_of.items():
-                    Qdc[:, m] = ud[:, k]
-            curv = _members(s, Qc, Qdc, None, b.groups)
-            if nu:
-                bias = np.concatenate([_site_rows(_accumulate(cols, Qdc, curv)[1], site) for cols, site in walks],
-                                      axis=1)
-                rhs = -((jh * gdd[sl, None] + bias) * rs[None, :])[:, :, None]
-                x, _ = _least_norm(Js, rhs)
-                udd = x[:, :, 0] * cs[None, :]
-                for m, k in col_of.items():
-                    Qd[sl, m] = ud[:, k]
-                    Qdd[sl, m] = udd[:, k]
-    # members of every moving group follow their master
-    _members(s, Q, Qd, Qdd, [int(m) for m in s.members])
-    return Qd, Qdd
+    ``(Qd, Qdd)`` (N, n), by the chain rule from :func:`drive_derivatives`."""
+    D1, D2 = drive_derivatives(mech, Q, held_masters, drive)
+    return _in_time(D1, D2, qd_drive, qdd_drive)
 
 
-def _members(s, Q, Qd, Qdd, masters):
-    """Set members' rates from their masters' (in place in Qd and, when given, Qdd: returns
-    zeros); without Qdd, returns the curvature terms ``f''(q_g) q_dot_g^2`` (N, n)."""
-    curv = np.zeros_like(Qd)
-    for g in masters:
-        for i in s.members[g]:
-            if i == g:
-                continue
-            _, d1, d2 = s.member_rates(i, Q[:, g])
-            Qd[:, i] = d1 * Qd[:, g]
-            c = d2 * Qd[:, g] ** 2
-            if Qdd is not None:
-                Qdd[:, i] = d1 * Qdd[:, g] + c
-            else:
-                curv[:, i] = c
-    return np.zeros_like(Qd) if Qdd is not None else curv
+def _in_time(D1, D2, xd, xdd):
+    """``(q_dot, q_ddot)`` from derivatives per unit of drive at drive rate ``xd`` and
+    acceleration ``xdd`` (scalars or (N,))."""
+    xd = np.reshape(np.asarray(xd, float) * np.ones(D1.shape[0]), (-1, 1))
+    xdd = np.reshape(np.asarray(xdd, float) * np.ones(D1.shape[0]), (-1, 1))
+    return D1 * xd, D2 * xd * xd + D1 * xdd
 
 
-def point_rates(mech, Q, Qd, Qdd, link, at, prims=None):
-    """Position, velocity and acceleration (N, 3 each) of a point fixed to ``link``
-    (``at``: the point at home, world, length unit)."""
-    prims = prims or _prims(mech)
-    steps = [(jn, sign) for _, jn, sign in reversed(mech._path_up(link))]
-    (R, p), _, V, acc = _walk(mech, steps, Q, Qd, prims, Qdd)
-    x = (R @ np.asarray(at, dtype=float)) + p
-    w = V[:, :3]
-    xd = _cross(w, x) + V[:, 3:]
-    xdd = _cross(acc[:, :3], x) + acc[:, 3:] + _cross(w, xd)
-    return x, xd, xdd
+def _dot(a, b):
+    return np.einsum("ij,ij->i", a, b)
 
 
-def axis_rates(mech, Q, Qd, Qdd, link, axis, prims=None):
-    """Direction, its rate and acceleration (N, 3 each) of a unit axis fixed to ``link``."""
-    prims = prims or _prims(mech)
-    steps = [(jn, sign) for _, jn, sign in reversed(mech._path_up(link))]
-    (R, p), _, V, acc = _walk(mech, steps, Q, Qd, prims, Qdd)
-    a = np.asarray(axis, float)
-    u = R @ (a / np.linalg.norm(a))
-    w = V[:, :3]
-    ud = _cross(w, u)
-    udd = _cross(acc[:, :3], u) + _cross(w, ud)
-    return u, ud, udd
-
-
-def measure_rates(mech, Q, Qd, Qdd):
+def measure_rates(mech, Q, Qd, Qdd, rated=None):
     """Velocities and accelerations of the measures: {name: (N,) or (N, 3)} each, file units
-    per s (angles in degrees per s).  Rate measures (speed ratios) are left out."""
-    prims = _prims(mech)
+    per s (angles in degrees per s).  ``rated``: ``(D, xd, xdd, held_masters, drive)`` with
+    ``D = [D1, D2, D3]`` of :func:`drive_derivatives`, the drive's rate and acceleration
+    (internal units), for the rate measures (left out without it).  NaN where undefined
+    (see the module's notes), never inf."""
     vel, acc = {}, {}
-    for name, m in mech.measures.items():
-        if m.type == "point":
-            _, xd, xdd = point_rates(mech, Q, Qd, Qdd, m.a[0], m.a[1], prims)
-            vel[name], acc[name] = xd, xdd
-        elif m.type == "distance":
-            pa, va, aa = point_rates(mech, Q, Qd, Qdd, m.a[0], m.a[1], prims)
-            pb, vb, ab = point_rates(mech, Q, Qd, Qdd, m.b[0], m.b[1], prims)
-            r, rd, rdd = pa - pb, va - vb, aa - ab
-            d = np.linalg.norm(r, axis=1)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                dd = np.einsum("ij,ij->i", r, rd) / d
-                ddd = (np.einsum("ij,ij->i", rd, rd) + np.einsum("ij,ij->i", r, rdd) - dd * dd) / d
-            vel[name], acc[name] = dd, ddd
-        elif m.type == "angle":
-            ua, uad, uadd = axis_rates(mech, Q, Qd, Qdd, m.a[0], m.a[1], prims)
-            ub, ubd, ubdd = axis_rates(mech, Q, Qd, Qdd, m.b[0], m.b[1], prims)
-            c = np.clip(np.einsum("ij,ij->i", ua, ub), -1.0, 1.0)
-            sn = np.sqrt(1.0 - c * c)
-            cd = np.einsum("ij,ij->i", uad, ub) + np.einsum("ij,ij->i", ua, ubd)
-            cdd = (np.einsum("ij,ij->i", uadd, ub) + 2 * np.einsum("ij,ij->i", uad, ubd)
-                   + np.einsum("ij,ij->i", ua, ubdd))
-            with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for name, m in mech.measures.items():
+            if m.type == "point":
+                _, xd, xdd = _point(mech, Q, Qd, Qdd, m.a)
+                vel[name], acc[name] = xd, xdd
+            elif m.type == "distance":
+                pa, va, aa = _point(mech, Q, Qd, Qdd, m.a)
+                pb, vb, ab = _point(mech, Q, Qd, Qdd, m.b)
+                r, rd, rdd = pa - pb, va - vb, aa - ab
+                d = np.linalg.norm(r, axis=1)
+                dd = _dot(r, rd) / d
+                vel[name], acc[name] = dd, (_dot(rd, rd) + _dot(r, rdd) - dd * dd) / d
+            elif m.type == "angle":
+                ua, uad, uadd = _axis(mech, Q, Qd, Qdd, m.a)
+                ub, ubd, ubdd = _axis(mech, Q, Qd, Qdd, m.b)
+                c = np.clip(_dot(ua, ub), -1.0, 1.0)
+                sn = np.sqrt(1.0 - c * c)
+                cd = _dot(uad, ub) + _dot(ua, ubd)
+                cdd = _dot(uadd, ub) + 2 * _dot(uad, ubd) + _dot(ua, ubdd)
                 td = -cd / sn                                  # theta = acos(c)
-                tdd = -(cdd + c * td * td) / sn
-            vel[name], acc[name] = np.degrees(td), np.degrees(tdd)
+                vel[name], acc[name] = np.degrees(td), np.degrees(-(cdd + c * td * td) / sn)
+            elif rated is not None:
+                vel[name], acc[name] = _rate_measure(mech, m, *rated)
+    for k in vel:  # never inf: undefined is NaN (an empty cell)
+        vel[k] = np.where(np.isfinite(vel[k]), vel[k], np.nan)
+        acc[k] = np.where(np.isfinite(acc[k]), acc[k], np.nan)
     return vel, acc
+
+
+def _point(mech, Q, Qd, Qdd, where):
+    """Position, velocity and acceleration (N, 3 each) of ``where = (link, point at home)``."""
+    x, Jp, a0 = kinematics.point_motion(mech, Q, Qd, where[0], where[1])
+    return x, np.einsum("bij,bj->bi", Jp, Qd), np.einsum("bij,bj->bi", Jp, Qdd) + a0
+
+
+def _axis(mech, Q, Qd, Qdd, where):
+    """Unit direction, its rate and acceleration (N, 3 each) of ``where = (link, axis)``."""
+    u, Ju, a0 = kinematics.axis_motion(mech, Q, Qd, where[0], where[1])
+    return u, np.einsum("bij,bj->bi", Ju, Qd), np.einsum("bij,bj->bi", Ju, Qdd) + a0
+
+
+def _rate_measure(mech, m, D, xd, xdd, held_masters, drive):
+    """Rate and acceleration (file units per s, per s^2) of rate measure ``m`` =
+    d(of)/d(per) along the sweep (see the module's notes)."""
+    s = mech.solver
+    N = D[0].shape[0]
+    io, ip = mech._require(m.of), mech._require(m.per)
+    go, gp = int(s.master[io]), int(s.master[ip])
+    conv = mech._unit(ip) / mech._unit(io)
+    if go != gp:
+        bo = s.block_of_master.get(go)
+        if bo is None or s.block_of_master.get(gp) != bo:      # the measure is 0 throughout
+            return np.zeros(N), np.zeros(N)
+        others = set(held_masters) - {int(s.master[drive])}
+        if go in others or gp in others:                        # not the sweep's motion
+            return np.full(N, np.nan), np.full(N, np.nan)
+    elif io not in s.law and ip not in s.law:                  # a constant ratio
+        return np.zeros(N), np.zeros(N)
+    a1, a2, a3 = (d[:, io] for d in D)
+    b1, b2, b3 = (d[:, ip] for d in D)
+    finite = np.isfinite(b1)
+    big = np.abs(b1[finite]).max() if finite.any() else 0.0
+    b1 = np.where(np.abs(b1) > DEAD * big, b1, np.nan)        # per stands still: undefined
+    m1 = (a2 * b1 - a1 * b2) / (b1 * b1)
+    m2 = (a3 * b1 - a1 * b3) / (b1 * b1) - 2 * b2 * m1 / b1
+    return conv * m1 * xd, conv * (m2 * xd * xd + m1 * xdd)
 
 
 def drive_timing(values, speed, acceleration=0.0):
@@ -315,13 +309,16 @@ def drive_timing(values, speed, acceleration=0.0):
 def attach(mech, sw, drive, values, speed, acceleration, held_masters):
     """Add ``time``, ``velocities``, ``accelerations``, ``measure_velocities`` and
     ``measure_accelerations`` (file units per s, per s^2) to Sweep ``sw``; rows that did
-    not converge hold NaN (written as empty cells)."""
+    not converge, and values undefined there (see the module's notes), hold NaN (written
+    as empty cells, null in JSON)."""
     i = mech._require(drive)
     t, rate = drive_timing(values, speed, acceleration)
     unit = mech._unit(i)
-    qd = rate * unit
-    qdd = np.full(len(values), float(acceleration) * unit)
-    Qd, Qdd = coordinate_rates(mech, sw.q, held_masters, i, qd, qdd)
+    xd = rate * unit
+    xdd = float(acceleration) * unit
+    rated = any(m.type == "rate" for m in mech.measures.values())
+    D = drive_derivatives(mech, sw.q, held_masters, i, order=3 if rated else 2)
+    Qd, Qdd = _in_time(D[0], D[1], xd, xdd)
     bad = ~np.asarray(sw.converged, bool)
     sw.time = t
     sw.velocities, sw.accelerations = {}, {}
@@ -329,7 +326,7 @@ def attach(mech, sw, drive, values, speed, acceleration, held_masters):
         u = mech._unit(k)
         sw.velocities[c] = np.where(bad, np.nan, Qd[:, k] / u)
         sw.accelerations[c] = np.where(bad, np.nan, Qdd[:, k] / u)
-    mv, ma = measure_rates(mech, sw.q, Qd, Qdd)
+    mv, ma = measure_rates(mech, sw.q, Qd, Qdd, (D, xd, xdd, held_masters, i) if rated else None)
     shape = (lambda v: bad[:, None] if v.ndim > 1 else bad)
     sw.measure_velocities = {k: np.where(shape(v), np.nan, v) for k, v in mv.items()}
     sw.measure_accelerations = {k: np.where(shape(v), np.nan, v) for k, v in ma.items()}

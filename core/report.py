@@ -54,14 +54,14 @@ def header(mech, drive, rates=False):
 def rate_columns(mech):
     """Columns of a sweep at a speed: ``time``, ``C.vel, C.acc`` per coordinate, then per
     measure ``M.vx, M.vy, M.vz, M.ax, M.ay, M.az`` (points) or ``M.vel, M.acc`` (distances,
-    angles; rate measures, speed ratios already, get none)."""
+    angles and rate measures: the measure's own unit per s and per s^2)."""
     out = ["time"]
     for c in mech.coordinates:
         out += [f"{c}.vel", f"{c}.acc"]
     for name, m in mech.measures.items():
         if m.type == "point":
             out += [f"{name}.{k}" for k in ("vx", "vy", "vz", "ax", "ay", "az")]
-        elif m.type != "rate":
+        else:
             out += [f"{name}.vel", f"{name}.acc"]
     return out
 
@@ -75,7 +75,7 @@ def _rate_values(mech, sw):
         if m.type == "point":
             cols += [sw.measure_velocities[name][:, k] for k in range(3)]
             cols += [sw.measure_accelerations[name][:, k] for k in range(3)]
-        elif m.type != "rate":
+        else:
             cols += [sw.measure_velocities[name], sw.measure_accelerations[name]]
     return cols
 

@@ -94,8 +94,11 @@ class Sweep:
     ``values``: drive values (N); ``joints``: coordinate -> (N,); ``links``: link -> (N, 4, 4)
     displacement from home; ``measures``: name -> (N,) or (N, 3) for points;
     ``converged``, ``singular``: (N,) bool; ``residual``: (N,) largest closure error;
-    ``reasons``: step -> why it failed; ``rates``: name -> (N,) ideal mechanical
-    advantage per rate measure (the inverse speed ratio, frictionless).
+    ``reasons``: step -> why it failed; ``advantage``: name -> (N,) ideal mechanical
+    advantage per rate measure (the inverse speed ratio, frictionless).  ``q``: the
+    solver's states (internal units).  With a drive speed, ``time``, ``velocities``,
+    ``accelerations``, ``measure_velocities`` and ``measure_accelerations`` (below);
+    unlike every other array here they hold NaN on rows that did not converge.
     """
     drive: str | None
     values: np.ndarray
@@ -110,8 +113,11 @@ class Sweep:
     advantage: dict = field(default_factory=dict)
     #: With a drive speed (``sweep(..., speed=...)``, see :mod:`jointwise.rates`): time (s)
     #: of each step; coordinate -> rate and acceleration (file units per s, per s^2);
-    #: measure -> the same (points (N, 3), angles in degrees; rate measures left out).
-    #: Rows that did not converge hold NaN.  None / empty without a speed.
+    #: measure -> the same (points (N, 3) in length units, angles in degrees, rate
+    #: measures in their own unit per s).  These arrays hold NaN (in Python only: files
+    #: get an empty cell or null) on rows that did not converge and where a value is
+    #: undefined: a rate measure whose ``per`` stands still (a dead point), a distance of
+    #: 0, an angle of 0 or 180 degrees.  None / empty without a speed.
     time: np.ndarray | None = None
     velocities: dict = field(default_factory=dict)
     accelerations: dict = field(default_factory=dict)
