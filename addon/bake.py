@@ -31,16 +31,12 @@ def value_table(scene, mech, frames, ramp=None):
     ``value_from`` at the first frame to ``value_to`` at the last."""
     frames = np.asarray(frames, dtype=float)
     n = len(frames)
-    held = posing.held_values(scene, mech, extra=(ramp[0],) if ramp else ())
-    if ramp:
-        # the ramped coordinate is the input of its loop group, as --drive is on the command
-        # line: the group's other drives and animated values are released, not held against it
-        groups = posing.loop_groups(mech)
-        jw = scene.jointwise
-        own = groups.get(jw.joints[ramp[0]].joint) if ramp[0] in jw.joints else None
-        if own is not None:
-            held = {k: v for k, v in held.items()
-                    if k == ramp[0] or k not in jw.joints or groups.get(jw.joints[k].joint) != own}
+    jw = scene.jointwise
+    # the ramped coordinate is the input of its loop group, as --drive is on the command
+    # line: the group's other drives and animated values are released (the core's rule)
+    given = (ramp[0],) if ramp else ()
+    held = {name: float(jw.joints[name].value)
+            for name in posing.held_names(scene, mech, given=given, inputs=given)}
     curves = animation.coordinate_fcurves(scene)
     table = {}
     for name, v in held.items():

@@ -311,24 +311,3 @@ def tidy(v):
         raise SceneError(f"refusing to export a non-finite number ({v})")
     r = float(f"{v:.7g}")
     return 0.0 if r == 0 else r
-
-
-def loop_groups(loops):
-    """{joint: group id} for joints in loops (each loop: its ``steps``, first item the
-    joint); loops sharing a joint share a group."""
-    group = {}
-    parent = list(range(len(loops)))
-
-    def find(i):
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-    for i, loop in enumerate(loops):
-        for step in loop.steps:
-            j = step[0]
-            if j in group:
-                parent[find(i)] = find(group[j])
-            else:
-                group[j] = i
-    return {j: find(g) for j, g in group.items()}

@@ -284,7 +284,7 @@ class JOINTWISE_OT_pose(_Base, bpy.types.Operator):
     bl_label = "Solve Now"
 
     def run(self, context):
-        ok, msg = posing.pose_scene(context.scene, mobility=True)
+        ok, msg = posing.pose_scene(context.scene)
         if not ok:
             return self.fail(msg)
         return {'FINISHED'}

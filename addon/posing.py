@@ -17,48 +17,41 @@ from .convert import SceneError
 AFTER_POSE = []
 
 
-def loop_groups(mech):
-    """{joint: group id} for joints in loops; loops sharing a joint share a group (kept
-    with the mechanism: it never changes for one)."""
-    groups = getattr(mech, "_jointwise_groups", None)
-    if groups is None:
-        groups = convert.loop_groups(getattr(mech, "loops", []))
-        try:
-            mech._jointwise_groups = groups
-        except AttributeError:
-            pass
-    return groups
-
-
 def animated_coordinates(scene):
     """Names of coordinates whose value (or a view of it) has an F-curve on the scene."""
     return set(animation.coordinate_fcurves(scene))
 
 
-def held_values(scene, mech, extra=(), values=None):
-    """The values to hold for a solve: drives, animated coordinates, coordinates outside
-    every loop (nothing else would place them) and ``extra`` (the one being dragged).
-
-    Dragging a passive loop coordinate releases the (not animated) drives of its loop
-    group, so the rest of the loop follows it instead of refusing."""
-    jw = scene.jointwise
-    groups = loop_groups(mech)
-    animated = animated_coordinates(scene)
+def drive_flags(scene, mech):
+    """The coordinates of ``mech`` whose Drive box is ticked in the joint list."""
     known = set(mech.coordinates)
-    released = {groups[jw.joints[e].joint] for e in extra
-                if e in jw.joints and not jw.joints[e].drive and jw.joints[e].joint in groups}
+    return [it.name for it in scene.jointwise.joints if it.drive and it.name in known]
+
+
+def held_names(scene, mech, given=(), inputs=(), animated=None):
+    """The coordinates a solve holds, by the core's one holding rule
+    (``Mechanism.held_coordinates``), asked with the joint list's drive flags and the
+    scene's animated coordinates. ``given``: the coordinates the user sets now (a dragged
+    passive one releases the drives and animated values of its loop group); ``inputs``: a
+    bake's ramp (the input of its group)."""
+    known = set(mech.coordinates)
+    anim = animated_coordinates(scene) if animated is None else animated
+    return mech.held_coordinates([c for c in given if c in known],
+                                 drives=drive_flags(scene, mech),
+                                 animated=[c for c in mech.coordinates if c in anim],
+                                 inputs=[c for c in inputs if c in known])
+
+
+def held_values(scene, mech, extra=(), values=None):
+    """{coordinate: value} to hold for a solve (host units): :func:`held_names` with
+    ``extra`` given (the one being set or dragged), values from ``values`` or the list."""
+    jw = scene.jointwise
     held = {}
-    followers = {c.follower for c in mech.couplings.values()}  # set by their leaders
-    for item in jw.joints:
-        name = item.name
-        if name not in known:
-            continue  # a fixed joint: no coordinate
-        free = groups.get(item.joint) in released  # the user moves a passive joint of this loop
-        drive = item.drive and not free
-        if (drive or name in extra or (name in animated and not free)
-                or (item.joint not in groups and name not in followers)):
-            v = float(item.value) if values is None or name not in values else float(values[name])
-            held[name] = v
+    for name in held_names(scene, mech, given=extra):
+        if values is not None and name in values:
+            held[name] = float(values[name])
+        else:
+            held[name] = float(jw.joints[name].value)
     return held
 
 
@@ -91,20 +84,35 @@ def set_status(scene, *, converged=True, error=0.0, singular=False, message="", 
         jw.mobility = int(mobility)
 
 
-def mobility_of(mech, pose=None):
-    """Numeric mobility at ``pose`` (or home) if the core offers it, else None."""
+def mobility_of(mech):
+    """Numeric mobility of the mechanism's structure (at home), or None when the core cannot
+    say. Worked out once per structure: the scene's mechanism is rebuilt (a new object) only
+    when joints, links or couplings are added, edited or removed, so a value change reads
+    the count kept with it."""
+    cached = getattr(mech, "_jointwise_mobility", False)
+    if cached is not False:
+        return cached
     try:
-        m = mech.mobility(None if pose is None else pose.q)
+        m = mech.mobility()
     except Exception:  # the core's mobility is an extra; never let it break a solve
-        return None
+        m = None
     if isinstance(m, dict):
         m = m.get("numeric", m.get("kutzbach"))
     elif hasattr(m, "numeric"):
         m = m.numeric
     try:
-        return int(m)
+        m = int(m)
     except (TypeError, ValueError):
-        return None
+        m = None
+    try:
+        mech._jointwise_mobility = m
+    except AttributeError:
+        pass
+    return m
+
+
+def _or_unknown(m):
+    return -1 if m is None else m
 
 
 def snapshot(scene):
@@ -214,10 +222,16 @@ def status_text(scene, pose, clamped):
     return f"{head}; loops closed within {err * k:.2g} {label}"
 
 
-def pose_scene(scene, extra=(), values=None, restore_values=True, mobility=False):
+def pose_scene(scene, extra=(), values=None, restore_values=True):
     """Solve and apply. On failure the scene is left as it was (values back at the last
     solved ones unless ``restore_values`` is false, e.g. for animated values) and the
-    status says why. Returns (ok, message)."""
+    status says why; the status carries the structure's mobility (:func:`mobility_of`,
+    worked out once per structure). Returns (ok, message)."""
+    with sc.objects_held(scene):
+        return _pose_scene(scene, extra, values, restore_values)
+
+
+def _pose_scene(scene, extra=(), values=None, restore_values=True):
     snap = snapshot(scene)
     jw = scene.jointwise
     asked = {e: (float(values[e]) if values is not None and e in values else float(jw.joints[e].value))
@@ -234,7 +248,7 @@ def pose_scene(scene, extra=(), values=None, restore_values=True, mobility=False
         return False, msg
     msg = status_text(scene, pose, clamped)
     set_status(scene, converged=pose.converged, error=pose.residual, singular=pose.singular,
-               message=msg, mobility=mobility_of(mech, pose) if mobility else None)
+               message=msg, mobility=_or_unknown(mobility_of(mech)))
     for f in AFTER_POSE:
         f(scene, mech, pose)
     return True, msg

@@ -15,6 +15,7 @@ Conventions (the pure conversions are in :mod:`.convert`)
 """
 from __future__ import annotations
 
+import contextlib
 import itertools
 import json
 import math
@@ -84,11 +85,33 @@ def message_core_to_host(msg, scene=None):
 
 # -- objects and links -----------------------------------------------------------------
 
+_ALIVE = {}  # scene pointer -> set of the scene's objects, while one pose holds it
+
+
+@contextlib.contextmanager
+def objects_held(scene):
+    """Within this block the scene's objects are read once (a set), so :func:`object_alive`
+    is a set lookup instead of a search by name per call; for one pose, where no object
+    is added or deleted (nested blocks share the outer set)."""
+    key = scene.as_pointer()
+    if key in _ALIVE:
+        yield
+        return
+    _ALIVE[key] = set(scene.objects)
+    try:
+        yield
+    finally:
+        _ALIVE.pop(key, None)
+
+
 def object_alive(scene, obj):
     """The object still exists and is in this scene (deleted objects may linger in data)."""
     if obj is None:
         return False
     try:
+        alive = _ALIVE.get(scene.as_pointer())
+        if alive is not None:
+            return obj in alive
         return scene.objects.get(obj.name) == obj
     except ReferenceError:
         return False

@@ -306,3 +306,63 @@ def test_old_files_load_with_anchors(installed, tmp_path):
     assert bpy.ops.jointwise.pose() == {"FINISHED"}, jw.message
     paths = [fc.data_path for fc in ws.fcurves_of(scene)]
     assert paths and all(p.endswith(".angle") or p.endswith(".length") for p in paths), paths
+
+
+def test_a_coupling_joining_two_loops_holds_as_the_core_does(fresh, tmp_path):
+    """The extension asks the core's one holding rule (``Mechanism.held_coordinates``): a
+    coupling makes two clamps one loop group, so setting the second rocker (passive)
+    releases the first crank's drive there too, exactly as ``jointwise pose`` does.
+    Reference: the core's ``Mechanism.pose`` of the same file."""
+    ws.make_twin_clamp_objects(0.001)
+    path = ws.twin_clamp_file(tmp_path)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    jw = fresh.jointwise
+    assert jw.joints["a1"].drive and not jw.joints["d2"].drive
+    posing = importlib.import_module(MODULE + ".posing")
+    sc = importlib.import_module(MODULE + ".scene")
+    mech = sc.mechanism_from_scene(fresh)
+    assert posing.held_names(fresh, mech, given=["d2"]) == ["d2"]  # a1 released: same group
+    assert posing.held_names(fresh, mech) == ["a1"]
+    jw.joints["d2"].value = math.radians(5.0)
+    assert jw.converged, jw.message
+    want = _expect(path, {"d2": 5.0})
+    for c in ("a1", "d1", "a2", "d2"):
+        assert math.degrees(jw.joints[c].value) == pytest.approx(want.joints[c], abs=1e-4), c
+    _check_links(fresh, want)
+    # the drive moves both clamps through the coupling, as the core poses it
+    jw.joints["a1"].value = math.radians(100.0)
+    assert jw.converged, jw.message
+    _check_links(fresh, _expect(path, {"a1": 100.0}))
+
+
+def test_mobility_is_worked_out_once_per_structure(fresh, tmp_path, monkeypatch):
+    """A value change reads the mobility kept with the structure; editing a joint (its
+    limits) makes a new structure, whose mobility is worked out once. Reference: Kutzbach's
+    planar count for a four-bar, 3 (4 - 1) - 2 * 4 = 1 (e.g. Uicker, Pennock & Shigley,
+    *Theory of Machines and Mechanisms*, sec. 1.7)."""
+    _clamp(tmp_path, drive="a")
+    import jointwise.mechanism as core_mech
+    calls = []
+    real = core_mech.Mechanism.mobility
+
+    def counted(self, *a, **k):
+        calls.append(1)
+        return real(self, *a, **k)
+    monkeypatch.setattr(core_mech.Mechanism, "mobility", counted)
+    jw = fresh.jointwise
+    for deg in (95.0, 100.0, 105.0):
+        jw.joints["a"].value = math.radians(deg)
+        assert jw.converged, jw.message
+    first = len(calls)
+    assert first <= 1 and jw.mobility == 1  # at most once for the structure already built
+    for deg in (110.0, 115.0, 120.0, 125.0):
+        jw.joints["a"].value = math.radians(deg)
+    assert len(calls) == first  # value changes: no mobility
+    it = jw.joints["d"]
+    it.use_limits, it.limit_min, it.limit_max = True, math.radians(-170), math.radians(170)
+    jw.joints["a"].value = math.radians(120.0)
+    assert jw.converged, jw.message
+    assert len(calls) == first + 1 and jw.mobility == 1  # the edited structure: once
+    for deg in (115.0, 110.0):
+        jw.joints["a"].value = math.radians(deg)
+    assert len(calls) == first + 1

@@ -128,6 +128,42 @@ drive = {'true' if drive == 'd' else 'false'}
     return path
 
 
+def make_twin_clamp_objects(scale=0.001, lift=40.0):
+    """Cubes for two Lintel clamps on one frame, the second ``lift`` mm above the first."""
+    up = np.array([0.0, 0.0, lift])
+    objs = {"Frame": cube("Frame", (40 * scale, -10 * scale, -5 * scale), (100 * scale, 10 * scale, 5 * scale))}
+    for k, z in ((1, 0 * up), (2, up)):
+        objs[f"Crank{k}"] = _bar(f"Crank{k}", A + z, B + z, "XYZ", scale)
+        objs[f"Coupler{k}"] = _bar(f"Coupler{k}", B + z, C + z, "QUATERNION", scale)
+        objs[f"Rocker{k}"] = _bar(f"Rocker{k}", C + z, D + z, "ZXY", scale)
+    return objs
+
+
+def twin_clamp_file(folder, lift=40.0):
+    """Two Lintel clamps (loops closed by ``c1`` and ``c2``) joined by a coupling: the second
+    crank follows the first rocker (``a2 = d1 + 90 deg``, a gear pair of ratio 1), so the two
+    loops are one group. The first crank ``a1`` is the drive."""
+    lines = ['format = 1', '[mechanism]', 'name = "Lintel twin clamp, Pell & Marrow Toolworks"',
+             'length_unit = "mm"', 'angle_unit = "deg"', 'ground = "frame"', '[links.frame]']
+    for k in (1, 2):
+        lines += [f'[links.crank{k}]', f'object = "Crank{k}"', f'[links.coupler{k}]',
+                  f'object = "Coupler{k}"', f'[links.rocker{k}]', f'object = "Rocker{k}"']
+    for k in (1, 2):
+        z = np.array([0.0, 0.0, lift * (k - 1)])
+        for j, p, c, pt in (("a", "frame", "crank", A), ("b", "crank", "coupler", B),
+                            ("c", "coupler", "rocker", C), ("d", "frame", "rocker", D)):
+            par = p if p == "frame" else f"{p}{k}"
+            lines += [f'[joints.{j}{k}]', 'type = "revolute"', f'parent = "{par}"',
+                      f'child = "{c}{k}"', f'point = {fmt(pt + z)}', 'axis = [0, 0, 1]']
+            if j == "a":
+                lines += ['home = 90'] + (['drive = true'] if k == 1 else [])
+    lines += ['[couplings.rocker_to_crank]', 'leader = "d1"', 'follower = "a2"', 'ratio = 1',
+              'offset = 90']
+    path = pathlib.Path(folder) / "lintel_twin.toml"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
 def make_vise_objects(scale=1.0):
     return {
         "Body": cube("Body", (0, 0, -10 * scale), (120 * scale, 40 * scale, 10 * scale)),
