@@ -11,9 +11,11 @@ every loop). The ground cannot be dragged: moving it moves the whole mechanism a
 While the links play baked keys (after **Bake Motion**, until **Clear Baked Motion**) the
 keys place them and nothing is dragged.
 
-A handle (``jointwise.handle_add(measure=NAME)``) is an empty at a point measure; moving it
-brings that point as close to it as the mechanism allows, then the handle snaps onto the
-point. Handles follow the point on every pose.
+A handle (``jointwise.handle_add(measure=NAME)``) is an empty at a point measure of the
+scene's Measures list (``scene.jointwise.measures[NAME]``, kind ``'POINT'``); moving it
+brings that measure's point as close to it as the mechanism allows (the solve's target is
+the list's own definition of the measure), then the handle snaps onto the point. Handles
+follow the point on every pose: a handle sits at its measure's ``location``.
 
 The path of a drag: ``depsgraph_update_post`` -> which link object or handle moved (its
 placement differs from the one jointwise last gave it; jointwise's own placements are
@@ -29,7 +31,7 @@ import bpy
 import numpy as np
 from bpy.app.handlers import persistent
 
-from . import animation, posing, properties, trace
+from . import animation, posing, properties
 from . import scene as sc
 from .convert import SceneError, home_inverse, inverse
 
@@ -40,6 +42,7 @@ HANDLE = "jointwise_handle"
 MOVED = 1e-5
 
 _shown = {}      # scene pointer -> {object name: 4x4 world matrix jointwise last gave it}
+_exact = {}      # scene pointer -> (mechanism, float64 state) of the last pose jointwise applied
 _busy = [False]  # our own writes re-enter the handler through view_layer.update()
 
 
@@ -77,31 +80,57 @@ def _expected(scene, mech):
     return {obj.name: w for obj, w in worlds.values()}
 
 
+def _start(scene, mech):
+    """The warm start of a drag: the values of the placement the scene shows, exactly (in
+    float64) when they are those of the last pose jointwise applied (the stored values are
+    float32), so the core resumes from its own last closed state without closing it again."""
+    start = posing.start_from_scene(scene, mech)
+    hit = _exact.get(scene.as_pointer())
+    if (start is not None and hit is not None and hit[0] is mech and hit[1].shape == start.q.shape
+            and np.array_equal(hit[1].astype(np.float32), start.q.astype(np.float32))):
+        start.q = hit[1].copy()
+    return start
+
+
+def _remember(scene, mech, pose):
+    q = getattr(pose, "q", None)
+    if q is not None:
+        _exact[scene.as_pointer()] = (mech, np.array(q, dtype=float))
+
+
 # -- handles ---------------------------------------------------------------------------------
 def point_of(scene, measure):
-    """(link, point at home in scene units) of point measure ``measure``."""
-    points = trace.point_measures(scene)
-    if measure not in points:
-        known = ", ".join(sorted(points)) or "none"
-        raise SceneError(f"no point measure named {measure!r} in the mechanism (point measures: {known})")
-    link, at = points[measure]
+    """(link, point at home in scene units) of point measure ``measure`` of the scene's
+    measure list (``scene.jointwise.measures``, the file's measures and those added in the
+    Measures panel): a handle follows that measure and drags it."""
     jw = scene.jointwise
-    if link not in jw.links:
-        raise SceneError(f"measure {measure!r}: its link {link!r} is not among the links")
-    k = sc.length_file_to_host(scene, jw.file_length_unit)
-    return link, np.asarray(at, dtype=float) * k
+    item = jw.measures.get(measure)
+    if item is None or item.kind != 'POINT':
+        known = ", ".join(sorted(m.name for m in jw.measures if m.kind == 'POINT')) or "none"
+        if item is not None:
+            kind = item.kind.lower()
+            what = f"{measure!r} is {'an' if kind[0] in 'aeiou' else 'a'} {kind} measure, not a point measure"
+        else:
+            what = f"no point measure named {measure!r} in the Measures list"
+        raise SceneError(f"{what} (point measures: {known})")
+    if item.link_a not in jw.links:
+        raise SceneError(f"measure {measure!r}: its link {item.link_a!r} is not among the links")
+    return item.link_a, np.array(item.at_a, dtype=float)
 
 
-def _add_measure(mech, measure, link, at):
-    """The scene's mechanism knows no measures: give it this point (idempotent)."""
-    from jointwise.mechanism import Measure
-    m = mech.measures.get(measure)
-    if m is None or m.type != "point" or m.a[0] != link or not np.allclose(m.a[1], at, rtol=0, atol=1e-12):
-        mech.measures[measure] = Measure(measure, "point", a=(link, tuple(float(x) for x in at)))
+def _measure_target(scene, mech, measure):
+    """{measure: core point Measure}: the same definition the Measures list evaluates."""
+    from . import measures
+    point_of(scene, measure)
+    defs, problems = measures.definitions(scene, mech)
+    if measure not in defs:
+        raise SceneError(f"measure {measure!r}: {problems.get(measure, 'not defined')}")
+    return {measure: defs[measure]}
 
 
 def place_handles(scene, displacements=None):
-    """Put every handle on its point (displacements: {link: 4x4}, default the scene's)."""
+    """Put every handle on its point measure (displacements: {link: 4x4}, default the
+    scene's): where the measure's ``location`` is after the same pose."""
     hs = handles(scene)
     if not hs:
         return
@@ -168,14 +197,12 @@ def _rigid(d):
     return out
 
 
-def _target(scene, mech, obj, link_name=None, measure=None):
+def _target(scene, obj, link_name=None, measure=None):
     g_inv = inverse(sc.ground_displacement(scene))
     if link_name is not None:
         link = scene.jointwise.links[link_name]
         d = g_inv @ _matrix(obj) @ home_inverse(link.home)
         return {link_name: _rigid(d)}
-    link, at = point_of(scene, measure)
-    _add_measure(mech, measure, link, at)
     p = g_inv @ np.append(np.asarray(obj.matrix_world.translation, dtype=float), 1.0)
     return {measure: p[:3]}
 
@@ -199,14 +226,19 @@ def drag(scene, obj, link_name=None, measure=None):
     _busy[0] = True
     try:
         mech = sc.mechanism_from_scene(scene)
-        targets = _target(scene, mech, obj, link_name, measure)
-        start = posing.start_from_scene(scene, mech)
-        pose = mech.pose(start=start, targets=targets)
+        targets = _target(scene, obj, link_name, measure)
+        if measure is None:
+            pose = mech.pose(start=_start(scene, mech), targets=targets)
+        else:  # the point measure of the scene's list (the scene's mechanism has none)
+            from jointwise.targets import pose_to_targets
+            pose = pose_to_targets(mech, None, _start(scene, mech), targets,
+                                   measures=_measure_target(scene, mech, measure))
         if not pose.converged:
             raise sc.core().AssemblyError(f"the loops did not close (closure error {pose.residual:.3g})",
                                           error=pose.residual)
         sc.apply_displacements(scene, pose.links)
         sc.write_values(scene, pose.joints)
+        _remember(scene, mech, pose)
         place_handles(scene, pose.links)
         auto = scene.tool_settings.use_keyframe_insert_auto
         if auto:
@@ -288,6 +320,7 @@ def jointwise_drag(scene, depsgraph=None):
 
 
 def _after_pose(scene, mech, pose):
+    _remember(scene, mech, pose)
     place_handles(scene, pose.links)
     record(scene)
 
@@ -295,6 +328,7 @@ def _after_pose(scene, mech, pose):
 @persistent
 def jointwise_drag_load_post(*_args):
     _shown.clear()  # scene pointers of the file before mean nothing now
+    _exact.clear()
 
 
 _HANDLERS = (
@@ -317,6 +351,7 @@ def unregister():
     if _after_pose in posing.AFTER_POSE:
         posing.AFTER_POSE.remove(_after_pose)
     _shown.clear()
+    _exact.clear()
 
 
 def live_remove(lst, fn):

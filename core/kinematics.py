@@ -151,31 +151,56 @@ def _path_from_ground(model, link):
     return [(jn, sign) for _, jn, sign in reversed(model._path_up(link))]
 
 
-def link_motion(model, Q, Qd, link):
+def link_motion(model, Q, Qd, link, *, rot=(), links=None):
     """Displacement, twist columns, twist and acceleration term of ``link``.
 
     Walks the spanning tree from ground to ``link`` over states ``Q`` with rates ``Qd``
     (B, n).  Returns ``((R, p), cols (B, 6, n), V (B, 6), bias (B, 6))``: the link's
     displacement from home, its spatial twist per coordinate rate (``V = cols q_dot``),
     the twist and its rate's part that does not depend on ``q_ddot`` (``V_dot = cols
-    q_ddot + bias``, :func:`walk_terms`)."""
+    q_ddot + bias``, :func:`walk_terms`); ``Qd`` None gives the columns only (V and bias
+    None).  A joint on the path walked forwards adds ``Ad(D_parent) X_k``, one walked
+    backwards ``-Ad(D_parent) X_k``, ``D_parent`` the displacement of the joint's parent
+    link (Lynch & Park 2017, sec. 5.1.1).  ``links``: the link displacements at ``Q``
+    ({name: (B, 4, 4) or (4, 4)}) when the caller has them: the frames are read from them
+    instead of composed along the walk.  Joints named in ``rot`` (free spherical joints
+    moved by rotation increments, as in :mod:`jointwise.solver`) give the twists of those
+    increments (``Joint.rotation_twists``) in their three columns."""
     Q = np.asarray(Q, dtype=float)
-    Qd = np.asarray(Qd, dtype=float)
     B, n = Q.shape
     R = np.broadcast_to(np.eye(3), (B, 3, 3))
     p = np.zeros((B, 3))
     cols = np.zeros((B, 6, n))
     walk = []
     for jn, sign in _path_from_ground(model, link):
-        T, X = joint_motion(model, jn, Q)
-        R, p, tw, order = _step(R, p, T, X, sign)
-        if tw is None:
+        j = model.joints[jn]
+        k = len(j.primitives)
+        if links is None or k > 1:
+            T, X = joint_motion(model, jn, Q)
+        else:
+            T, X = None, j.screws
+        if jn in rot:
+            X = j.rotation_twists()
+        if links is None:
+            R, p, tw, order = _step(R, p, T, X, sign)
+            if tw is None:
+                continue
+        elif k:
+            D = np.asarray(links[j.parent]).reshape(-1, 4, 4)
+            tw = spatial.adjoint_apply(D[:, :3, :3], D[:, :3, 3], X) * sign
+            order = range(k) if sign > 0 else reversed(range(k))
+        else:
             continue
         start = model._slices[jn].start
         for k in order:
             cols[:, :, start + k] += tw[:, k]
             walk.append((start + k, tw[:, k]))
-    V, bias = walk_terms(walk, Qd)
+    if links is not None:
+        D = np.asarray(links[link]).reshape(-1, 4, 4)
+        R, p = D[:, :3, :3], D[:, :3, 3]
+    if Qd is None:
+        return (R, p), cols, None, None
+    V, bias = walk_terms(walk, np.asarray(Qd, dtype=float))
     return (R, p), cols, V, bias
 
 

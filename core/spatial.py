@@ -33,6 +33,7 @@ __all__ = [
     "hat", "vee", "twist_matrix", "screw_axis", "exp3", "exp6", "log3", "log6",
     "screw_powers", "exp_unit", "adjoint", "inverse", "to_homogeneous", "from_homogeneous", "translation",
     "cross", "compose_rp", "inverse_rp", "log_rp", "adjoint_apply", "ad", "UnitScrew",
+    "log3_derivative_inverse",
 ]
 
 
@@ -186,6 +187,25 @@ def log3(r):
             n = -n
         out[i] = n * ang[i]
     return out.reshape(lead + (3,))
+
+
+def log3_derivative_inverse(phi):
+    """Inverse right Jacobian of SO(3) at rotation vector ``phi`` (3,):
+    ``d log(E exp(-[w] t)) / dt = -J_r^-1(log E) w``.
+
+    ``J_r^-1(p) = I + [p]/2 + (1/|p|^2 - (1 + cos|p|) / (2 |p| sin|p|)) [p]^2`` (G. S.
+    Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*, vol. 2, 2011,
+    sec. 10.2), so a rotation error far from zero still gets its exact derivative."""
+    phi = np.asarray(phi, dtype=float)
+    a = float(math.sqrt(phi @ phi))
+    k = hat(phi)
+    if a < 1e-6:
+        coef = 1.0 / 12.0 + a * a / 720.0
+    elif a > math.pi - 1e-6:
+        coef = 1.0 / (a * a)
+    else:
+        coef = 1.0 / (a * a) - (1.0 + math.cos(a)) / (2.0 * a * math.sin(a))
+    return _EYE3 + 0.5 * k + coef * (k @ k)
 
 
 def log6(t):

@@ -32,8 +32,11 @@ Target Jacobians
 ----------------
 A link's twist in the world frame is the sum over the tree joints from ground to it of
 ``+-Ad(D_parent) X_k dq_k``, ``X_k = Ad(prefix_k) S_k`` the joint's primitive screws
-(space Jacobian: Lynch & Park, *Modern Robotics*, 2017, sec. 5.1.1); the velocity of a
-point ``p`` of the link is ``v + w x p`` (ibid. sec. 3.3.2).
+(space Jacobian: Lynch & Park, *Modern Robotics*, 2017, sec. 5.1.1), from
+:func:`jointwise.kinematics.link_motion`; the velocity of a point ``p`` of the link is
+``v + w x p`` (ibid. sec. 3.3.2); a link's turn error ``log(G D^T)`` changes by
+``J_r^-1`` of it times the link's angular velocity
+(:func:`jointwise.spatial.log3_derivative_inverse`).
 
 Weights: point targets in length units; a link target as the displacement of a point
 of the link (the centroid of its joint points) plus its rotation times ``L`` (the
@@ -43,10 +46,11 @@ from __future__ import annotations
 
 import difflib
 import math
+import weakref
 
 import numpy as np
 
-from . import spatial
+from . import kinematics, spatial
 from .errors import AssemblyError, SpecError
 from .spec import LIMITS
 
@@ -64,6 +68,9 @@ NOISE = 1e-8
 #: ... and a step that promises less than this fraction is not taken at all.
 FLAT = 1e-10
 MAX_ITER = 400
+#: Stop once the next step, extrapolated from the last two (their ratio), would move less
+#: than this (dimensionless): it could not change a placement anyone reads.
+NEXT = 1e-10
 #: Closure error of a start (dimensionless: radian, or length / size) above which it is
 #: closed before the first step.
 START_GAP = 1e-6
@@ -77,17 +84,20 @@ LAMBDA_MAX = 1e3
 
 
 # -- reading targets ---------------------------------------------------------------------------
-def parse_targets(mech, targets):
+def parse_targets(mech, targets, measures=None):
     """Validate ``targets``: list of ``(name, kind, data)`` with kind "point" or "link".
 
     Point targets: ``data = (link, at (3,), goal (3,))``; link targets:
-    ``data = (link, goal 4x4)`` with the rotation made orthonormal."""
+    ``data = (link, goal 4x4)`` with the rotation made orthonormal.  ``measures``: the
+    measures a name is looked up in (default the mechanism's own; a front that keeps its
+    own list of measures, like the Blender extension, passes it)."""
+    measures = mech.measures if measures is None else measures
     out = []
     if not isinstance(targets, dict):
         raise SpecError(f"targets must map names to positions or 4x4 displacements, got {type(targets).__name__}",
                         source=mech.source)
     for name, value in targets.items():
-        meas = mech.measures.get(name)
+        meas = measures.get(name)
         is_point = meas is not None and meas.type == "point"
         try:
             arr = np.asarray(value, dtype=float)
@@ -104,7 +114,7 @@ def parse_targets(mech, targets):
             raise SpecError(f"target {name!r} is a {meas.type} measure; a target must name a point "
                             f"measure or a link", source=mech.source)
         else:
-            names = [n for n, m in mech.measures.items() if m.type == "point"] + list(mech.links)
+            names = [n for n, m in measures.items() if m.type == "point"] + list(mech.links)
             close = difflib.get_close_matches(str(name), names, n=1)
             hint = f"; did you mean {close[0]!r}?" if close else f"; point measures and links are: {', '.join(names)}"
             raise SpecError(f"target {name!r} names no point measure or link{hint}", source=mech.source)
@@ -129,40 +139,11 @@ def parse_targets(mech, targets):
     return out
 
 
-def _joint_twists(j, qj):
-    """``X_k = Ad(prefix_k) S_k``: the twist of the child relative to the parent per unit
-    of each coordinate of joint ``j``, in the parent's home-aligned world frame
-    (Lynch & Park 2017, sec. 5.1.1)."""
-    prims = j.primitives
-    if len(prims) == 1:
-        return [prims[0].screw]
-    out, acc = [], np.eye(4)
-    for k, (prim, qi, hi) in enumerate(zip(prims, qj, j.home)):
-        out.append(prim.screw if k == 0 else spatial.adjoint(acc) @ prim.screw)
-        acc = acc @ spatial.exp6(prim.screw, qi - hi)
-    return out
-
-
-def _right_jacobian_inverse(phi):
-    """Inverse right Jacobian of SO(3): d log(E exp(-[w] t)) / dt = -J_r^-1(log E) w.
-
-    ``J_r^-1(p) = I + [p]/2 + (1/|p|^2 - (1 + cos|p|) / (2 |p| sin|p|)) [p]^2`` (G. S.
-    Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*, vol. 2, 2011,
-    sec. 10.2), so orientation errors far from zero still get their exact derivative."""
-    a = float(np.linalg.norm(phi))
-    k = spatial.hat(phi)
-    if a < 1e-6:
-        coef = 1.0 / 12.0 + a * a / 720.0
-    elif a > math.pi - 1e-6:
-        coef = 1.0 / (a * a)
-    else:
-        coef = 1.0 / (a * a) - (1.0 + math.cos(a)) / (2.0 * a * math.sin(a))
-    return np.eye(3) + 0.5 * k + coef * (k @ k)
-
-
-# -- the solve -------------------------------------------------------------------------------
+# -- what a mechanism keeps between target solves ----------------------------------------------
 class _Layout:
-    """Free columns for one set of fixed masters: global and per loop block."""
+    """Free columns for one set of fixed masters: global and per loop block, and the map
+    from coordinate rates to them (twist columns of :func:`kinematics.link_motion` times
+    ``lin``; a motion law's follower adds its slope at the leader's value)."""
 
     def __init__(self, solver, fixed):
         m = solver.m
@@ -172,6 +153,7 @@ class _Layout:
             if j.type != "spherical":
                 continue
             idx = range(m._slices[jn].start, m._slices[jn].stop)
+            # a limited ball joint keeps its coordinates as columns, so limits hold on them
             if all(solver.master[i] == i and len(solver.members[i]) == 1 and i not in fixed
                    and j.limits[i - m._slices[jn].start] is None for i in idx):
                 rot.add(jn)
@@ -193,19 +175,39 @@ class _Layout:
             self.blocks.append((b, [cols[k] for k in idx], np.array(idx, dtype=int),
                                 rot & set(b.joints)))
         self.col_of = {c: k for k, c in enumerate(cols)}
+        self.lin = np.zeros((len(m.coordinates), len(cols)))
+        self.laws = []  # (member, master, column): slope of a motion law at q
+        for k, c in enumerate(cols):
+            if c[0] == "s":
+                self.lin[m._slices[c[1]].start + c[2], k] = 1.0
+                continue
+            for i in solver.members[c[1]]:
+                if i in solver.law:
+                    self.laws.append((i, c[1], k))
+                else:
+                    self.lin[i, k] = solver.alpha[i]
+
+    def rates(self, solver, q):
+        """Coordinate rates per unit of each column at state ``q``, (n, ncols)."""
+        if not self.laws:
+            return self.lin
+        out = self.lin.copy()
+        for i, g, k in self.laws:
+            out[i, k] = float(solver.member_slope(i, q[g]))
+        return out
 
 
-class _Targets:
-    def __init__(self, mech, held, parsed):
-        self.m = mech
-        self.s = mech.solver
-        self.L = mech.size
-        self.parsed = parsed
-        self.held = frozenset(int(self.s.master[i]) for i in held)
-        self._layouts = {}
-        self._closed = None
-        # limits of each master, in master units
-        s = self.s
+class _Shared:
+    """Kept per solver between target solves (a drag asks many in a row): each master's
+    limits, layouts per fixed set, a link target's joint
+    points, and the last closed state with its corrector Jacobians and link poses (a
+    solve starting exactly there needs no evaluation before its first step)."""
+
+    def __init__(self, mech):
+        s = mech.solver
+        self.layouts = {}
+        self.refs = {}
+        self.last = None  # (q bytes, layout, corrector Jacobians, residual, link poses)
         self.bounds = {}
         for g, members in s.members.items():
             lo, hi = -math.inf, math.inf
@@ -218,24 +220,60 @@ class _Targets:
                 lo, hi = max(lo, min(a, b)), min(hi, max(a, b))
             if lo > -math.inf or hi < math.inf:
                 self.bounds[g] = (lo, hi)
-        # tree paths and reference points
-        self.paths = {}
-        self.refs = {}
-        for name, kind, data in parsed:
-            link = data[0]
-            if link not in self.paths:
-                self.paths[link] = [(jn, sg) for _, jn, sg in mech._path_up(link)]
-            if kind == "link":
-                pts = np.array([j.point for j in mech.joints.values() if link in (j.parent, j.child)])
-                self.refs[name] = (pts, pts.mean(axis=0))
+
+    def ref(self, mech, link):
+        """Joint points of ``link`` at home and their centroid (a link target's reference)."""
+        hit = self.refs.get(link)
+        if hit is None:
+            pts = np.array([j.point for j in mech.joints.values() if link in (j.parent, j.child)])
+            hit = self.refs[link] = (pts, pts.mean(axis=0))
+        return hit
+
+
+_SHARED = weakref.WeakKeyDictionary()  # solver -> _Shared
+
+
+def _shared(mech):
+    s = mech.solver
+    hit = _SHARED.get(s)
+    if hit is None:
+        hit = _SHARED[s] = _Shared(mech)
+    return hit
+
+
+# -- the solve -------------------------------------------------------------------------------
+class _Targets:
+    def __init__(self, mech, held, parsed):
+        self.m = mech
+        self.s = mech.solver
+        self.L = mech.size
+        self.parsed = parsed
+        self.held = frozenset(int(self.s.master[i]) for i in held)
+        self.sh = _shared(mech)
+        self.bounds = self.sh.bounds
+        self._closed = None
+        self.residual = None
+        self.refs = {name: self.sh.ref(mech, data[0]) for name, kind, data in parsed if kind == "link"}
         self._turn = (None, {})  # (links of the last errors() call, link target -> its turn error)
 
     def layout(self, fixed):
         key = frozenset(fixed) | self.held
-        lay = self._layouts.get(key)
+        lay = self.sh.layouts.get(key)
         if lay is None:
-            lay = self._layouts[key] = _Layout(self.s, key)
+            lay = self.sh.layouts[key] = _Layout(self.s, key)
         return lay
+
+    def warm(self, q):
+        """Link poses at ``q`` and, when ``q`` is exactly the last closed state of a solve
+        with the same held set, that solve's corrector Jacobians (no evaluation needed)."""
+        last = self.sh.last
+        if last is not None and last[0] == q.tobytes():
+            lay = self.layout(set())
+            if last[1] is lay:
+                self._closed = (lay, last[0], last[2])
+                self.residual = last[3]
+            return {k: v.copy() for k, v in last[4].items()}
+        return self.m.link_poses(q)
 
     # -- evaluation ----------------------------------------------------------------------------
     def errors(self, links):
@@ -266,25 +304,8 @@ class _Targets:
 
     def twists(self, q, links, link, lay):
         """World twist of ``link`` per unit of each free column, (6, ncols), physical units."""
-        m, s = self.m, self.s
-        out = np.zeros((6, len(lay.cols)))
-        for jn, sign in self.paths[link]:
-            j = m.joints[jn]
-            sl = m._slices[jn]
-            ad = spatial.adjoint(links[j.parent]) * sign
-            if jn in lay.rot:
-                x = j.rotation_twists()
-                for k in range(3):
-                    out[:, lay.col_of[("s", jn, k)]] += ad @ x[k]
-                continue
-            xs = _joint_twists(j, q[sl])
-            for k, x in enumerate(xs):
-                i = sl.start + k
-                col = lay.col_of.get(("m", int(s.master[i])))
-                if col is not None:
-                    g = int(s.master[i])
-                    out[:, col] += (s.alpha[i] if i not in s.law else float(s.member_slope(i, q[g]))) * (ad @ x)
-        return out
+        cols = kinematics.link_motion(self.m, q[None], None, link, rot=lay.rot, links=links)[1]
+        return cols[0] @ lay.rates(self.s, q)
 
     def jacobian(self, q, links, lay):
         """Targets' Jacobian over the free columns, dimensionless."""
@@ -304,7 +325,7 @@ class _Targets:
                 w = self._turn[1].get(name) if self._turn[0] is links else None  # errors() of these links
                 if w is None:
                     w = spatial.log3(data[1][:3, :3] @ D[:3, :3].T)
-                rows.append(_right_jacobian_inverse(w) @ tw[:3])
+                rows.append(spatial.log3_derivative_inverse(w) @ tw[:3])
                 rows.append((tw[3:] - spatial.hat(c) @ tw[:3]) / self.L)
         return np.vstack(rows) * lay.cs[None, :]
 
@@ -422,12 +443,13 @@ class _Targets:
 
     def solve(self, q):
         """Move ``q`` (closed) towards the targets (in place); returns the number of steps."""
-        links = self.m.link_poses(q)
+        links = self.warm(q)
         e, dist = self.errors(links)
         merit = float(e @ e)
         lam = LAMBDA0
         cap = FIRST_STEP
         steps = 0
+        last_towards = None
         for it in range(MAX_ITER):
             # every row, so a link's turn about the line of its joint points counts too
             if float(np.abs(e).max()) <= CLOSE:
@@ -458,7 +480,8 @@ class _Targets:
             if towards < STALL or gain < FLAT:
                 break
             size = float(np.abs(du).max())
-            if size > cap:
+            capped = size > cap
+            if capped:
                 du = du * (cap / size)
                 size = cap
             trial = q.copy()
@@ -478,6 +501,11 @@ class _Targets:
                 links, e, dist, merit = links_t, e_t, dist_t, new_merit
                 steps += 1
                 lam = max(lam / 10.0, LAMBDA_MIN)
+                if last_towards is not None and not capped and towards * towards < NEXT * last_towards:
+                    # the steps contract (linearly or faster): the next one, about
+                    # towards^2 / last_towards, would move less than NEXT: found
+                    break
+                last_towards = towards
                 if moved < 0.01 * size:
                     cap = min(2 * cap, MAX_STEP)
                 elif moved < 0.1 * size:
@@ -494,10 +522,11 @@ class _Targets:
         return steps
 
 
-def pose_to_targets(mech, values, start, targets):
-    """:meth:`Mechanism.pose` with targets (see the module docstring)."""
+def pose_to_targets(mech, values, start, targets, measures=None):
+    """:meth:`Mechanism.pose` with targets (see the module docstring); ``measures``: the
+    point measures target names are looked up in, as for :func:`parse_targets`."""
     from .mechanism import Pose
-    parsed = parse_targets(mech, targets)
+    parsed = parse_targets(mech, targets, measures)
     held = mech._held_from(values)
     mech.check_limits(held)
     if isinstance(start, dict):
@@ -519,7 +548,11 @@ def pose_to_targets(mech, values, start, targets):
         t.close(q, t.layout(set()))
         links = mech.link_poses(q)
         t.dist = t.errors(links)[1]
-    err = t.residual if t._closed is not None and t._closed[1] == q.tobytes() else s.closure(q)[0]
+    closed_here = t._closed is not None and t._closed[1] == q.tobytes()
+    err = t.residual if closed_here else s.closure(q)[0]
+    if closed_here and t._closed[0] is t.layout(set()):
+        t.sh.last = (t._closed[1], t._closed[0], t._closed[2], t.residual,
+                     {k: v.copy() for k, v in links.items()})
     pose = Pose(joints=mech._values_out(q), links=links, converged=err <= 1e-9,
                 residual=float(err), q=q, notes=notes)
     for name, v in (values or {}).items():

@@ -96,3 +96,54 @@ def test_point_motion_matches_differences_and_the_crank_pin():
     v = Jp[0] @ qd
     assert np.linalg.norm(v) == pytest.approx(2.0, abs=1e-12)
     assert np.allclose(a0[0], -x[0] * np.array([1, 1, 0]), atol=1e-12)
+
+
+def _twist_by_differences(m, q_plus, q_minus, link, h):
+    """Spatial twist of ``link`` from central differences of its pose: vee(D' D^-1)."""
+    Dp, Dm = m.link_poses(q_plus)[link], m.link_poses(q_minus)[link]
+    D0 = m.link_poses(0.5 * (q_plus + q_minus))[link]
+    Xi = (Dp - Dm) / (2 * h) @ np.linalg.inv(D0)
+    return np.array([Xi[2, 1], Xi[0, 2], Xi[1, 0], Xi[0, 3], Xi[1, 3], Xi[2, 3]])
+
+
+def test_link_columns_match_central_differences_of_the_link_poses():
+    # every coordinate, at an arbitrary (not closed) state: the columns are a tree's
+    # space Jacobian (Lynch & Park 2017, sec. 5.1.1), checked against differences
+    from jointwise.kinematics import link_motion
+    m = jointwise.from_dict(M.rssr())
+    rng = np.random.default_rng(7)
+    q = m.home + rng.uniform(-0.6, 0.6, len(m.coordinates))
+    h = 1e-6
+    for link in m.links:
+        cols = link_motion(m, q[None], None, link)[1]
+        # the same columns from the link poses' frames instead of the walk
+        framed = link_motion(m, q[None], None, link, links=m.link_poses(q))[1]
+        assert np.allclose(framed, cols, atol=1e-12)
+        for i in range(len(q)):
+            dq = np.zeros(len(q))
+            dq[i] = h
+            fd = _twist_by_differences(m, q + dq, q - dq, link, h)
+            assert np.allclose(cols[0][:, i], fd, atol=1e-7), (link, m.coordinates[i])
+
+
+def test_link_columns_of_rotation_increments_match_the_solvers_step():
+    # a free ball joint moved by rotation increments (the solver's columns): the column is
+    # the twist of the increment, checked against the solver's own update of the state
+    from jointwise.kinematics import link_motion
+    m = jointwise.from_dict(M.rssr())
+    s = m.solver
+    q = m.pose({"crank": 35.0}).q
+    h = 1e-6
+    cols_s = [("s", "ball_a", k) for k in range(3)]
+    cols = link_motion(m, q[None], None, "coupler", rot={"ball_a"}, links=m.link_poses(q))[1]
+    walked = link_motion(m, q[None], None, "coupler", rot={"ball_a"})[1]
+    assert np.allclose(walked, cols, atol=1e-12)
+    sl = m._slices["ball_a"]
+    for k in range(3):
+        du = np.zeros(3)
+        du[k] = h
+        qp, qm = q.copy(), q.copy()
+        s._apply(qp, cols_s, {"ball_a"}, du)
+        s._apply(qm, cols_s, {"ball_a"}, -du)
+        fd = _twist_by_differences(m, qp, qm, "coupler", h)
+        assert np.allclose(cols[0][:, sl.start + k], fd, atol=1e-7), k

@@ -285,3 +285,17 @@ def test_hat_vee():
     x = np.array([0.5, 0.25, -4.0])
     np.testing.assert_allclose(S.hat(w) @ x, np.cross(w, x))
     np.testing.assert_allclose(S.vee(S.hat(w)), w)
+
+
+@pytest.mark.parametrize("angle", [0.0, 1e-7, 0.4, 2.0, 3.1])
+def test_log3_derivative_inverse_matches_differences(angle):
+    # d log(E exp(-[w] t)) / dt = -J_r^-1(log E) w (Chirikjian 2011, vol. 2, sec. 10.2),
+    # checked by central differences at rotations up to nearly pi
+    axis = np.array([0.3, -0.5, 0.8]) / np.linalg.norm([0.3, -0.5, 0.8])
+    from jointwise import spatial
+    E = spatial.exp3(axis * angle)
+    w = np.array([0.2, 0.7, -0.4])
+    h = 1e-6
+    fd = (spatial.log3(E @ spatial.exp3(-w * h)) - spatial.log3(E @ spatial.exp3(w * h))) / (2 * h)
+    got = -spatial.log3_derivative_inverse(spatial.log3(E)) @ w
+    assert np.allclose(got, fd, atol=1e-7)

@@ -10,7 +10,8 @@ update is ``obj.matrix_world = M`` then ``view_layer.update()`` (the drag handle
 inside it), timed from the write to the updated placements. Baselines measured in the same
 run: the same write and update without the drag handler (the host's own cost), and a joint
 value changed (the existing value path). Prints medians over all updates of
-ROUNDS rounds, the largest update, and the ratios. Target: median drag update <= 10 ms.
+ROUNDS rounds, the largest update, and the ratios. Target (issue 11): every drag update
+<= 10 ms, so the largest (max) as well as the median.
 """
 from __future__ import annotations
 
@@ -118,7 +119,7 @@ def main():
     clock = "wall-clock" if CLOCK is time.perf_counter else "CPU (process)"
     print(f"bpy {bpy.app.version_string}; {STEPS} updates x {ROUNDS} rounds per sample; {clock} time, medians in ms")
     print(f"{'sample':<18}{'drag':>8}{'max':>8}{'host only':>11}{'value pose':>12}{'drag/value':>12}{'drag/host':>11}")
-    worst = 0.0
+    worst = worst_max = 0.0
     only = [a[len("--only="):] for a in sys.argv[1:] if a.startswith("--only=")]
     for name, link, step, off in CASES:
         if only and name not in only:
@@ -148,8 +149,10 @@ def main():
             values += _time_values(scene, drive, step)
         md, mh, mv = (statistics.median(x) * 1e3 for x in (drags, hosts, values))
         worst = max(worst, md)
+        worst_max = max(worst_max, max(drags) * 1e3)
         print(f"{name:<18}{md:8.2f}{max(drags) * 1e3:8.2f}{mh:11.2f}{mv:12.2f}{md / mv:12.2f}{md / mh:11.1f}")
-    print(f"largest median drag update: {worst:.2f} ms (target <= 10 ms)")
+    print(f"largest median drag update: {worst:.2f} ms; largest single update: {worst_max:.2f} ms "
+          f"(target: every update <= 10 ms)")
 
 
 if __name__ == "__main__":

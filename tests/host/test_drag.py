@@ -190,6 +190,17 @@ def test_auto_keying_keys_the_held_values(installed):
     assert bpy.context.scene is scene
 
 
+def _handle_to(scene, mech, handle, link, at, crank, start):
+    """Move ``handle`` to where point ``at`` of ``link`` is at crank_pin = ``crank`` (deg):
+    (that point in ground coordinates, the handle's new world matrix)."""
+    aim = mech.pose({"crank_pin": crank}, start=start).links[link]
+    p = (aim @ np.append(at, 1.0))[:3]
+    m = _world(handle)
+    m[:3, 3] = (_ground(scene) @ np.append(p, 1.0))[:3]
+    _set_world(handle, m)
+    return p, m
+
+
 def test_handle_drags_a_point_measure(installed):
     import bpy
     import jointwise
@@ -204,11 +215,7 @@ def test_handle_drags_a_point_measure(installed):
     coupler_now = np.linalg.inv(g) @ _world(jw.links["coupler"].object) @ np.linalg.inv(_home(jw.links["coupler"]))
     assert np.allclose(_world(handle)[:3, 3], (g @ coupler_now @ np.append(at, 1))[:3], atol=1e-3)
     # move the handle to where the point is at crank 95 deg: the crank comes there
-    aim = mech.pose({"crank_pin": 95.0}, start=start).links["coupler"]
-    p = (aim @ np.append(at, 1.0))[:3]
-    m = _world(handle)
-    m[:3, 3] = (g @ np.append(p, 1.0))[:3]
-    _set_world(handle, m)
+    p, m = _handle_to(scene, mech, handle, "coupler", at, 95.0, start)
     ref = mech.pose(start=start, targets={"sign_hook": p})
     assert ref.reached
     _check_scene_matches(scene, mech, ref)
@@ -225,24 +232,36 @@ def test_handle_drags_a_point_measure(installed):
     assert np.allclose(_world(handle)[:3, 3], m[:3, 3], atol=2e-3)
 
 
-def test_handle_for_an_unknown_measure_is_refused(installed):
+@pytest.mark.parametrize("measure, why", [
+    ("sign_hok", "no point measure named 'sign_hok'"),
+    ("transmission", "'transmission' is an angle measure, not a point measure"),
+])
+def test_handle_for_an_unknown_measure_is_refused(installed, measure, why):
     import bpy
     scene = _open("wagtail_rocker")
     n = len(bpy.data.objects)
-    with pytest.raises(RuntimeError, match="no point measure named 'sign_hok'"):
-        bpy.ops.jointwise.handle_add(measure="sign_hok")
+    with pytest.raises(RuntimeError, match=why):
+        bpy.ops.jointwise.handle_add(measure=measure)
     assert len(bpy.data.objects) == n
     assert scene.jointwise.joints
 
 
-def test_handle_follows_a_value_pose(installed):
+def _with_handle(measure, before=None):
+    """wagtail_rocker with a handle on ``measure`` (``before(scene, mech)`` runs first):
+    (scene, mech, handle)."""
     import bpy
     import jointwise
     scene = _open("wagtail_rocker")
-    jw = scene.jointwise
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))
-    assert bpy.ops.jointwise.handle_add(measure="sign_hook") == {"FINISHED"}
-    handle = bpy.data.objects["handle sign_hook"]
+    if before is not None:
+        before(scene, mech)
+    assert bpy.ops.jointwise.handle_add(measure=measure) == {"FINISHED"}
+    return scene, mech, bpy.data.objects[f"handle {measure}"]
+
+
+def test_handle_follows_a_value_pose(installed):
+    scene, mech, handle = _with_handle("sign_hook")
+    jw = scene.jointwise
     jw.joints["crank_pin"].value = math.radians(130.0)
     want = mech.pose({"crank_pin": 130.0}).links["coupler"] @ np.append(mech.measures["sign_hook"].a[1], 1.0)
     assert np.allclose(_world(handle)[:3, 3], (_ground(scene) @ want)[:3], atol=2e-3)
@@ -261,3 +280,57 @@ def test_baked_links_are_not_dragged(installed):
     _set_world(obj, m)
     assert {it.name: float(it.value) for it in jw.joints} == before
     assert not jw.message.startswith("dragged")
+
+
+def _add_point_measure(scene, name, link, at):
+    """A point measure added to the scene's Measures list (as the panel's Add Measure does)."""
+    item = scene.jointwise.measures.add()
+    item.name = name
+    item.kind = 'POINT'
+    item.link_a = link
+    item.at_a = [float(v) for v in at]
+    return item
+
+
+def test_handle_follows_a_measure_of_the_list_and_drags_it(installed):
+    # a point measure the file does not have, added to scene.jointwise.measures (the
+    # interface of issue 10): the handle sits at its location and dragging it solves for
+    # that measure's own definition; reference: the core's pose by target for the same
+    # point on the file's mechanism
+    from jointwise.mechanism import Measure
+    at = np.array([30.0, 40.0, 0.0])  # on the rocker at home, scene units = mm
+
+    def add(scene, mech):
+        _add_point_measure(scene, "rocker_tip", "rocker", at)
+        mech.measures["rocker_tip"] = Measure("rocker_tip", "point", a=("rocker", tuple(at)))
+    scene, mech, handle = _with_handle("rocker_tip", add)
+    jw = scene.jointwise
+    jw.joints["crank_pin"].value = jw.joints["crank_pin"].value  # pose: the list's location is fresh
+    assert np.allclose(_world(handle)[:3, 3], list(jw.measures["rocker_tip"].location), atol=1e-3)
+    start = _values_file(scene, mech)
+    p, m = _handle_to(scene, mech, handle, "rocker", at, start["crank_pin"] + 20.0, start)
+    ref = mech.pose(start=start, targets={"rocker_tip": p})
+    assert ref.reached
+    assert jw.message.startswith("dragged rocker_tip"), jw.message
+    _check_scene_matches(scene, mech, ref)
+    assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(start["crank_pin"] + 20.0, abs=1e-3)
+    # handle, measure location and the point all agree after the drag
+    assert np.allclose(list(jw.measures["rocker_tip"].location), m[:3, 3], atol=2e-3)
+    assert np.allclose(_world(handle)[:3, 3], m[:3, 3], atol=2e-3)
+
+
+def test_handle_uses_the_lists_definition_when_it_changes(installed):
+    # the measure's point edited in the list: the handle goes to the new point on the next
+    # pose and a drag solves for the new point
+    from jointwise.mechanism import Measure
+    scene, mech, handle = _with_handle("sign_hook")
+    jw = scene.jointwise
+    new_at = np.array(mech.measures["sign_hook"].a[1]) + (10.0, -5.0, 0.0)
+    jw.measures["sign_hook"].at_a = new_at.tolist()
+    jw.joints["crank_pin"].value = math.radians(100.0)
+    assert np.allclose(_world(handle)[:3, 3], list(jw.measures["sign_hook"].location), atol=1e-3)
+    mech.measures["sign_hook"] = Measure("sign_hook", "point", a=("coupler", tuple(new_at)))
+    start = _values_file(scene, mech)
+    p, _ = _handle_to(scene, mech, handle, "coupler", new_at, 115.0, start)
+    assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(115.0, abs=1e-3)
+    _check_scene_matches(scene, mech, mech.pose(start=start, targets={"sign_hook": p}))
