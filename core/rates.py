@@ -136,12 +136,21 @@ def _block_derivatives(mech, b, Q, D, g, unknown):
 
 def _law_terms(s, i, qg, order):
     """(f', f'', f''') of member ``i`` over master values ``qg``; f''' (order 3 only) by a
-    central difference of the law's exact f''."""
+    central difference of the law's exact f''.  Where f'' jumps (a Geneva wheel's pin
+    entering its slot, a constant-velocity rise starting) f''' is undefined: NaN there,
+    found as the central differences at steps h and h/2 disagreeing (they agree to
+    O(h^2) where f'' is smooth; across a jump J they differ by about J / 2h)."""
     _, d1, d2 = s.member_rates(i, qg)
     d3 = np.zeros_like(qg)
     if order > 2 and i in s.law:
-        h = 1e-4 / s.cscale[int(s.master[i])]
-        d3 = (s.member_rates(i, qg + h)[2] - s.member_rates(i, qg - h)[2]) / (2 * h)
+        size = 1.0 / s.cscale[int(s.master[i])]          # 1 rad, or the mechanism's size
+        h = 1e-4 * size
+        f2 = {k: s.member_rates(i, qg + k * h)[2] for k in (-1.0, -0.5, 0.5, 1.0)}
+        wide = (f2[1.0] - f2[-1.0]) / (2 * h)
+        d3 = (f2[0.5] - f2[-0.5]) / h
+        floor = 1e-4 * float(np.abs(d2).max(initial=0.0)) / size
+        jump = np.abs(wide - d3) > 1e-3 * np.maximum(np.abs(wide), np.abs(d3)) + floor
+        d3 = np.where(jump, np.nan, d3)
     return d1, d2, d3
 
 

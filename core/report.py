@@ -284,6 +284,58 @@ def _runs(mask):
     return [(int(p[0]), int(p[-1])) for p in parts]
 
 
+def _ratio_unit(unit):
+    """A speed ratio's unit for a rate: ``deg/deg`` is a plain number (``1``), else ``(mm/deg)``."""
+    a, _, b = unit.partition("/")
+    return "1" if a == b else f"({unit})"
+
+
+def _twin_legend(ax, twin):
+    """The right axis' lines listed in the left axis' legend (as empty proxies), the left
+    axis drawn above the right one (its legend is not crossed by the right axis' lines),
+    and zero at the same height on both axes."""
+    for line in twin.get_lines():
+        ax.plot([], [], ls=line.get_linestyle(), lw=line.get_linewidth(), color=line.get_color(),
+                label=line.get_label())
+    ax.set_zorder(twin.get_zorder() + 1)
+    ax.patch.set_visible(False)
+    lims = [a.get_ylim() for a in (ax, twin)]
+    lims = [(min(lo, 0.0), max(hi, 0.0)) for lo, hi in lims]
+    if any(hi - lo <= 0 for lo, hi in lims):
+        return
+    share = max(-lo / (hi - lo) for lo, hi in lims)  # the part of the height below zero
+    if share >= 1.0:
+        return
+    for a, (lo, hi) in zip((ax, twin), lims):
+        if hi > 0:
+            a.set_ylim(min(lo, -share * hi / (1.0 - share)), hi)
+
+
+def _unit_axes(ax, x, groups, first, what):
+    """Plot ``groups`` (unit -> [(label, values, style)]) against ``x`` with the unit
+    ``first`` (the drive's, when present) on the left axis and the other units on a right
+    axis, so that every axis names its units; each line's label carries its unit."""
+    import matplotlib
+    colours = matplotlib.rcParams["axes.prop_cycle"].by_key().get("color", ["C0"])
+    units = sorted(groups, key=lambda u: (u != first, -len(groups[u]), u))
+    if not units:
+        return
+    k = 0
+    for label, v, style in groups[units[0]]:
+        ax.plot(x, v, ls=style, color=colours[k % len(colours)], label=f"{label} [{units[0]}]")
+        k += 1
+    ax.set_ylabel(f"{what} [{units[0]}]")
+    if len(units) > 1:
+        twin = ax.twinx()
+        for u in units[1:]:
+            for label, v, style in groups[u]:
+                twin.plot(x, v, ls="--" if style == "-" else style, color=colours[k % len(colours)],
+                          label=f"{label} [{u}], right axis")
+                k += 1
+        twin.set_ylabel(f"{what} [{', '.join(units[1:])}]")
+        _twin_legend(ax, twin)
+
+
 def plot_sweep(mech, sw, drive, path):
     """Draw the sweep to PNG ``path`` (atomically: temp file, then rename)."""
     import matplotlib
@@ -296,7 +348,7 @@ def plot_sweep(mech, sw, drive, path):
     rates = [n for n, m in mech.measures.items() if m.type == "rate"]
     others = [n for n in mech.measures if n not in rates]
     moving = sw.time is not None
-    panels = 1 + (1 if others else 0) + (1 if rates else 0) + (2 if moving else 0)
+    panels = 1 + (1 if others else 0) + (1 if rates else 0) + ((3 if rates else 2) if moving else 0)
     fig, axes = plt.subplots(panels, 1, figsize=(8, 3.2 * panels), sharex=True, squeeze=False)
     axes = axes[:, 0]
 
@@ -309,25 +361,27 @@ def plot_sweep(mech, sw, drive, path):
             ax.axvspan(min(x[a], x[b]) - abs(dx), max(x[a], x[b]) + abs(dx), color="tab:red", alpha=0.25,
                        lw=0, label="singular (dead point)")
 
-    ax = axes[0]
+    ax = axes[0]  # every panel: one unit on the left axis, the others on the right
+    groups = {}
     for c in mech.coordinates:
         unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
-        ax.plot(x, sw.joints[c], label=f"{c} [{unit}]")
+        groups.setdefault(unit, []).append((c, sw.joints[c], "-"))
+    _unit_axes(ax, x, groups, du, "coordinates")
     shade(ax)
-    ax.set_ylabel("coordinates")
     k = 1
     if others:
         ax = axes[k]
         k += 1
+        groups = {}
         for n in others:
             v = sw.measures[n]
             if v.ndim > 1:
-                for j, a in enumerate("xyz"):
-                    ax.plot(x, v[:, j], label=f"{n}.{a} [{mech.length_unit}]")
+                groups.setdefault(mech.length_unit, []).extend((f"{n}.{a}", v[:, j], "-")
+                                                               for j, a in enumerate("xyz"))
             else:
-                ax.plot(x, v, label=f"{n} [{describe(mech, n)}]")
+                groups.setdefault(describe(mech, n), []).append((n, v, "-"))
+        _unit_axes(ax, x, groups, mech.length_unit, "measures")
         shade(ax)
-        ax.set_ylabel("measures")
     if rates:
         ax = axes[k]
         k += 1
@@ -340,8 +394,9 @@ def plot_sweep(mech, sw, drive, path):
             rate = np.asarray(sw.measures[n], dtype=float)
             pole = np.flatnonzero(np.sign(rate[1:]) != np.sign(rate[:-1])) + 1
             adv[pole] = np.nan  # the rate passes zero there: the advantage runs off to +-infinity
+            inv = _ratio_unit("/".join(reversed(describe(mech, n).split("/")))).strip("()")
             twin.plot(x, adv, ls="--", lw=0.9, color="0.45",
-                      label=f"{n}: ideal mechanical advantage (frictionless, 1/rate), right axis")
+                      label=f"{n}: ideal mechanical advantage [{inv}] (frictionless, 1/rate), right axis")
             finite = adv[np.isfinite(adv) & (np.abs(adv) < 1e12)]
             if finite.size:
                 lo_hi.append(np.percentile(finite, [5, 95]))
@@ -350,28 +405,45 @@ def plot_sweep(mech, sw, drive, path):
             hi = max(v[1] for v in lo_hi)
             pad = 0.5 * max(hi - lo, 1e-9)
             twin.set_ylim(lo - pad, hi + pad)
-        twin.set_ylabel("ideal mechanical advantage")
+        inverse = sorted({_ratio_unit("/".join(reversed(describe(mech, n).split("/")))).strip("()") for n in rates})
+        twin.set_ylabel(f"ideal mechanical advantage [{', '.join(inverse)}]")
         h2, l2 = twin.get_legend_handles_labels()
         for hh, ll in zip(h2, l2):
             ax.plot([], [], ls="--", color="0.45", label=ll)
         shade(ax)
-        ax.set_ylabel("rates")
-    if moving:  # velocity and acceleration panels, units on every line
-        for ax, key, mkey, per in ((axes[k], "velocities", "measure_velocities", "/s"),
-                                   (axes[k + 1], "accelerations", "measure_accelerations", "/s²")):
+        ax.set_ylabel(f"rates [{', '.join(sorted({describe(mech, n) for n in rates}))}]")
+    if moving:  # velocity and acceleration panels: one unit an axis, a second on the right
+        for ax, key, mkey, per, what, tag in (
+                (axes[k], "velocities", "measure_velocities", "/s", "velocity", "vel"),
+                (axes[k + 1], "accelerations", "measure_accelerations", "/s²", "acceleration", "acc")):
+            groups = {}  # lines named as the CSV columns
             for c in mech.coordinates:
                 unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
-                ax.plot(x, getattr(sw, key)[c], label=f"{c} [{unit}{per}]")
+                groups.setdefault(unit + per, []).append((f"{c}.{tag}", getattr(sw, key)[c], "-"))
             for n, v in getattr(sw, mkey).items():
-                mt = mech.measures[n].type
-                unit = "deg" if mt == "angle" else mech.length_unit
+                if n in rates:
+                    continue
+                unit = describe(mech, n) + per
                 if v.ndim > 1:
-                    for j, a in enumerate("xyz"):
-                        ax.plot(x, v[:, j], ls=":", label=f"{n}.{a} [{unit}{per}]")
+                    groups.setdefault(unit, []).extend((f"{n}.{tag[0]}{a}", v[:, j], ":")
+                                                       for j, a in enumerate("xyz"))
                 else:
-                    ax.plot(x, v, ls=":", label=f"{n} [{unit}{per}]")
+                    groups.setdefault(unit, []).append((f"{n}.{tag}", v, ":"))
+            _unit_axes(ax, x, groups, du + per, what)
             shade(ax)
-            ax.set_ylabel(f"{key} [unit{per}]")
+        if rates:  # how fast the speed ratios change: their own units, .vel left, .acc right
+            ax = axes[k + 2]
+            twin = ax.twinx()
+            for n in rates:
+                unit = _ratio_unit(describe(mech, n))
+                ax.plot(x, sw.measure_velocities[n], label=f"{n}.vel [{unit}/s]")
+                twin.plot(x, sw.measure_accelerations[n], ls="--", lw=0.9,
+                          label=f"{n}.acc [{unit}/s²], right axis")
+            units = sorted({_ratio_unit(describe(mech, n)) for n in rates})
+            ax.set_ylabel(f"rate measures' change [{', '.join(u + '/s' for u in units)}]")
+            twin.set_ylabel(f"its rate of change [{', '.join(u + '/s²' for u in units)}]")
+            _twin_legend(ax, twin)
+            shade(ax)
         axes[-1].set_xlabel(f"{drive} [{du}]  (time {sw.time[0]:g} to {sw.time[-1]:.4g} s)")
     for ax in axes:
         h, lab = ax.get_legend_handles_labels()
@@ -384,7 +456,7 @@ def plot_sweep(mech, sw, drive, path):
     if not moving:
         axes[-1].set_xlabel(f"{drive} [{du}]")
     fig.suptitle(f"{mech.name or mech.source}: sweep of {drive}")
-    fig.tight_layout()
+    fig.tight_layout(rect=(0, 0, 1, 0.985))  # room for the title
     # ``path`` is the temporary name :class:`Outputs` reserved (or a device written in
     # place): saved directly, never renamed here, so ``--plot /dev/null`` stays a device
     try:

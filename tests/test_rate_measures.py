@@ -236,3 +236,72 @@ def test_unreachable_rows_leave_every_new_column_empty(tmp_path):
             for ok, v in zip(conv, vals):
                 cells = v if name == "tip" else [v]          # a point: [x, y, z] per row
                 assert all((x is None) == (not ok) for x in cells), (key, name)
+
+
+def test_geneva_rate_measure_and_its_undefined_jerk():
+    """Six-slot external Geneva wheel, standard proportions (lam = sin(pi / 6)): while the
+    pin drives, b' = lam (cos a - lam) / d, d = 1 - 2 lam cos a + lam^2 (the closed form
+    of test_couplings), so b'' = -lam (1 - lam^2) sin a / d^2 and b''' = -lam (1 - lam^2)
+    (cos a d - 4 lam sin^2 a) / d^3 (differentiated by hand, checked against differences
+    here).  The wheel's acceleration jumps where the pin enters and leaves (a = +-60 deg):
+    the rate measure's acceleration is undefined (empty) exactly there, zero in the dwell."""
+    from mechanisms import base, revolute
+    data = base("Fennwick test index", links=["crank", "wheel"])
+    data["joints"]["crank"] = revolute("frame", "crank", (0, 0), drive=True)
+    data["joints"]["wheel"] = revolute("frame", "wheel", (100, 0))
+    data["couplings"] = {"index": {"leader": "crank", "follower": "wheel", "law": "geneva", "slots": 6}}
+    data["measures"] = {"index_ratio": {"type": "rate", "of": "wheel", "per": "crank"}}
+    m = jointwise.from_dict(data)
+    th = np.linspace(-90, 90, 61)                        # 3 deg steps: +-60 are rows
+    w, acc = 360.0, 120.0
+    s = m.sweep("crank", th, speed=w, acceleration=acc)
+    lam = math.sin(math.pi / 6)
+    a = np.radians(th)
+    d = 1 - 2 * lam * np.cos(a) + lam * lam
+    b2 = -lam * (1 - lam * lam) * np.sin(a) / d ** 2
+    b3 = -lam * (1 - lam * lam) * (np.cos(a) * d - 4 * lam * np.sin(a) ** 2) / d ** 3
+    h = 1e-5
+    bp = -lam * (1 - lam * lam) * np.sin(a + h) / (1 - 2 * lam * np.cos(a + h) + lam * lam) ** 2
+    bm = -lam * (1 - lam * lam) * np.sin(a - h) / (1 - 2 * lam * np.cos(a - h) + lam * lam) ** 2
+    assert np.allclose(b3, (bp - bm) / (2 * h), atol=1e-6)  # the hand derivative
+    inside, edge = np.abs(th) < 60, np.isclose(np.abs(th), 60)
+    om, al = np.radians(w + acc * s.time), math.radians(acc)
+    v, ac = s.measure_velocities["index_ratio"], s.measure_accelerations["index_ratio"]
+    assert np.allclose(v[inside], b2[inside] * om[inside], rtol=1e-9, atol=1e-12)
+    want = b3 * om ** 2 + b2 * al
+    assert np.allclose(ac[inside], want[inside], rtol=1e-6, atol=1e-6 * np.abs(want[inside]).max())
+    assert np.isnan(ac[edge]).all() and edge.sum() == 2
+    dwell = ~inside & ~edge
+    assert (v[dwell] == 0).all() and (ac[dwell] == 0).all()
+
+
+def test_plot_at_a_speed_names_a_unit_on_every_axis(tmp_path, monkeypatch):
+    """Every axis of a --speed plot (left and right) names its unit(s), every line its own,
+    and a rate measure's change is in its own unit per s (1/s for deg/deg)."""
+    pytest.importorskip("matplotlib")
+    import re
+
+    import matplotlib.pyplot as plt
+
+    from jointwise.report import plot_sweep
+    r, l, e = 15.0, 60.0, 8.0
+    data = slider_crank(r, l, e, 30.0)
+    data["measures"] = {"stroke_rate": {"type": "rate", "of": "slide", "per": "crank"},
+                        "turn": {"type": "rate", "of": "big_end", "per": "crank"},
+                        "pin": {"type": "point", "link": "crank_arm", "at": [r * math.cos(K * 30), r * math.sin(K * 30), 0]}}
+    m = jointwise.from_dict(data)
+    s = m.sweep("crank", np.linspace(30, 390, 73), speed=720.0)
+    figs = []
+    monkeypatch.setattr(plt, "close", lambda fig=None: figs.append(fig))
+    plot_sweep(m, s, "crank", str(tmp_path / "p.png"))
+    assert (tmp_path / "p.png").stat().st_size > 0
+    fig = figs[-1]
+    unit = re.compile(r"\[[^\]]+\]")
+    labels = [ax.get_ylabel() for ax in fig.axes]
+    assert all(unit.search(t) for t in labels), labels
+    lines = [ln.get_label() for ax in fig.axes for ln in ax.get_lines() if not ln.get_label().startswith("_")]
+    assert lines and all(unit.search(t) for t in lines), lines
+    assert any("velocity [deg/s]" == t for t in labels) and any("[mm/s]" in t for t in labels)
+    assert "stroke_rate.vel [(mm/deg)/s]" in lines and "turn.vel [1/s]" in lines
+    assert any(t.startswith("pin.vx [mm/s]") for t in lines)
+    plt.close("all")
