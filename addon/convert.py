@@ -128,12 +128,20 @@ def display_length(system, length_unit, scale_length):
     return label, s * per_metre
 
 
+def _number(x, digits):
+    """``digits`` significant digits, but whole numbers too large for them in full
+    (45000, not 4.5e+04: a screw's many turns read as a user typed them)."""
+    if math.isfinite(x) and 10.0 ** digits <= abs(x) < 1e12:
+        return f"{x:.0f}"
+    return f"{x:.{digits}g}"
+
+
 def format_value(v, kind, length=("BU", 1.0), digits=4):
     """A joint value for a message: angles in degrees, lengths in the display unit."""
     if kind == "angle":
-        return f"{math.degrees(v):.{digits}g}°"
+        return f"{_number(math.degrees(v), digits)}°"
     label, k = length
-    return f"{v * k:.{digits + 1}g} {label}"
+    return f"{_number(v * k, digits + 1)} {label}"
 
 
 # -- messages --------------------------------------------------------------------------

@@ -45,7 +45,7 @@ def value_changed(item, context):
                                 float(item.value))
             posing.set_status(scene, message=f"{msg}; keyed {item.name} at frame "
                                              f"{scene.frame_current} (auto-keying)")
-        else:
+        elif scene.jointwise.live:  # not following, a frame change keeps the pose on screen
             posing.set_status(scene, message=f"{msg}; {item.name} is keyed: the animation sets it "
                                              f"back on the next frame change (key it with I, or "
                                              f"turn on auto-keying)")

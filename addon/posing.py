@@ -146,8 +146,13 @@ def clamp_to_limits(scene, held):
             continue
         lo, hi = float(item.limit_min), float(item.limit_max)
         if v < lo or v > hi:
-            held[name] = lo if v < lo else hi
-            moved.append((name, v, held[name]))
+            lim = lo if v < lo else hi
+            # the stored limit is a 32-bit float (7 digits): held two of its steps inside,
+            # so a limit that meets another joint's (a screw's end where the foot's slide
+            # ends) is not missed by the rounding of either
+            inward = 2.0 * float(np.spacing(np.float32(abs(lim))))
+            held[name] = lim + inward if v < lo else lim - inward
+            moved.append((name, v, lim))
     return moved
 
 

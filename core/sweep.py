@@ -21,9 +21,14 @@ How a sweep is solved
    from the previous one with a tangent predictor and Newton corrections (batch of one);
    an anchor that fails there, or moves more than a predictor should, is handed to
    :meth:`Solver.pose` (adaptive sub-steps, branch-jump checks) from the previous state.
+   While the predictor's correction stays below ``ANCHOR_GROW`` of the step, the walk
+   steps over anchors (twice as many each time, up to ``ANCHOR_STRIDE``); after a miss it
+   goes back to every anchor from the last good one.  Anchors stepped over are solved with
+   the refinement level (a lift table's screw, many turns for a small lift, needs a tenth
+   of the anchors).
 2. *Refinement*: points spaced ``REFINE_STEP`` apart are seeded by cubic Hermite
    interpolation between neighbouring anchors (end slopes from the Jacobian tangent
-   dq/dheld), corrected by batched Gauss-Newton steps over all of them at once, then every
+   dq/dheld; an angle takes the turn the tangents predict), corrected by batched Gauss-Newton steps over all of them at once, then every
    remaining sample is seeded from those and corrected the same way.  The batched
    evaluator stacks the screw exponentials, adjoint products, loop logarithms and
    Jacobians over steps (``B x 4 x 4`` products; least-norm steps from the normal
@@ -79,6 +84,11 @@ __all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule
 
 #: Largest held motion between anchors solved one after another (dimensionless).
 ANCHOR_STEP = 0.8
+#: The anchor walk steps over up to this many anchors at once while its predictor is right:
+#: a correction of at most ``ANCHOR_GROW`` of the step doubles the stride (a second-order
+#: predictor's miss grows as the cube of the step, so the doubled step still passes).
+ANCHOR_STRIDE = 32
+ANCHOR_GROW = 0.01
 #: Largest held motion between points of the refinement level (dimensionless).
 REFINE_STEP = 0.1
 #: Spacing of the second refinement level, from which every sample is interpolated.
@@ -381,7 +391,10 @@ def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
     mb = np.einsum("kch,kh->kc", Tb, dH)
     qa, qb = Q[a][:, ci], Q[b][:, ci]
     ang = ~ev.s.is_length[ci]
-    qb[:, ang] = qa[:, ang] + (qb[:, ang] - qa[:, ang] + np.pi) % (2 * np.pi) - np.pi  # same turn
+    # the turn of qb nearest to what the tangents predict (qa + (ma + mb) / 2): anchors many
+    # turns apart (a screw's nut) keep their turns; close anchors take the same turn
+    est = 0.5 * (ma[:, ang] + mb[:, ang])
+    qb[:, ang] = qa[:, ang] + est + (qb[:, ang] - qa[:, ang] - est + np.pi) % (2 * np.pi) - np.pi
     out = h00[:, None] * qa + h10[:, None] * ma + h01[:, None] * qb + h11[:, None] * mb
     Q[np.ix_(idx, ci)] = out
     _derive(ev.s, Q, ci)
@@ -438,9 +451,15 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
     prev_i = None
     pprev_i = None
     blocked = None
-    for i in anchors:
-        i = int(i)
+    # the walk may step over anchors while the predictor is right (``stride``, doubled
+    # after a correction below ANCHOR_GROW of the step, back to 1 after a miss); the
+    # anchors stepped over are solved with the refinement level, batched
+    visited = []
+    pos, prev_pos, stride = 0, None, 1
+    while pos < len(anchors):
+        i = int(anchors[pos])
         done = False
+        grow = False
         if prev_i is not None and ok[prev_i] and cols:
             trial = Q[i:i + 1].copy()
             trial[0, :] = Q[prev_i]
@@ -467,8 +486,14 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
                 Q[i] = trial[0]
                 ok[i], err[i] = True, e[0]
                 done = True
+                grow = moved <= ANCHOR_GROW * stepd
+            elif stride > 1:  # a long step missed: back to every anchor after the last good one
+                pos, stride = prev_pos + 1, 1
+                continue
+        visited.append(i)
         if not done and _blocked(blocked, Hm, prev_i, i):
             reasons[i] = blocked[2]
+            pos += 1
             continue
         if not done:
             start = Q[prev_i] if (prev_i is not None and ok[prev_i]) else prev_q
@@ -485,7 +510,15 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             prev_T = _tangent(ev, Q[i:i + 1])
             pprev_i = prev_i if done else None
             prev_i = i
+            prev_pos = pos
             prev_q = Q[i].copy()
+            stride = min(2 * stride, ANCHOR_STRIDE) if grow else 1
+        else:
+            stride = 1
+        if pos == len(anchors) - 1:
+            break
+        pos = min(pos + stride, len(anchors) - 1)
+    anchors = np.array(visited, dtype=int)
     # tangents at anchors
     nh = len(ev.held)
     Tall = np.zeros((N, len(ev.cols_coord), nh))

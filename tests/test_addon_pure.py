@@ -127,6 +127,9 @@ def test_units_and_messages():
     assert "90 deg" in msg and "[-57.296, 57.296] deg" in msg and "slide 250 mm" in msg
     assert convert.format_value(math.radians(51.6), "angle") == "51.6°"
     assert convert.format_value(0.0125, "length", ("mm", 1000.0)) == "12.5 mm"
+    # many turns in full, as typed (not 4.5e+04°)
+    assert convert.format_value(math.radians(45000.0), "angle") == "45000°"
+    assert convert.format_value(-2.5, "length", ("mm", 1e5)) == "-250000 mm"
 
 
 # The extension's layers, bottom to top: a module imports only from earlier layers

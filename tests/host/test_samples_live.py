@@ -85,3 +85,24 @@ def test_sample_keeps_the_file_geometry_for_export(installed, name):
         for key in ("point", "axis", "axis2"):
             if key in j:
                 assert stored[jn][key] == j[key], (jn, key)
+
+
+def test_the_lift_screw_past_its_end_poses_at_the_end(installed):
+    """plover_lift's screw stops at 45000 deg, where the foot's slide ends too (125 turns of
+    the M16's 2 mm lead: 250 mm). A value past it poses at the end and says so, although
+    the stored limits are 32-bit floats that round the two ends apart. Reference: the
+    core's pose of the sample's file at 45000 deg."""
+    import bpy
+    import jointwise
+    scene = _open("plover_lift")
+    jw = scene.jointwise
+    assert bpy.ops.jointwise.bake_clear() == {"FINISHED"}
+    jw.live = False  # the screw is keyed: pose what is typed, not the animation
+    it = jw.joints["screw_bearing"]
+    it.value = math.radians(50000.0)
+    assert jw.converged, jw.message
+    assert "limit 45000°" in jw.message and "asked 50000°" in jw.message
+    assert math.degrees(it.value) == pytest.approx(45000.0, abs=0.01)
+    want = jointwise.load(os.path.join(SAMPLES, "plover_lift.toml")).pose({"screw_bearing": 44999.99})
+    foot = jw.joints["foot_slide"].value / scene.unit_settings.scale_length * 1e-3  # mm
+    assert foot == pytest.approx(want.joints["foot_slide"], abs=1e-3)

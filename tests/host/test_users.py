@@ -121,6 +121,13 @@ def test_dragging_a_keyed_value_says_the_animation_sets_it_back(fresh, tmp_path)
     assert [round(k.co[0]) for k in fc.keyframe_points] == [1, 9]
     assert fc.evaluate(9) == pytest.approx(math.radians(105), abs=1e-6)
     assert "auto-keying" in jw.message
+    # not following the animation: a frame change keeps the pose on screen, so no warning
+    fresh.tool_settings.use_keyframe_insert_auto = False
+    jw.live = False
+    jw.joints["a"].value = math.radians(102)
+    assert jw.converged and "sets it back" not in jw.message, jw.message
+    fresh.frame_set(5)
+    assert math.degrees(jw.joints["a"].value) == pytest.approx(102.0, abs=1e-4)
 
 
 def test_bake_without_a_range_uses_the_scenes(fresh, tmp_path):
