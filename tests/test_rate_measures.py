@@ -305,3 +305,25 @@ def test_plot_at_a_speed_names_a_unit_on_every_axis(tmp_path, monkeypatch):
     assert "stroke_rate.vel [(mm/deg)/s]" in lines and "turn.vel [1/s]" in lines
     assert any(t.startswith("pin.vx [mm/s]") for t in lines)
     plt.close("all")
+
+
+def test_two_freedoms_with_one_held_and_a_measure_of_another_motion():
+    """Five-bar (two freedoms) driven at j0 with j4 held: d(j2)/d(j0) follows the sweep's
+    motion, its rates match fourth-order central differences of its values; a measure
+    whose ``of`` is the held j4 releases it (another motion than the sweep's): empty."""
+    from mechanisms import five_bar
+    data = five_bar()
+    data["measures"] = {"follow": {"type": "rate", "of": "j2", "per": "j0"},
+                        "other": {"type": "rate", "of": "j4", "per": "j0"}}
+    m = jointwise.from_dict(data)
+    x0, h, w, acc = 5.0, 0.01, 10.0, 3.0
+    vals = x0 + h * np.arange(-2, 3)
+    s = m.sweep("j0", np.concatenate([[0.0], vals]), held={"j4": 0.0}, speed=w, acceleration=acc)
+    assert s.converged.all()
+    M = s.measures["follow"][1:]
+    d1 = (-M[4] + 8 * M[3] - 8 * M[1] + M[0]) / (12 * h)
+    d2 = (-M[4] + 16 * M[3] - 30 * M[2] + 16 * M[1] - M[0]) / (12 * h * h)
+    wd = w + acc * s.time[3]
+    assert s.measure_velocities["follow"][3] == pytest.approx(d1 * wd, rel=1e-7)
+    assert s.measure_accelerations["follow"][3] == pytest.approx(d2 * wd ** 2 + d1 * acc, rel=1e-5)
+    assert np.isnan(s.measure_velocities["other"]).all() and np.isnan(s.measure_accelerations["other"]).all()
