@@ -5,10 +5,9 @@ Conventions are stated in :mod:`jointwise.spatial` (transforms, screws) and
 :mod:`jointwise.mechanism` (home placement, units).
 """
 from .errors import AssemblyError, JointwiseError, LimitError, SpecError
-from .mechanism import Mechanism, Pose
-from .spec import from_dict, load, loads
+from .mechanism import Mechanism, Pose, from_dict, load, loads
+from .units import __version__
 
-__version__ = "0.1.0"
 
 __all__ = ["load", "loads", "from_dict", "Mechanism", "Pose",
            "JointwiseError", "SpecError", "AssemblyError", "LimitError", "__version__"]

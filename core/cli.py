@@ -17,7 +17,7 @@ import sys
 
 import numpy as np
 
-from . import __version__
+from .units import __version__
 from .errors import AssemblyError, JointwiseError, SpecError
 from .spec import LIMITS
 
@@ -214,7 +214,7 @@ def main(argv=None):
 
 
 def _run(args):
-    from .spec import load
+    from .mechanism import load
     mech = load(args.file)
     return COMMANDS[args.command](mech, args)
 

@@ -21,6 +21,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .kinematics import Evaluator, tangent
+
 __all__ = ["evaluate", "columns", "ADVANTAGE_CAP", "describe"]
 
 ADVANTAGE_CAP = 1e12
@@ -94,7 +96,6 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     ``per`` takes the place of the run's input: the held set is ``held_masters`` with the
     drive (when ``per`` is not held already) and ``of`` released and ``per`` held, so the
     rate is the speed ratio along the mechanism's motion, whichever coordinate drove it."""
-    from .sweep import _Evaluator, _tangent
     s = mech.solver
     N = Q.shape[0]
     io, ip = mech._require(of), mech._require(per)
@@ -110,8 +111,8 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     bi = s.block_of_master.get(gp)
     if bi is None or s.block_of_master.get(go) != bi:
         return np.zeros(N)
-    ev = _Evaluator(mech, s.blocks[bi], held)
-    T = _tangent(ev, Q)  # (N, coord cols, held)
+    ev = Evaluator(mech, s.blocks[bi], held)
+    T = tangent(ev, Q)  # (N, coord cols, held)
     ci = [c[1] for c in ev.cols_coord].index(go)
     hi = ev.held.index(gp)
     dg = T[:, ci, hi]

@@ -21,10 +21,12 @@ import tomllib
 import numpy as np
 
 from .errors import JointwiseError, SpecError
+from . import couplings as laws
 from .joints import JOINT_TYPES, Joint, lead_from_angle, thread_lead
+from .model import Coupling, Link, Measure
 from .units import ANGLE_UNITS, FORMAT, LENGTH_UNITS, LIMITS
 
-__all__ = ["load", "loads", "from_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT", "LIMITS"]
+__all__ = ["read_file", "read_text", "read_dict", "LENGTH_UNITS", "ANGLE_UNITS", "FORMAT", "LIMITS"]
 
 TOP_KEYS = ("format", "mechanism", "links", "joints", "couplings", "measures")
 MECHANISM_KEYS = ("name", "length_unit", "angle_unit", "ground")
@@ -138,8 +140,9 @@ def _find_duplicate(data, path=""):
     return None
 
 
-def load(path):
-    """Read a mechanism file (``.toml`` or ``.json``) and return a :class:`Mechanism`."""
+def read_file(path):
+    """Read a mechanism file (``.toml`` or ``.json``): the checked parts of a model
+    (keyword arguments of :class:`jointwise.model.Model`)."""
     name = os.path.basename(str(path))
     cap = LIMITS["file_bytes"]
     try:
@@ -150,11 +153,11 @@ def load(path):
     if len(raw) > cap:
         raise SpecError(f"larger than the limit of {cap // (1024 * 1024)} MB for a mechanism file",
                         source=name)
-    return loads(raw, source=name, fmt="json" if name.lower().endswith(".json") else "toml")
+    return read_text(raw, source=name, fmt="json" if name.lower().endswith(".json") else "toml")
 
 
-def loads(text, *, source="<text>", fmt="toml"):
-    """Parse mechanism text (TOML or JSON) and return a :class:`Mechanism`."""
+def read_text(text, *, source="<text>", fmt="toml"):
+    """Parse mechanism text (TOML or JSON): the checked parts of a model (see :func:`read_dict`)."""
     cap = LIMITS["file_bytes"]
     if len(text) > cap:  # characters or bytes: either way beyond the cap of a file
         raise SpecError(f"larger than the limit of {cap // (1024 * 1024)} MB for a mechanism file",
@@ -186,7 +189,7 @@ def loads(text, *, source="<text>", fmt="toml"):
         if dup:
             raise SpecError("duplicate key: given more than once (each link, joint and key may appear once)",
                             source=source, key=dup)
-    return from_dict(data, source=source)
+    return read_dict(data, source=source)
 
 
 # strings and comments, skipped when brackets are counted
@@ -233,9 +236,10 @@ def _check_sizes(data, source):
                 stack.append((v, key, depth + 1))
 
 
-def from_dict(data, source="<data>"):
-    """Build a :class:`Mechanism` from the mechanism-file structure held in a dict."""
-    from .mechanism import Coupling, Link, Mechanism, Measure
+def read_dict(data, source="<data>"):
+    """The checked parts of a model from the mechanism-file structure held in a dict:
+    keyword arguments of :class:`jointwise.model.Model` (links, joints, couplings and
+    measures built; the front :func:`jointwise.load` makes a Mechanism of them)."""
 
     r = _Reader(source)
     r.table(data, "")
@@ -307,14 +311,12 @@ def from_dict(data, source="<data>"):
         r.keys(md, key, MEASURE_TYPES[mtype])
         measures[mname] = _measure(r, key, mname, mtype, md, links, coords, Measure)
 
-    m = Mechanism(name=name, length_unit=lu, angle_unit=au, ground=ground, links=links,
-                  joints=joints, couplings=couplings, measures=measures, source=source)
-    return m
+    return dict(name=name, length_unit=lu, angle_unit=au, ground=ground, links=links,
+                joints=joints, couplings=couplings, measures=measures, source=source)
 
 
 def _coupling(r, key, name, cd, coords, Coupling, deg):
     """One ``[couplings.NAME]`` table: a linear coupling or a motion law (jointwise.couplings)."""
-    from . import couplings as laws
 
     law = r.choice(cd.get("law", "linear"), f"{key}.law", list(LAW_KEYS))
     for k in cd:

@@ -52,7 +52,8 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, SpecError
-from .spec import LIMITS
+from .results import Pose
+from .units import LIMITS
 
 __all__ = ["pose_to_targets", "REACHED", "parse_targets"]
 
@@ -525,7 +526,6 @@ class _Targets:
 def pose_to_targets(mech, values, start, targets, measures=None):
     """:meth:`Mechanism.pose` with targets (see the module docstring); ``measures``: the
     point measures target names are looked up in, as for :func:`parse_targets`."""
-    from .mechanism import Pose
     parsed = parse_targets(mech, targets, measures)
     held = mech._held_from(values)
     mech.check_limits(held)

@@ -259,7 +259,7 @@ def tidy_file(path, out, tolerance_deg=DEFAULT_TOLERANCE_DEG, mech=None):
 
     Raises :class:`SpecError` (bad file, cannot write) or :class:`TiltError` (beyond the
     tolerance); in both cases ``out`` is not touched."""
-    from .spec import load, loads
+    from .mechanism import load, loads
     mech = load(path) if mech is None else mech
     name = os.path.basename(str(path))
     fmt = "json" if name.lower().endswith(".json") else "toml"

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import math
 
+#: The package's version (pyproject.toml says the same; a test compares them).
+__version__ = "0.1.0"
 #: Version of the mechanism file format written and read.
 FORMAT = 1
 #: Documented input limits (README, "Input limits").  Beyond them input is refused with
