@@ -168,40 +168,59 @@ def link_motion(model, Q, Qd, link, *, rot=(), links=None):
     increments (``Joint.rotation_twists``) in their three columns."""
     Q = np.asarray(Q, dtype=float)
     B, n = Q.shape
-    R = np.broadcast_to(np.eye(3), (B, 3, 3))
-    p = np.zeros((B, 3))
-    cols = np.zeros((B, 6, n))
-    walk = []
-    for jn, sign in _path_from_ground(model, link):
-        j = model.joints[jn]
-        k = len(j.primitives)
-        if links is None or k > 1:
+    if links is not None:
+        (R, p), cols, walk = _framed_columns(model, Q, link, rot, links)
+    else:
+        R = np.broadcast_to(np.eye(3), (B, 3, 3))
+        p = np.zeros((B, 3))
+        cols = np.zeros((B, 6, n))
+        walk = []
+        for jn, sign in _path_from_ground(model, link):
             T, X = joint_motion(model, jn, Q)
-        else:
-            T, X = None, j.screws
-        if jn in rot:
-            X = j.rotation_twists()
-        if links is None:
+            if jn in rot:
+                X = model.joints[jn].rotation_twists()
             R, p, tw, order = _step(R, p, T, X, sign)
             if tw is None:
                 continue
-        elif k:
-            D = np.asarray(links[j.parent]).reshape(-1, 4, 4)
-            tw = spatial.adjoint_apply(D[:, :3, :3], D[:, :3, 3], X) * sign
-            order = range(k) if sign > 0 else reversed(range(k))
-        else:
-            continue
-        start = model._slices[jn].start
-        for k in order:
-            cols[:, :, start + k] += tw[:, k]
-            walk.append((start + k, tw[:, k]))
-    if links is not None:
-        D = np.asarray(links[link]).reshape(-1, 4, 4)
-        R, p = D[:, :3, :3], D[:, :3, 3]
+            start = model._slices[jn].start
+            for k in order:
+                cols[:, :, start + k] += tw[:, k]
+                walk.append((start + k, tw[:, k]))
     if Qd is None:
         return (R, p), cols, None, None
     V, bias = walk_terms(walk, np.asarray(Qd, dtype=float))
     return (R, p), cols, V, bias
+
+
+def _framed_columns(model, Q, link, rot, links):
+    """:func:`link_motion`'s columns with the frames read from link displacements: every
+    primitive of the path carried by its joint's parent frame in one stacked adjoint."""
+    B, n = Q.shape
+    parents, xs, signs, idx = [], [], [], []
+    for jn, sign in _path_from_ground(model, link):
+        j = model.joints[jn]
+        k = len(j.primitives)
+        if not k:
+            continue
+        X = j.rotation_twists() if jn in rot else (j.screws if k == 1 else joint_motion(model, jn, Q)[1])
+        X = np.broadcast_to(X, (B, k, 6))
+        start = model._slices[jn].start
+        for i in (range(k) if sign > 0 else reversed(range(k))):
+            parents.append(j.parent)
+            xs.append(X[:, i])
+            signs.append(float(sign))
+            idx.append(start + i)
+    D = np.asarray(links[link]).reshape(-1, 4, 4)
+    cols = np.zeros((B, 6, n))
+    if not idx:
+        return (D[:, :3, :3], D[:, :3, 3]), cols, []
+    F = np.stack([np.asarray(links[name]).reshape(-1, 4, 4) for name in parents], axis=1)  # (B, M, 4, 4)
+    X = np.stack(xs, axis=1)                                                                  # (B, M, 6)
+    w = (F[..., :3, :3] @ X[..., :3, None])[..., 0]
+    v = (F[..., :3, :3] @ X[..., 3:, None])[..., 0] + spatial.cross(F[..., :3, 3], w)
+    tw = np.concatenate([w, v], axis=-1) * np.array(signs)[None, :, None]  # Ad(F) X (ref. eq. 2.58)
+    cols[:, :, idx] = np.swapaxes(tw, 1, 2)
+    return (D[:, :3, :3], D[:, :3, 3]), cols, [(i, tw[:, m]) for m, i in enumerate(idx)]
 
 
 def _cross_cols(w_cols, x):
