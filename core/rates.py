@@ -18,8 +18,8 @@ rate ``x_dot`` and acceleration ``x_ddot`` the chain rule gives the time derivat
 A coupling ``q_i = f(q_g)`` gives ``q_i' = f' g'``, ``q_i'' = f' g'' + f'' g'^2`` and
 ``q_i''' = f' g''' + 3 f'' g' g'' + f''' g'^3``; the terms without the master's own
 derivative go to the right-hand side.  ``f'`` and ``f''`` are the laws' exact ones;
-``f'''`` (third order only) is a central difference of the exact ``f''`` (step 1e-4 rad,
-or 1e-4 mechanism sizes for a length leader).
+``f'''`` (third order only) is a central difference of the exact ``f''`` (step 1e-5 rad,
+or 1e-5 mechanism sizes for a length leader).
 
 Measures (file units per s and per s^2; angles in degrees):
 
@@ -144,7 +144,7 @@ def _law_terms(s, i, qg, order):
     d3 = np.zeros_like(qg)
     if order > 2 and i in s.law:
         size = 1.0 / s.cscale[int(s.master[i])]          # 1 rad, or the mechanism's size
-        h = 1e-4 * size
+        h = 1e-5 * size
         f2 = {k: s.member_rates(i, qg + k * h)[2] for k in (-1.0, -0.5, 0.5, 1.0)}
         wide = (f2[1.0] - f2[-1.0]) / (2 * h)
         d3 = (f2[0.5] - f2[-0.5]) / h

@@ -327,3 +327,23 @@ def test_two_freedoms_with_one_held_and_a_measure_of_another_motion():
     assert s.measure_velocities["follow"][3] == pytest.approx(d1 * wd, rel=1e-7)
     assert s.measure_accelerations["follow"][3] == pytest.approx(d2 * wd ** 2 + d1 * acc, rel=1e-5)
     assert np.isnan(s.measure_velocities["other"]).all() and np.isnan(s.measure_accelerations["other"]).all()
+
+
+def test_short_rise_keeps_its_third_derivative():
+    """A 3 degree cycloidal rise (f''' up to 4 pi^2 h / b^3, large): the jump test of the
+    third derivative finds no jump where f'' is smooth, and the value holds the closed form."""
+    from test_couplings import _cam_file
+    prog = {"law": "program", "segments": [[0, 3, 0, 10, "cycloidal"], [3, 180, 10, 10, "dwell"],
+                                           [180, 300, 10, 0, "polynomial-4567"], [300, 360, 0, 0, "dwell"]]}
+    data = _cam_file(prog)
+    data["measures"] = {"lift_rate": {"type": "rate", "of": "lift", "per": "cam_shaft"}}
+    m = jointwise.from_dict(data)
+    th = np.linspace(0.0, 360.0, 3601)
+    s = m.sweep("cam_shaft", th, speed=360.0)
+    acc = s.measure_accelerations["lift_rate"]
+    assert np.isfinite(acc).all()
+    bb = math.radians(3.0)
+    inside = (th > 0) & (th < 3)
+    u = np.radians(th[inside]) / bb
+    s3 = 4 * math.pi ** 2 * 10.0 / bb ** 3 * np.cos(2 * math.pi * u)
+    assert np.allclose(acc[inside], s3 * math.radians(360.0) ** 2 * K, rtol=1e-6)
