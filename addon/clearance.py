@@ -17,7 +17,8 @@ How a pair is checked (all lengths in scene units):
    distance. Frames where the spheres do not meet cannot touch.
 3. Overlap at each frame where the spheres meet: A's tree at ``T(f)`` against B's
    (``BVHTree.overlap``: triangle pairs that intersect), and, for closed surfaces, one
-   point of each inside the other (ray parity), so a part wholly inside another counts.
+   point of each inside the other (parity of a ray's crossings, in double precision,
+   another ray where one grazes an edge), so a part wholly inside another counts.
    This is exact for the meshes as modelled (up to the trees' single precision).
 4. Smallest distance, when the pair never touches: frames are visited in order of their
    sphere bound and stop once the bound reaches the best distance found (branch and
@@ -45,7 +46,6 @@ import bpy
 import numpy as np
 from bpy.props import (BoolProperty, CollectionProperty, FloatProperty, FloatVectorProperty,
                        IntProperty, StringProperty)
-from mathutils import Vector
 from mathutils.bvhtree import BVHTree
 
 from . import bake as bk
@@ -58,7 +58,6 @@ MARKER_PREFIX = "contact "
 CSV_HEADER = ("object_a", "object_b", "min_gap", "min_frame", "contact_frames",
               "point_a_x", "point_a_y", "point_a_z", "point_b_x", "point_b_y", "point_b_z",
               "flagged")
-_RAY = Vector((0.5773502, 0.5773503, 0.5773504)).normalized()  # skew, to miss edges
 
 
 class Cancelled(Exception):
@@ -97,18 +96,22 @@ class Body:
         lengths = np.linalg.norm(verts[self.edges[:, 0]] - verts[self.edges[:, 1]], axis=1)
         self.half_edge = 0.5 * lengths
         self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
+        # the longest edge at each vertex: how far past a limit its distance must be known
+        self.vert_edge = np.zeros(len(verts))
+        np.maximum.at(self.vert_edge, self.edges[:, 0], lengths)
+        np.maximum.at(self.vert_edge, self.edges[:, 1], lengths)
         (self.group_centres, self.group_radii, self.tri_group,
          self.vert_group) = px.sphere_clusters(verts, tris)
         # finer groups, for a second, tighter bound at the frames that pass the first
-        self.fine_centres, self.fine_radii, _, _ = px.sphere_clusters(verts, tris, max_leaves=64)
+        (self.fine_centres, self.fine_radii, _,
+         self.fine_vert_group) = px.sphere_clusters(verts, tris, max_leaves=64)
         self.group_tris = [np.flatnonzero(self.tri_group == k) for k in range(len(self.group_radii))]
-        self.group_tri_lists = [tris[g].tolist() for g in self.group_tris]
         # placements in the world per frame, for bounds on how far the body moves
         self.world_rot = rel[:, :3, :3]
+        self.world_flat = self.world_rot.reshape(-1, 9)
         self.world_centre = np.einsum("nij,j->ni", self.world_rot, self.centre) + rel[:, :3, 3]
         self.world_groups = np.einsum("nij,kj->nki", self.world_rot, self.group_centres) + rel[:, None, :3, 3]
-        self.verts_list = verts.tolist()
-        self.tree = BVHTree.FromPolygons(self.verts_list, tris.tolist())
+        self.tree = BVHTree.FromPolygons(verts.tolist(), tris.tolist(), all_triangles=True)
 
 
 def mesh_arrays(obj, depsgraph):
@@ -142,37 +145,24 @@ def jointed_pairs(scene):
 
 # -- one pair ---------------------------------------------------------------------------------
 
-def _inside(tree, point, size):
-    """Is ``point`` inside the closed surface of ``tree``? (parity of ray crossings)"""
-    origin = Vector(point)
-    step = 1e-7 * max(size, 1e-9)
-    n = 0
-    for _ in range(100000):
-        loc, _nor, _idx, _dist = tree.ray_cast(origin, _RAY)
-        if loc is None:
-            break
-        n += 1
-        origin = loc + _RAY * step
-    return n % 2 == 1
-
-
-def _vertex_distances(points, body, limit, candidates):
+def _vertex_distances(points, body, reach, candidates):
     """Distance of each of ``points`` (in ``body``'s frame now) to ``body``'s surface
-    where it is below ``limit``, else inf; with the nearest surface points. Only the
-    ``candidates`` (indices) can be that near. Recomputed in double precision on the
-    triangle the tree returns (Ericson 2005, §5.1.5)."""
+    where it is below its ``reach`` (one per point), else inf; with the nearest surface
+    points. Only the ``candidates`` (indices) can be that near. Recomputed in double
+    precision on the triangle the tree returns (Ericson 2005, §5.1.5)."""
     n = len(points)
     dist = np.full(n, math.inf)
     near = np.zeros((n, 3))
     if not len(candidates):
         return dist, near
-    keep = candidates[px.point_gaps(points[candidates], body.fine_centres, body.fine_radii) < limit]
+    keep = candidates[px.point_gaps(points[candidates], body.fine_centres, body.fine_radii)
+                      < reach[candidates]]
     if not len(keep):
         return dist, near
     find = body.tree.find_nearest
-    lim = limit * (1 + 1e-6) + 1e-9
+    lims = (reach[keep] * (1 + 1e-6) + 1e-9).tolist()
     ks, ids = [], []
-    for k, p in zip(keep.tolist(), points[keep].tolist()):
+    for k, p, lim in zip(keep.tolist(), points[keep].tolist(), lims):
         idx = find(p, lim)[2]
         if idx is not None:
             ks.append(k)
@@ -183,8 +173,8 @@ def _vertex_distances(points, body, limit, candidates):
         v = body.verts
         p = points[ks]
         q = px.triangle_closest_points(p, v[t[:, 0]], v[t[:, 1]], v[t[:, 2]])
-        d = np.linalg.norm(p - q, axis=1)
-        ok = d < limit
+        d = np.sqrt(np.einsum("ij,ij->i", p - q, p - q))
+        ok = d < reach[ks]
         dist[ks[ok]] = d[ok]
         near[ks[ok]] = q[ok]
     return dist, near
@@ -218,16 +208,27 @@ def _edge_edge(a_pts, a_edges, b_pts, b_edges, limit, chunk=250_000):
     return best
 
 
+def _edge_bounds(body, low, near, limit):
+    """A lower bound of the distance between ``body``'s edges and the other mesh when no
+    pair of near edges came closer than ``limit``: ``limit`` for the near edges, and
+    ``(d1 + d2 - L) / 2`` for the others (``low``: its vertices' distances or lower
+    bounds; a point on the edge is within ``s L`` of one end and ``(1 - s) L`` of the
+    other)."""
+    if not len(body.edges):
+        return math.inf
+    d = 0.5 * (low[body.edges[:, 0]] + low[body.edges[:, 1]]) - body.half_edge
+    return float(np.where(near, limit, d).min())
+
+
 def _near_edges(body, dist, limit):
-    """Edges of ``body`` that may come closer than ``limit`` to the other mesh, from its
-    vertices' distances ``dist`` (known up to ``limit`` + the longest edge). Distance to
+    """Edges of ``body`` (a mask) that may come closer than ``limit`` to the other mesh, from its
+    vertices' distances ``dist`` (each known up to ``limit`` + its longest edge). Distance to
     a mesh changes no faster than one moves along the edge, so an edge of length ``L``
     whose nearest point is at ``d`` has ends at ``d1``, ``d2`` with ``d1 + d2 <= 2 d + L``
     and each at most ``d + L``."""
     d1, d2 = dist[body.edges[:, 0]], dist[body.edges[:, 1]]
     length = 2 * body.half_edge
-    keep = (d1 < limit + length) & (d2 < limit + length) & (d1 + d2 - length < 2 * limit)
-    return body.edges[keep]
+    return (d1 < limit + length) & (d2 < limit + length) & (d1 + d2 - length < 2 * limit)
 
 
 class PairResult:
@@ -246,28 +247,39 @@ class Timer:
         self.solve = self.trees = self.queries = 0.0
 
 
-def _distance(a, b, va, vb, gaps, limit):
+def _upper(a, b, va, k):
+    """A distance between a point of A and one of B (so the smallest is at most that):
+    A's vertex ``k`` (``va``: A's points in b's frame) to its nearest point of B."""
+    idx = b.tree.find_nearest(va[k].tolist())[2]
+    t = b.tris[idx]
+    q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
+    return float(np.linalg.norm(va[k] - q))
+
+
+def _distance(a, b, va, vb, gaps, limit, hint=None):
     """Distance between ``a`` (points ``va``, in b's frame) and ``b`` (``vb``: b's points
-    in a's frame) when below ``limit``: (d, point on A, point on B, frame) with the
-    frame 'b' or 'a' the points are in, else None. ``gaps``: the groups' gaps (Ka, Kb)
-    at this frame; ``limit`` may be inf.
+    in a's frame) when below ``limit`` (may be inf), found exactly.
+
+    Returns ``(found, low, hint)``: ``found`` is (d, point on A, point on B, frame) with
+    the frame 'b' or 'a' the points are in, or None when the distance is not below the
+    limit used; ``low`` is a lower bound of the distance (the distance itself when
+    found); ``hint`` is the vertex of A nearest to B, to start from at the next frame.
+    ``gaps``: the finer groups' gaps (Ka, Kb) at this frame. The limit used is at most the
+    distance from A's vertex ``hint`` (else one in the nearest group) to B, so a
+    distance is always found when that is below ``limit``.
 
     Vertex-to-face both ways, for vertices whose group can be that near (distances
-    taken up to the limit + the mesh's longest edge), then edge to edge between the
+    taken up to the limit + the vertex's longest edge), then edge to edge between the
     edges of each mesh that can still be closer (:func:`_near_edges`)."""
-    ga = gaps.min(axis=1)
-    gb = gaps.min(axis=0)
-    if not math.isfinite(limit):
-        # a distance between two points of the meshes bounds the smallest from above:
-        # the vertex of A in the nearest group, to its nearest point of B
-        k = int(a.tris[a.group_tris[int(np.argmin(ga))][0], 0])
-        idx = b.tree.find_nearest(va[k].tolist())[2]
-        t = b.tris[idx]
-        q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
-        limit = float(np.linalg.norm(va[k] - q)) * (1 + 1e-9) + 1e-12
-    reach_a, reach_b = limit + a.longest_edge, limit + b.longest_edge
-    da, qa = _vertex_distances(va, b, reach_a, np.flatnonzero(ga[a.vert_group] < reach_a))
-    db, qb = _vertex_distances(vb, a, reach_b, np.flatnonzero(gb[b.vert_group] < reach_b))
+    ga = gaps.min(axis=1)[a.fine_vert_group]               # each vertex of A to B, at least
+    gb = gaps.min(axis=0)[b.fine_vert_group]
+    if hint is None:
+        hint = int(np.argmin(ga))
+    up = _upper(a, b, va, hint)
+    limit = min(limit, up * (1 + 1e-9) + 1e-12)
+    reach_a, reach_b = limit + a.vert_edge, limit + b.vert_edge
+    da, qa = _vertex_distances(va, b, reach_a, np.flatnonzero(ga < reach_a))
+    db, qb = _vertex_distances(vb, a, reach_b, np.flatnonzero(gb < reach_b))
     found = None
     ka, kb = int(np.argmin(da)), int(np.argmin(db))
     if da[ka] < limit and da[ka] <= db[kb]:
@@ -275,35 +287,86 @@ def _distance(a, b, va, vb, gaps, limit):
     elif db[kb] < limit:
         found = (float(db[kb]), qb[kb], vb[kb], "a")
     lim = found[0] if found else limit
-    ea = _near_edges(a, da, lim)
-    if len(ea):
-        r = _edge_edge(va, ea, b.verts, _near_edges(b, db, lim), lim)
+    near_a, near_b = _near_edges(a, da, lim), _near_edges(b, db, lim)
+    if near_a.any() and near_b.any():
+        r = _edge_edge(va, a.edges[near_a], b.verts, b.edges[near_b], lim)
         if r is not None:
             found = (r[0], r[1], r[2], "b")
-    return found
+    if math.isfinite(da[ka]):
+        hint = ka
+    if found is not None:
+        return found, found[0], hint
+    # nothing below the limit: the distance is at least the limit, and more where every
+    # vertex and the edges of one mesh are farther (their bounds, :func:`_edge_bounds`)
+    low_a, low_b = np.where(np.isfinite(da), da, reach_a), np.where(np.isfinite(db), db, reach_b)
+    edges = max(_edge_bounds(a, low_a, near_a, limit), _edge_bounds(b, low_b, near_b, limit))
+    return None, max(limit, min(float(low_a.min()), float(low_b.min()), edges)), hint
 
 
-def _overlap(a, b, va, vb0, gaps, size):
+def _overlap(a, b, va, vb0, gaps):
     """Do ``a`` (points ``va`` in b's frame) and ``b`` overlap? Only triangles in groups
-    whose spheres meet can cross, so trees of those alone are compared; for closed
-    surfaces, one wholly inside the other counts too (``vb0``: b's first vertex in a's
-    frame). Returns (touching, (point on A, point on B) in b's frame or None, seconds
-    spent building trees)."""
+    whose spheres meet can cross, so a tree of A's triangles in those groups alone is
+    built and compared with B's own tree; for closed surfaces, one wholly inside the
+    other counts too (``vb0``: b's first vertex in a's frame). Returns (touching, (point
+    on A, point on B) in b's frame or None, seconds spent building the tree)."""
     t0 = time.perf_counter()
-    meet = gaps <= 0.0
-    ka, kb = np.flatnonzero(meet.any(axis=1)).tolist(), np.flatnonzero(meet.any(axis=0)).tolist()
+    ka = np.flatnonzero((gaps <= 0.0).any(axis=1))
     sub_a = np.concatenate([a.group_tris[k] for k in ka])
-    sub_b = np.concatenate([b.group_tris[k] for k in kb])
-    tree_a = BVHTree.FromPolygons(va.tolist(), [t for k in ka for t in a.group_tri_lists[k]])
-    tree_b = BVHTree.FromPolygons(b.verts_list, [t for k in kb for t in b.group_tri_lists[k]])
+    tris = a.tris[sub_a]
+    used, local = np.unique(tris, return_inverse=True)
+    tree_a = BVHTree.FromPolygons(va[used].tolist(), local.reshape(-1, 3).tolist(), all_triangles=True)
     built = time.perf_counter() - t0
-    pairs = tree_a.overlap(tree_b)
+    pairs = tree_a.overlap(b.tree)
     if pairs:
         ia, ib = pairs[0]
-        return True, (va[a.tris[sub_a[ia]]].mean(axis=0), b.verts[b.tris[sub_b[ib]]].mean(axis=0)), built
-    if a.closed and b.closed and (_inside(b.tree, va[0], size) or _inside(a.tree, vb0, size)):
+        return True, (va[tris[ia]].mean(axis=0), b.verts[b.tris[ib]].mean(axis=0)), built
+    if a.closed and b.closed and (px.inside_closed(va[0], b.verts, b.tris)
+                                  or px.inside_closed(vb0, a.verts, a.tris)):
         return True, (va[0], va[0]), built
     return False, None, built
+
+
+# ||R_f - R_g||_2 = ||R_f - R_g||_F / sqrt(2) for rotations (R_f R_g^T - I has singular
+# values 2 sin(angle / 2) twice and 0); taken a hair above, as placements come from
+# single-precision matrices
+_SPECTRAL = 0.7072
+# how far past the best distance so far a visited frame's own distance is found: the
+# farther, the more frames around it its distance rules out, at more queries per frame
+MARGIN = 0.0
+
+
+def _norms(x):
+    return np.sqrt(np.einsum("...i,...i->...", x, x))
+
+
+class _Motion:
+    """How far points of A may move relative to B between a frame ``i`` and every frame
+    (so how much the distance between them may change): of A relative to B (centre and
+    rotation of A in B's frame), of B relative to A, or of each in the world, the two
+    added; the smallest counts. The same for each group of A with its own centre and
+    radius."""
+
+    def __init__(self, a, b, t, tinv, groups):
+        self.a, self.b = a, b
+        self.rot = t[:, :3, :3].reshape(-1, 9)
+        self.ca = np.einsum("nij,j->ni", t[:, :3, :3], a.centre) + t[:, :3, 3]
+        self.cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
+        self.groups = groups
+
+    def __call__(self, i):
+        a, b = self.a, self.b
+        turn = _SPECTRAL * _norms(self.rot - self.rot[i])
+        turn_a = _SPECTRAL * _norms(a.world_flat - a.world_flat[i])
+        move_b = (_norms(b.world_centre - b.world_centre[i])
+                  + _SPECTRAL * _norms(b.world_flat - b.world_flat[i]) * b.radius)
+        move = np.minimum(np.minimum(_norms(self.ca - self.ca[i]) + turn * a.radius,
+                                     _norms(self.cb - self.cb[i]) + turn * b.radius),
+                          _norms(a.world_centre - a.world_centre[i]) + turn_a * a.radius + move_b)
+        move_groups = np.minimum(
+            _norms(self.groups - self.groups[i]) + turn[:, None] * a.group_radii,
+            _norms(a.world_groups - a.world_groups[i]) + turn_a[:, None] * a.group_radii
+            + move_b[:, None])
+        return move, move_groups
 
 
 def check_pair(a, b, frames, timer):
@@ -311,30 +374,40 @@ def check_pair(a, b, frames, timer):
 
     Frames are visited lowest lower bound first. The bound of a frame starts as the
     smallest gap between the two meshes' groups of triangles (their bounding spheres)
-    and is raised by every frame ``g`` whose distance ``d_g`` is known: between two
-    frames no point of A moves relative to B by more than ``|c(f) - c(g)| + |R(f) -
-    R(g)|_F r_A`` (centre and rotation of A in B's frame; the same the other way round,
-    or the two bodies' own motions in the world added; the smallest counts), and the
-    distance changes no faster than the points move. The
-    same holds for each group of A with its own centre and radius (every group is at
-    least ``d_g`` from B at ``g``), and the frame's bound is the smallest over them. Frames
-    whose bound is above zero cannot touch; frames whose bound is above the best
-    distance cannot hold the minimum; once the pair touches, only frames that may touch
-    are visited. So every frame is decided without querying most of them."""
+    and is raised by every frame ``g`` where a lower bound ``d_g`` of the distance is
+    known: between two frames no point of A moves relative to B by more than
+    ``|c(f) - c(g)| + |R(f) - R(g)|_2 r_A`` (centre and rotation of A in B's frame; the
+    same the other way round, or the two bodies' own motions in the world added; the
+    smallest counts, :class:`_Motion`), and the distance changes no faster than the
+    points move. The same holds for each group of A with its own centre and radius
+    (every group is at least ``d_g`` from B at ``g``), and the frame's bound is the
+    smallest over them. At a visited frame the distance is found exactly up to the best
+    so far plus a margin (:data:`MARGIN` times the two meshes' longest edges), so its
+    bound rules out the frames around it; a frame that the finer groups' spheres
+    already keep above the best needs no mesh query, and its sphere bound does the
+    same. Frames whose bound is above zero cannot touch; frames whose bound is above
+    the best distance cannot hold the minimum; once the pair touches, only frames that
+    may touch are visited. So every frame is decided without querying most of them."""
     res = PairResult(a, b)
     t = b.rel_inv @ a.rel                                   # a (world now) -> b's frame now
     tinv = a.rel_inv @ b.rel                                # b (world now) -> a's frame now
-    rot = t[:, :3, :3]
-    ca = np.einsum("nij,j->ni", rot, a.centre) + t[:, :3, 3]
-    cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
-    groups = np.einsum("nij,kj->nki", rot, a.group_centres) + t[:, None, :3, 3]
+    groups = np.einsum("nij,kj->nki", t[:, :3, :3], a.group_centres) + t[:, None, :3, 3]
     gaps = px.group_gaps(groups, a.group_radii, b.group_centres, b.group_radii)   # (N, Ka, Kb)
     low_groups = gaps.min(axis=2)                          # (N, Ka): each group of A to B
     low = low_groups.min(axis=1)
+    motion = _Motion(a, b, t, tinv, groups)
+    margin = MARGIN * (a.longest_edge + b.longest_edge)
     n = len(frames)
     undecided = np.ones(n, dtype=bool)
-    size = max(a.radius, b.radius)
     best = math.inf
+    hint = None
+
+    def raise_bounds(i, d):
+        nonlocal low, low_groups
+        move, move_groups = motion(i)
+        low_groups = np.maximum(low_groups, d - move_groups)
+        low = np.maximum(low_groups.min(axis=1), d - move)
+
     while True:
         need = undecided & ((low <= 0.0) | (low < best))
         if not need.any():
@@ -344,16 +417,19 @@ def check_pair(a, b, frames, timer):
         res.visited += 1
         t0 = time.perf_counter()
         # the finer groups' bound at this frame: frames it clears need no mesh queries
-        fine = px.group_gaps(px.transform_points(t[i], a.fine_centres), a.fine_radii,
-                             b.fine_centres, b.fine_radii).min()
+        fine_gaps = px.group_gaps(px.transform_points(t[i], a.fine_centres), a.fine_radii,
+                                  b.fine_centres, b.fine_radii)
+        fine = fine_gaps.min()
         if fine > 0.0 and fine >= best:
             res.pruned += 1
+            raise_bounds(i, fine)
             timer.queries += time.perf_counter() - t0
             continue
         va = px.transform_points(t[i], a.verts)              # a in b's frame
+        built = 0.0
         if low[i] <= 0.0 and fine <= 0.0:
             vb0 = px.transform_points(tinv[i], b.verts[:1])[0]
-            touch, pts, built = _overlap(a, b, va, vb0, gaps[i], size)
+            touch, pts, built = _overlap(a, b, va, vb0, gaps[i])
             timer.trees += built
             if touch:
                 res.contact.append(int(frames[i]))
@@ -367,36 +443,16 @@ def check_pair(a, b, frames, timer):
             if best == 0.0:  # touching elsewhere: the smallest gap is known
                 timer.queries += time.perf_counter() - t0 - built
                 continue
-            timer.queries -= built
         vb = px.transform_points(tinv[i], b.verts)           # b in a's frame
-        found = _distance(a, b, va, vb, gaps[i], best)
-        d = found[0] if found else best
+        found, d, hint = _distance(a, b, va, vb, fine_gaps, best + margin, hint)
         if found is not None and found[0] < best:
             best = found[0]
             rel = b.rel[i] if found[3] == "b" else a.rel[i]
             res.min_gap, res.min_frame = found[0], int(frames[i])
             res.point_a = tuple(px.transform_points(rel, found[1][None])[0])
             res.point_b = tuple(px.transform_points(rel, found[2][None])[0])
-        if math.isfinite(d):
-            # how far points move between frame i and each frame: of A relative to B (or
-            # B relative to A), or of each in the world (the two added); any one bounds
-            # the change of the distance
-            turn = np.linalg.norm(rot - rot[i], axis=(1, 2))
-            turn_a = np.linalg.norm(a.world_rot - a.world_rot[i], axis=(1, 2))
-            move_b = (np.linalg.norm(b.world_centre - b.world_centre[i], axis=1)
-                      + np.linalg.norm(b.world_rot - b.world_rot[i], axis=(1, 2)) * b.radius)
-            move = np.minimum.reduce([
-                np.linalg.norm(ca - ca[i], axis=1) + turn * a.radius,
-                np.linalg.norm(cb - cb[i], axis=1) + turn * b.radius,
-                np.linalg.norm(a.world_centre - a.world_centre[i], axis=1) + turn_a * a.radius + move_b])
-            # each group of A moves less than the whole: its own centre and radius
-            move_groups = np.minimum(
-                np.linalg.norm(groups - groups[i], axis=2) + turn[:, None] * a.group_radii,
-                np.linalg.norm(a.world_groups - a.world_groups[i], axis=2)
-                + turn_a[:, None] * a.group_radii + move_b[:, None])
-            low_groups = np.maximum(low_groups, d - move_groups)
-            low = np.maximum(low_groups.min(axis=1), d - move)
-        timer.queries += time.perf_counter() - t0
+        raise_bounds(i, d)
+        timer.queries += time.perf_counter() - t0 - built
     res.contact.sort()
     if res.min_frame is None:  # cannot happen with finite meshes; keep the result defined
         res.min_frame = int(frames[int(np.argmin(low))])

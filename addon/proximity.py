@@ -7,7 +7,9 @@ Everything here works on plain arrays so it is tested without Blender:
   2005, §5.1.9, ``ClosestPtSegmentSegment``);
 - closest points on triangles, stacked (same book, §5.1.5, ``ClosestPtPointTriangle``);
 - edges of a triangle list and whether the surface is closed (every edge on exactly two
-  triangles), for the inside test of a mesh wholly inside another;
+  triangles), and whether a point is inside a closed surface (parity of a ray's
+  crossings, Möller and Trumbore's ray-triangle test, 1997), for a mesh wholly inside
+  another;
 - a CSV file written atomically (a temporary name in the same folder, then a move).
 
 Conventions: points are rows, shape ``(..., 3)``; lengths are in whatever unit the
@@ -166,6 +168,61 @@ def is_closed(tris):
         return False
     _, counts = triangle_edges(tris)
     return bool(np.all(counts == 2))
+
+
+# ray directions for the inside test: fixed, far from the axes and from each other, so
+# a ray along one rarely grazes an edge of a modelled part (when it does, the next is used)
+_RAYS = np.array([[0.5773502, 0.5773503, 0.5773504], [-0.2672612, 0.8017837, -0.5345225],
+                  [0.8728716, -0.2182179, 0.4364358], [-0.4082483, -0.4082482, 0.8164966],
+                  [0.1961161, -0.9805807, 0.0000001]])
+_RAYS /= np.linalg.norm(_RAYS, axis=1)[:, None]
+
+
+def ray_crossings(origin, direction, a, b, c, tol=1e-9):
+    """How many of the triangles ``a b c`` (stacks ``(T, 3)``) the ray ``origin +
+    t direction``, ``t > 0``, crosses, or None when it passes within ``tol`` (in
+    barycentric terms, or in ``t`` relative to the triangles' size) of an edge, a
+    vertex, its own origin or a triangle's plane it runs along, where crossings cannot
+    be counted safely. Möller and Trumbore, "Fast, minimum storage ray-triangle
+    intersection", Journal of Graphics Tools 2(1), 1997 (in double precision)."""
+    o = np.asarray(origin, dtype=float)
+    d = np.asarray(direction, dtype=float)
+    e1, e2 = b - a, c - a
+    pvec = np.cross(d, e2)
+    det = np.einsum("ij,ij->i", e1, pvec)
+    tvec = o - a
+    qvec = np.cross(tvec, e1)
+    size = max(float(np.abs(e1).max(initial=0.0)), float(np.abs(e2).max(initial=0.0)), 1e-300)
+    area = np.linalg.norm(np.cross(e1, e2), axis=1)
+    flat = np.abs(det) <= tol * area
+    safe = np.where(flat, 1.0, det)
+    u = np.einsum("ij,ij->i", tvec, pvec) / safe
+    v = (qvec @ d) / safe
+    t = np.einsum("ij,ij->i", e2, qvec) / safe
+    w = 1.0 - u - v
+    # a ray along a triangle's plane: unsafe only when it runs in that plane
+    in_plane = flat & (np.abs(np.einsum("ij,ij->i", tvec, np.cross(e1, e2))) <= tol * size * np.maximum(area, 1e-300))
+    ok = ~flat
+    hit = ok & (u > tol) & (v > tol) & (w > tol) & (t > tol * size)
+    miss = ~ok | (u < -tol) | (v < -tol) | (w < -tol) | (t < -tol * size)
+    if np.any(in_plane) or not np.all(hit | miss):
+        return None
+    return int(hit.sum())
+
+
+def inside_closed(point, verts, tris):
+    """Is ``point`` inside the closed triangle surface ``verts``, ``tris``? (odd number
+    of crossings of a ray from it, :func:`ray_crossings`; a ray that grazes an edge is
+    replaced by the next direction). A point on the surface, where every ray grazes,
+    counts as outside (touching, not overlapping)."""
+    verts = np.asarray(verts, dtype=float)
+    tris = np.asarray(tris, dtype=np.int64).reshape(-1, 3)
+    a, b, c = verts[tris[:, 0]], verts[tris[:, 1]], verts[tris[:, 2]]
+    for d in _RAYS:
+        n = ray_crossings(point, d, a, b, c)
+        if n is not None:
+            return n % 2 == 1
+    return False
 
 
 def bounding_sphere(points):

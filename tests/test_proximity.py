@@ -121,6 +121,55 @@ def test_closed_surface():
     assert len(edges) == 6 and set(counts) == {2}
 
 
+def _box(lo, hi, start=0):
+    """A closed box of 12 triangles, outward faces (each face split on a diagonal)."""
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+    v = np.array([[(hi if i & 1 else lo)[0], (hi if i & 2 else lo)[1], (hi if i & 4 else lo)[2]]
+                  for i in range(8)])
+    quads = [(0, 2, 3, 1), (4, 5, 7, 6), (0, 1, 5, 4), (2, 6, 7, 3), (0, 4, 6, 2), (1, 3, 7, 5)]
+    tris = [(a, b, c) for a, b, c, d in quads] + [(a, c, d) for a, b, c, d in quads]
+    return v, np.array(tris) + start
+
+
+def test_inside_closed_against_half_spaces_and_a_hollow_shell():
+    """Inside a box: against the box's half-spaces from scipy's convex hull (Qhull);
+    inside a hollow shell (a box within a box, as one closed mesh): in the outer box
+    and not in the inner one (parity counts both surfaces)."""
+    from scipy.spatial import ConvexHull
+    v, t = _box((-1, -1, -1), (1, 1, 1))
+    assert px.is_closed(t)
+    eq = ConvexHull(v).equations
+    rng = np.random.default_rng(11)
+    for p in rng.uniform(-1.6, 1.6, size=(300, 3)):
+        want = bool(np.all(eq[:, :3] @ p + eq[:, 3] < 0))
+        assert px.inside_closed(p, v, t) == want, p
+    vi, ti = _box((-0.5, -0.5, -0.5), (0.5, 0.5, 0.5), start=8)
+    shell_v, shell_t = np.vstack([v, vi]), np.vstack([t, ti])
+    for p in rng.uniform(-1.6, 1.6, size=(300, 3)):
+        want = bool(np.all(np.abs(p) < 1) and not np.all(np.abs(p) < 0.5))
+        assert px.inside_closed(p, shell_v, shell_t) == want, p
+
+
+def test_inside_closed_when_the_first_ray_grazes_an_edge():
+    v, t = _box((-1, -1, -1), (1, 1, 1))
+    d = px._RAYS[0]
+    a, b, c = v[t[:, 0]], v[t[:, 1]], v[t[:, 2]]
+    # rays along the first direction through a box edge and through a face's diagonal
+    # (the edge two triangles share) cannot be counted: the next direction decides
+    cases = [((1, 1, 0.3), 0.5, True), ((1, 1, 0.3), 3.0, False), ((-1, 0.2, 1), 3.0, False),
+             ((0, 0, 1), 0.5, True), ((0, 0, -1), 0.5, False)]
+    for through, back, inside in cases:
+        origin = np.array(through) - back * d
+        assert bool(np.all(np.abs(origin) < 1)) == inside  # the case is what it says
+        assert px.ray_crossings(origin, d, a, b, c) is None
+        assert px.inside_closed(origin, v, t) == inside
+    # a point on the surface counts as outside (touching is not overlapping)
+    assert not px.inside_closed((1.0, 0.2, 0.3), v, t)
+    # a clean ray is counted: from the centre one crossing, from outside none or two
+    assert px.ray_crossings((0, 0, 0), d, a, b, c) == 1
+    assert px.ray_crossings((0.1, -0.2, -3), d, a, b, c) in (0, 2)
+
+
 def test_bounding_sphere_holds_all_points():
     pts = np.random.default_rng(3).normal(size=(500, 3))
     c, r = px.bounding_sphere(pts)
