@@ -8,12 +8,14 @@ numbers and flags go out.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
-from .units import CONTRACTION, NOISE_STEP, ORIENT_RATIO
+from .units import CONTRACTION, NOISE_STEP, NORMAL_CERT, ORIENT_RATIO
 
-__all__ = ["chol_solve", "least_norm", "orientation_frame", "orientation_agrees",
-           "branch_step_certified"]
+__all__ = ["chol_solve", "least_norm", "lstsq_small", "lstsq_svd", "orientation_frame",
+           "orientation_agrees", "branch_step_certified"]
 
 
 def chol_solve(G, b):
@@ -60,6 +62,68 @@ def least_norm(Js, rhs):
     return Jt @ y, cert
 
 
+def lstsq_small(a, b, rcond):
+    """``np.linalg.lstsq(a, b, rcond)[0]`` for one small, tall matrix ``a`` (m, k), k <= m.
+
+    Where the certificate ``det(G) / |G|_F^k >= NORMAL_CERT`` (``G = a^T a``) proves
+    ``s_min / s_max >= 1e-3 > rcond`` the SVD would cut no singular value, so the least-
+    squares solution is that of the normal equations, solved here in plain floats for one
+    or two columns (the common four-bar and slider blocks) or by ``np.linalg.solve``;
+    otherwise (wide, rank-deficient or ill-conditioned ``a``) the SVD solve itself."""
+    m, k = a.shape
+    if 0 < k <= m and rcond < 1e-3:
+        if k == 1:
+            g = float(a[:, 0] @ a[:, 0])
+            if g > 0:
+                return np.array([float(a[:, 0] @ b) / g])
+        elif k == 2:
+            (g00, g01), (_, g11) = (a.T @ a).tolist()
+            det = g00 * g11 - g01 * g01
+            if det >= NORMAL_CERT * (g00 * g00 + 2 * g01 * g01 + g11 * g11):
+                h0, h1 = (b @ a).tolist()
+                return np.array([(g11 * h0 - g01 * h1) / det, (g00 * h1 - g01 * h0) / det])
+        elif k == 3:
+            (g00, g01, g02), (_, g11, g12), (_, _, g22) = (a.T @ a).tolist()
+            c00, c01, c02 = g11 * g22 - g12 * g12, g02 * g12 - g01 * g22, g01 * g12 - g02 * g11
+            det = g00 * c00 + g01 * c01 + g02 * c02
+            fro = math.sqrt(g00 * g00 + g11 * g11 + g22 * g22 + 2 * (g01 * g01 + g02 * g02 + g12 * g12))
+            if det >= NORMAL_CERT * fro * fro * fro:
+                c11, c12, c22 = g00 * g22 - g02 * g02, g01 * g02 - g00 * g12, g00 * g11 - g01 * g01
+                h0, h1, h2 = (b @ a).tolist()
+                return np.array([c00 * h0 + c01 * h1 + c02 * h2, c01 * h0 + c11 * h1 + c12 * h2,
+                                 c02 * h0 + c12 * h1 + c22 * h2]) / det
+        else:
+            g = a.T @ a
+            fro = math.sqrt(float((g * g).sum()))
+            if fro > 0 and np.linalg.det(g / fro) >= NORMAL_CERT:
+                return np.linalg.solve(g, b @ a)
+    return np.linalg.lstsq(a, b, rcond=rcond)[0]
+
+
+def _det_small(m):
+    """Determinant of one square matrix; plain floats up to 3 x 3."""
+    k = m.shape[0]
+    if k == 1:
+        return float(m[0, 0])
+    if k == 2:
+        (a, b), (c, d) = m.tolist()
+        return a * d - b * c
+    if k == 3:
+        (a, b, c), (d, e, f), (g, h, i) = m.tolist()
+        return a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
+    return float(np.linalg.det(m))
+
+
+def lstsq_svd(svd, b, rcond):
+    """``np.linalg.lstsq(a, b, rcond)[0]`` from ``a``'s thin SVD ``(u, s, vt)``: singular
+    values at most ``rcond`` times the largest count as zero (numpy's rule)."""
+    u, s, vt = svd
+    if not s.size or s[0] <= 0:
+        return np.zeros(vt.shape[-1])
+    keep = s > rcond * s[0]
+    return vt[keep].T @ ((u[:, keep].T @ b) / s[keep])
+
+
 # -- branch continuity ---------------------------------------------------------------------------
 #
 # Why a continuation step stays on its assembly branch (the argument the corrector and
@@ -104,6 +168,8 @@ def orientation_agrees(frame, Js):
     """True where det(U_r^T Js V_r) > 0 for the frames of :func:`orientation_frame`."""
     u, v, defined = frame
     m = np.swapaxes(u, -1, -2) @ Js @ v
+    if m.ndim == 2:  # one state
+        return bool(_det_small(m) > 0 or defined < ORIENT_RATIO)
     return (np.linalg.det(m) > 0) | (defined < ORIENT_RATIO)
 
 

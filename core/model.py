@@ -307,8 +307,10 @@ class Model:
         return value / self._unit(self._require(name))
 
     def _values_out(self, q):
-        scale = np.array([self._unit(i) for i in range(len(q))])
-        return {c: float(v) for c, v in zip(self.coordinates, q / scale)}
+        scale = self.__dict__.get("_unit_scale")  # built once (units never change)
+        if scale is None or len(scale) != len(q):
+            scale = self._unit_scale = np.array([self._unit(i) for i in range(len(q))])
+        return dict(zip(self.coordinates, (q / scale).tolist()))
 
     # -- posing ------------------------------------------------------------------
     def joint_transforms(self, q):
@@ -320,7 +322,7 @@ class Model:
         if self._powers is None:
             screws = [p.screw for j in self.joints.values() for p in j.primitives]
             self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
-        eye = np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))
+        eye = np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))
         ex = spatial.exp_unit(self._powers, q - self.home) if q.shape[-1] else None
         out = {}
         for name, sl in self._slices.items():
@@ -338,7 +340,7 @@ class Model:
         stack of them (B, n)."""
         q = np.asarray(q, dtype=float)
         es = self.joint_transforms(q)
-        out = {self.ground: np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
+        out = {self.ground: np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
         for link in self.order[1:]:
             jname, sign = self.tree_parent[link]
             j = self.joints[jname]

@@ -42,14 +42,16 @@ import numpy as np
 
 from . import spatial
 from .errors import AssemblyError, SpecError
-from .linalg import orientation_agrees, orientation_frame
+from .linalg import lstsq_small, lstsq_svd, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
-                    MAX_SPAN, MAX_STEP, SINGULAR_RATIO, TOLERANCE)
+                    MAX_SPAN, MAX_STEP, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
 
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
 
 _EYE4 = np.eye(4)
+_I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1]
+_I2 = np.array([2, 0, 1])
 
 
 def _log6_one(t):
@@ -78,6 +80,8 @@ class Solver:
         self._generic_rank = {}
         self._plans = {}
         self._fast = {}
+        self._kept = {}
+        self._row_scales = {}
         self._layouts = {}
         self._lastJ = {}
         self._allcols = {}
@@ -258,140 +262,176 @@ class Solver:
         return cols, rot
 
     def _plan(self, block, cols, rot):
-        """Cached index arrays of a block for one set of unknown columns."""
+        """Index arrays of a block for one set of unknown columns, built once (cached).
+
+        Every loop is written as one flat product of signed primitive exponentials
+        (a reversed step ``E^-1`` is ``e_n(-t_n) ... e_1(-t_1)``), so that one stacked
+        exponential gives every factor; loops are padded with the identity to a common
+        length and their prefix products are formed side by side.  A Jacobian column
+        is ``sign Ad(prefix) S`` of each factor (``S`` is invariant under its own
+        exponential, so the prefix before or after the factor gives the same column), or
+        for a free spherical joint its three rotation twists carried by the prefix before
+        (forward) or after (reversed) the joint; ``W`` maps these sources to the columns
+        (coupling ratios; motion-law slopes are filled in at each evaluation)."""
         key = (block.index, tuple(cols), frozenset(rot), id(self.members))
         plan = self._plans.get(key)
         if plan is not None:
             return plan
         m = self.m
-        screws, pidx, phome, joint_prims, slot_of = [], [], [], {}, {}
-        nslot = 0
-        for jn in block.joints:
-            j = m.joints[jn]
-            sl = m._slices[jn]
-            joint_prims[jn] = (len(pidx), len(pidx) + len(j.primitives))
-            for k, prim in enumerate(j.primitives):
-                screws.append(prim.screw)
-                pidx.append(sl.start + k)
-                phome.append(j.home[k])
-            width = len(j.primitives)
-            slot_of[jn] = (nslot, nslot + width)
-            nslot += width
-        M = np.zeros((nslot, len(cols)))
-        varying = []  # (slot, column, member, master) of motion-law members: f'(q_g) at evaluation
-        for ci, c in enumerate(cols):
-            if c[0] == "m":
-                for i in self.members[c[1]]:
-                    jn = m._owner[m.coordinates[i]]
-                    if jn in slot_of and jn not in rot:
+        colidx = {c: k for k, c in enumerate(cols)}
+        screws, pidx, phome, psign = [], [], [], []
+        loops_f = []           # per loop: factor indices (into the stacked exponentials)
+        src_loop, src_pos, src_tw, src_sign, src_w = [], [], [], [], []  # Jacobian sources
+        varying = []           # (source, column, member, master): motion-law slopes
+        cut_pos = []
+        for li, loop in enumerate(block.loops):
+            fl = []
+            for jn, sign in loop.steps:
+                j = m.joints[jn]
+                sl = m._slices[jn]
+                if jn == loop.name:
+                    cut_pos.append(len(fl))
+                start = len(fl)
+                order = range(len(j.primitives)) if sign > 0 else range(len(j.primitives) - 1, -1, -1)
+                for k in order:
+                    fl.append(len(pidx))
+                    screws.append(j.primitives[k].screw)
+                    pidx.append(sl.start + k)
+                    phome.append(j.home[k])
+                    psign.append(float(sign))
+                    if jn in rot:
+                        continue
+                    i = sl.start + k
+                    g = int(self.master[i])
+                    weights = {}
+                    c = colidx.get(("m", g))
+                    if c is not None:
                         if i in self.law:
-                            varying.append((slot_of[jn][0] + i - m._slices[jn].start, ci, i, c[1]))
+                            varying.append((len(src_loop), c, i, g))
                         else:
-                            M[slot_of[jn][0] + i - m._slices[jn].start, ci] += self.alpha[i]
-            else:
-                M[slot_of[c[1]][0] + c[2], ci] = 1.0
-        steps, rowmaps = [], []
-        for loop in block.loops:
-            steps.append([(jn, sign, slot_of[jn], jn == loop.name) for jn, sign in loop.steps])
-            step_of_row, sign_of_row, slot_of_row = [], [], []
-            for k, (jn, sign) in enumerate(loop.steps):
-                s0, s1 = slot_of[jn]
-                for sl in range(s0, s1):
-                    step_of_row.append(k)
-                    sign_of_row.append(float(sign))
-                    slot_of_row.append(sl)
-            sel = np.zeros((len(slot_of_row), nslot))
-            sel[np.arange(len(slot_of_row)), slot_of_row] = 1.0
-            rowmaps.append((np.array(step_of_row, dtype=int), np.array(sign_of_row)[:, None], sel @ M, sel))
+                            weights[c] = self.alpha[i]
+                    src_loop.append(li)
+                    src_pos.append(len(fl) - 1)
+                    src_tw.append(j.primitives[k].screw)
+                    src_sign.append(float(sign))
+                    src_w.append(weights)
+                if jn in rot:
+                    pos = start if sign > 0 else len(fl)
+                    for k, x in enumerate(j.rotation_twists()):
+                        c = colidx.get(("s", jn, k))
+                        src_loop.append(li)
+                        src_pos.append(pos)
+                        src_tw.append(x)
+                        src_sign.append(float(sign))
+                        src_w.append({} if c is None else {c: 1.0})
+            loops_f.append(fl)
+        nl = len(block.loops)
+        npr = len(pidx)
+        kmax = max((len(fl) for fl in loops_f), default=0)
+        fidx = np.full((nl, kmax), npr, dtype=int)  # padding: the extra identity factor
+        for li, fl in enumerate(loops_f):
+            fidx[li, :len(fl)] = fl
+        screws.append(np.zeros(6))
+        ns = len(src_loop)
+        W = np.zeros((ns, len(cols)))
+        for s, weights in enumerate(src_w):
+            for c, a in weights.items():
+                W[s, c] += a
+        src_loop = np.array(src_loop, dtype=int)
+        rows6 = (6 * src_loop[:, None] + np.arange(6)[None, :]).ravel()
         plan = {
-            "screws": np.array(screws).reshape(-1, 6),
-            "powers": spatial.screw_powers(np.array(screws).reshape(-1, 6)), "pidx": np.array(pidx, dtype=int),
-            "phome": np.array(phome, dtype=float), "joint_prims": joint_prims, "M": M,
-            "nslot": nslot, "steps": steps, "rows": rowmaps, "varying": varying,
-            "rot_x": {jn: m.joints[jn].rotation_twists() for jn in rot},
-            "points": {loop.name: np.append(m.joints[loop.name].point, 1.0) for loop in block.loops},
+            "p16": spatial.screw_powers(np.array(screws).reshape(-1, 6)).reshape(-1, 3, 16),
+            "coef": np.empty((len(screws), 1, 3)),
+            "pidx": np.array(pidx + [0], dtype=int), "phome": np.array(phome + [0.0]),
+            "psign": np.array(psign + [0.0]), "fidx": fidx, "kmax": kmax, "nl": nl,
+            "cut": (np.array(cut_pos, dtype=int), np.arange(nl)),
+            "points": np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4),
+            "src_loop": src_loop, "src_pos": np.array(src_pos, dtype=int),
+            "src_wv": np.stack([np.array(src_tw, dtype=float).reshape(-1, 6)[:, :3],
+                                np.array(src_tw, dtype=float).reshape(-1, 6)[:, 3:]], axis=-1),
+            "src_sign": np.array(src_sign)[:, None], "W": W, "varying": varying,
+            "scatter": (rows6, np.repeat(np.arange(ns), 6)),
         }
+        if len(self._plans) >= PLAN_MEMORY:
+            self._plans.pop(next(iter(self._plans)))
         self._plans[key] = plan
         return plan
 
     def _eval(self, block, q, cols, rot, jac=True):
         """Residual (6 per loop, at the cut), per-loop errors and the Jacobian."""
         plan = self._fast.get(id(cols))
-        if plan is None or plan["cols"] is not cols or plan["rot"] != rot or plan["block"] != block.index:
-            plan = self._plan(block, cols, rot)
-            plan = dict(plan, cols=cols, rot=set(rot), block=block.index)
-            self._fast[id(cols)] = plan
-        th = q[plan["pidx"]] - plan["phome"]
-        ex = spatial.exp_unit(plan["powers"], th) if th.size else np.zeros((0, 4, 4))
-        screws = plan["screws"]
-        data = {}
-        for jn, (p0, p1) in plan["joint_prims"].items():
-            if p1 - p0 == 1:
-                e, x = ex[p0], screws[p0:p1]
-            elif p1 == p0:
-                e, x = _EYE4, np.zeros((0, 6))
-            else:
-                e = ex[p0]
-                xs = [screws[p0]]
-                for k in range(p0 + 1, p1):
-                    xs.append(spatial.adjoint(e) @ screws[k])
-                    e = e @ ex[k]
-                x = np.array(xs)
-            if jn in rot:
-                x = plan["rot_x"][jn]
-            data[jn] = (e, x)
-        nl = len(block.loops)
-        r = np.empty(6 * nl)
-        errs = np.empty(nl)
-        J = np.zeros((6 * nl, len(cols))) if jac else None
-        inv_cache = {}
-        Mq = None
-        if jac and plan["varying"]:
-            Mq = plan["M"].copy()
-            for slot, ci, i, g in plan["varying"]:
-                Mq[slot, ci] += self.member_slope(i, q[g])
-        for li, steps in enumerate(plan["steps"]):
-            a = _EYE4
-            site = None
-            frames = []
-            xs = []
-            for jn, sign, slot, is_cut in steps:
-                e, x = data[jn]
-                if is_cut:
-                    site = a @ plan["points"][jn]
-                if sign > 0:
-                    frames.append(a)
-                    a = a @ e
-                else:
-                    ei = inv_cache.get(jn)
-                    if ei is None:
-                        ei = inv_cache[jn] = spatial.inverse(e)
-                    a = a @ ei
-                    frames.append(a)
-                xs.append(x)
-            w, v = _log6_one(a)
-            p = site[:3]
-            v = v + (w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0])
-            r[6 * li:6 * li + 3] = w
-            r[6 * li + 3:6 * li + 6] = v
-            errs[li] = max(np.abs(w).max(), np.abs(v).max() * self.pos_weight)  # scale-free
-            if jac and cols:
-                step_of_row, sign_of_row, selm, sel = plan["rows"][li]
-                if Mq is not None:
-                    selm = sel @ Mq
-                ads = spatial.adjoint(np.array(frames))
-                tw = np.einsum("kij,kj->ki", ads[step_of_row], np.concatenate(xs)) * sign_of_row
-                rows = tw.T @ selm
-                rows[3:] -= spatial.hat(p) @ rows[:3]
-                J[6 * li:6 * li + 6] = rows
-        return r, errs, J
+        if plan is None or plan[0] is not cols or plan[1] != rot or plan[2] != block.index:
+            if len(self._fast) >= PLAN_MEMORY:
+                self._fast.pop(next(iter(self._fast)))
+            plan = self._fast[id(cols)] = (cols, set(rot), block.index, self._plan(block, cols, rot))
+        plan = plan[3]
+        nl = plan["nl"]
+        kmax = plan["kmax"]
+        th = (q[plan["pidx"]] - plan["phome"]) * plan["psign"]
+        # exp([S] t) = I + t [S] + (1 - cos t) [S]^2 + (t - sin t) [S]^3 (spatial.exp_unit) as one
+        # product of the coefficient rows with the stacked powers
+        coef = plan["coef"]
+        coef[:, 0, 0] = th
+        coef[:, 0, 1] = 1.0 - np.cos(th)
+        coef[:, 0, 2] = th - np.sin(th)
+        ex = ((coef @ plan["p16"]).reshape(-1, 4, 4) + _EYE4)[plan["fidx"]]  # (nl, kmax, 4, 4)
+        pre = np.empty((kmax + 1, nl, 4, 4))
+        pre[0] = _EYE4
+        for k in range(kmax):
+            np.matmul(pre[k], ex[:, k], out=pre[k + 1])
+        lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
+        if lw is not None:  # one loop near closure: plain floats
+            x, y, z, _ = plan["points"][0].tolist()
+            c0, c1, c2, _ = pre[plan["cut"]][0].tolist()
+            s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
+                          c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
+            w0, w1, w2, v0, v1, v2 = lw
+            v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
+            r = np.array([w0, w1, w2, v0, v1, v2])
+            errs = np.array([max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * self.pos_weight)])
+            site = np.array([[s0, s1, s2]])
+        else:
+            site = pre[plan["cut"]] @ plan["points"][:, :, None]  # (nl, 4, 1)
+            site = site[:, :3, 0]
+            w, v = spatial.log_rp(pre[kmax, :, :3, :3], pre[kmax, :, :3, 3])
+            v = v + spatial.cross(w, site)
+            r = np.concatenate([w, v], axis=1).ravel()
+            errs = np.maximum(np.abs(w).max(axis=1), np.abs(v).max(axis=1) * self.pos_weight)  # scale-free
+        if not jac:
+            return r, errs, None
+        ncol = len(cols)
+        if not ncol or not len(plan["src_loop"]):
+            return r, errs, np.zeros((6 * nl, ncol))
+        P = pre[plan["src_pos"], plan["src_loop"]]  # (ns, 4, 4)
+        wv = P[:, :3, :3] @ plan["src_wv"]  # (ns, 3, 2): R w, R v
+        wr = wv[:, :, 0]
+        d = P[:, :3, 3] - (site if nl == 1 else site[plan["src_loop"]])
+        tw = np.empty((len(wr), 6))
+        tw[:, :3] = wr
+        tw[:, 3:] = wv[:, :, 1] + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
+        tw *= plan["src_sign"]
+        Wq = plan["W"]
+        if plan["varying"]:
+            Wq = Wq.copy()
+            for s, c, i, g in plan["varying"]:
+                Wq[s, c] += self.member_slope(i, q[g])
+        if nl == 1:
+            return r, errs, tw.T @ Wq
+        big = np.zeros((6 * nl, tw.shape[0]))
+        big[plan["scatter"]] = tw.ravel()
+        return r, errs, big @ Wq
 
     def _col_scale(self, cols):
         """Size of one dimensionless unit of each column (length unit = mechanism size)."""
         return np.array([1.0 / self.cscale[c[1]] if c[0] == "m" else 1.0 for c in cols])
 
     def _row_scale(self, nl):
-        return np.tile(self.rscale, nl)
+        """Row scale of ``nl`` loops (a read-only array, built once per count)."""
+        rs = self._row_scales.get(nl)
+        if rs is None:
+            rs = self._row_scales[nl] = np.tile(self.rscale, nl)
+            rs.flags.writeable = False
+        return rs
 
     def _apply(self, q, cols, rot, du):
         """Add a step ``du`` over the unknown columns to state ``q`` (in place)."""
@@ -447,7 +487,7 @@ class Solver:
             if not cols:
                 break
             Js = J[:, :len(cols)] * rs[:, None] * cs[None, :]
-            du_s = np.linalg.lstsq(Js, -r * rs, rcond=1e-10)[0]
+            du_s = lstsq_small(Js, -r * rs, 1e-10)
             big = np.abs(du_s).max() if du_s.size else 0.0
             if big > 0.5:
                 du_s *= 0.5 / big
@@ -500,7 +540,7 @@ class Solver:
                 return True, err, errs, J
             if not nu:
                 break
-            du = np.linalg.lstsq(J[:, :nu] * rs[:, None] * cs[None, :], -r * rs, rcond=1e-10)[0]
+            du = lstsq_small(J[:, :nu] * rs[:, None] * cs[None, :], -r * rs, 1e-10)
             size = float(np.linalg.norm(du))
             if prev is None and size > 0.5:
                 break  # the predictor is far from closure: the sub-step is too long
@@ -512,15 +552,16 @@ class Solver:
         err = float(errs.max())
         return err <= TOLERANCE, err, errs, J
 
-    def _orientation(self, b, J, cols, rs, cs):
-        """Orientation frame (see :func:`orientation_frame`) of a solved block's Jacobian."""
-        Js = J * rs[:, None] * cs[None, :]
+    def _orientation(self, b, svd, cols):
+        """Orientation frame (see :func:`jointwise.linalg.orientation_frame`) of a solved block's Jacobian,
+        from the thin SVD ``(u, s, vt)`` of its scaled form."""
+        u, sv, vt = svd
         key = ("orient", b.index, tuple(cols))
-        sv = np.linalg.svd(Js, compute_uv=False)
         rank = int((sv > 1e-9 * max(sv[0], 1e-300)).sum()) if sv.size else 0
         rank = max(rank, self._generic_rank.get(key, 0))
         self._generic_rank[key] = rank
-        return orientation_frame(Js, rank), Js
+        r = max(1, min(rank, sv.shape[-1]))
+        return u[:, :r], vt[:r].T, sv[r - 1] / max(sv[0], 1e-300)
 
     # -- public ----------------------------------------------------------------------------
     def closure(self, q):
@@ -641,9 +682,17 @@ class Solver:
         the one holding rule, :meth:`Mechanism.held_coordinates` (coordinates outside every
         loop keep their values here anyway, so only the drives are returned)."""
         m = self.m
-        driven = set(m.driven)
-        names = m.held_coordinates([m.coordinates[i] for i in explicit])
-        return [m._index[c] for c in names if c in driven and m._index[c] not in explicit]
+        # key: the given coordinates and the drive flags (sweeps switch them off for a run)
+        key = (tuple(explicit), tuple(j.drive for j in m.joints.values()))
+        hit = self._kept.get(key)
+        if hit is None:
+            driven = set(m.driven)
+            names = m.held_coordinates([m.coordinates[i] for i in explicit])
+            hit = [m._index[c] for c in names if c in driven and m._index[c] not in explicit]
+            if len(self._kept) >= PLAN_MEMORY:
+                self._kept.pop(next(iter(self._kept)))
+            self._kept[key] = hit
+        return list(hit)
 
     def _hold(self, target, source, i, v):
         g = int(self.master[i])
@@ -692,24 +741,26 @@ class Solver:
         err, errs, J = 0.0, np.zeros(0), None
         frame = None
         crossed = False
+        svd_here = None
         while t < 1.0:
             if J_here is None:
                 key = (b.index, q.tobytes())
                 cached = self._lastJ.pop(key, None)
                 if cached is not None and cached[0] is allcols:
-                    J_here = cached[1]
+                    J_here, svd_here = cached[1], cached[2]
                     self._lastJ[key] = cached  # most recently used last
                 else:
                     J_here = self._eval(b, q, allcols, rot)[2]
             # tangent: d(unknown)/dt = -pinv(J_u) J_h d(held)/dt  (dimensionless columns)
             if cols:
-                ju, jh = J_here[:, :nu], J_here[:, nu:]
-                rate = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh @ dfull) * rs, rcond=1e-6)[0]
+                if svd_here is None:
+                    svd_here = np.linalg.svd(J_here[:, :nu] * rs[:, None] * cs[None, :], full_matrices=False)
+                rate = lstsq_svd(svd_here, -(J_here[:, nu:] @ dfull) * rs, 1e-6)
                 rmax = float(np.abs(rate).max()) if rate.size else 0.0
             else:
                 rate, rmax = np.zeros(0), 0.0
             if cols and frame is None:
-                frame = self._orientation(b, J_here[:, :nu], cols, rs, cs)[0]
+                frame = self._orientation(b, svd_here, cols)
             remaining = 1.0 - t
             dt = remaining
             if rmax * dt > limit:
@@ -747,6 +798,7 @@ class Solver:
             pred = rmax * (t1 - t)
             t = t1
             J_here = Jall
+            svd_here = None
             frame = None
             # step control: grow while the corrector stays small against the prediction
             if dt < dt_first:  # it had to be halved: keep to what worked (no restart at full length)
@@ -757,11 +809,15 @@ class Solver:
                 limit = min(2 * limit, MAX_LINEAR_MOTION)
             elif moved < 0.1 * pred:
                 limit = min(1.5 * limit, MAX_MOTION)
+        if cols and J is not None and J.size:
+            svd_here = np.linalg.svd(J * rs[:, None] * cs[None, :], full_matrices=False)
         if J_here is not None:
             if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
                 self._lastJ.pop(next(iter(self._lastJ)))
-            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here)
-        return err, crossed or self._singular(b, J, cols, rs, cs)
+            # key: block and the closed state's bytes; value: its column layout, Jacobian
+            # and the thin SVD of the scaled solved part (tangent and orientation next time)
+            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here, svd_here)
+        return err, crossed or self._singular(b, J, cols, rs, cs, svd_here)
 
     def _solve_overheld(self, b, q, held_b, source):
         """Held values that over-determine a block (e.g. crank and rocker of a four-bar).
@@ -839,11 +895,12 @@ class Solver:
         raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
                             f"(closest closure error reached){where}", loop=loop, error=float(err), joint=blame)
 
-    def _singular(self, b, J, cols, rs, cs):
-        """Near a dead point: the generic-rank singular value of the scaled J_u is tiny."""
+    def _singular(self, b, J, cols, rs, cs, svd=None):
+        """Near a dead point: the generic-rank singular value of the scaled J_u is tiny
+        (``svd``: the thin SVD of the scaled J_u, when already computed)."""
         if not cols or J is None or not J.size:
             return False
-        s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False)
+        s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False) if svd is None else svd[1]
         if s.size == 0 or s[0] == 0:
             return False
         rank = int((s > 1e-9 * s[0]).sum())

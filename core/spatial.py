@@ -223,23 +223,35 @@ def log6(t):
 
 def _log_one(t):
     """(w, v) of one rigid transform: the scalar fast path of :func:`log6`."""
-    r = t[:3, :3]
-    c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
-    if c > 0.99:  # small angle: series of the general formula, accurate to machine precision
-        sk = np.array([r[2, 1] - r[1, 2], r[0, 2] - r[2, 0], r[1, 0] - r[0, 1]]) / 2.0
-        s = math.sqrt(float(sk @ sk))
-        ang = math.asin(min(1.0, s))
-        w = sk * (ang / s if s > 1e-300 else 1.0)
-        if ang < 1e-4:
-            coef = 1 / 12 + ang * ang / 720
-        else:
-            coef = (1 - (ang / 2) / math.tan(ang / 2)) / (ang * ang)
-        p = t[:3, 3]
-        wp = np.array([w[1] * p[2] - w[2] * p[1], w[2] * p[0] - w[0] * p[2], w[0] * p[1] - w[1] * p[0]])
-        wwp = np.array([w[1] * wp[2] - w[2] * wp[1], w[2] * wp[0] - w[0] * wp[2], w[0] * wp[1] - w[1] * wp[0]])
-        return w, p - 0.5 * wp + coef * wwp
-    w, v = log_rp(t[None, :3, :3], t[None, :3, 3])
-    return w[0], v[0]
+    out = log_rows(np.asarray(t, dtype=float).tolist())
+    if out is None:
+        w, v = log_rp(t[None, :3, :3], t[None, :3, 3])
+        return w[0], v[0]
+    return np.array(out[:3]), np.array(out[3:])
+
+
+def log_rows(t):
+    """``(w0, w1, w2, v0, v1, v2)`` of one rigid transform given as nested lists (rows of
+    a 4x4), in plain floats; None where the rotation is larger than about 8 deg (use
+    :func:`log_rp` there).  The series of the general formula is accurate to machine
+    precision in that range (the scalar fast path of :func:`log6`)."""
+    r0, r1, r2 = t[0], t[1], t[2]
+    c = (r0[0] + r1[1] + r2[2] - 1.0) / 2.0
+    if c <= 0.99:
+        return None
+    k0, k1, k2 = (r2[1] - r1[2]) / 2.0, (r0[2] - r2[0]) / 2.0, (r1[0] - r0[1]) / 2.0
+    s = math.sqrt(k0 * k0 + k1 * k1 + k2 * k2)
+    ang = math.asin(min(1.0, s))
+    f = ang / s if s > 1e-300 else 1.0
+    w0, w1, w2 = k0 * f, k1 * f, k2 * f
+    if ang < 1e-4:
+        coef = 1 / 12 + ang * ang / 720
+    else:
+        coef = (1 - (ang / 2) / math.tan(ang / 2)) / (ang * ang)
+    p0, p1, p2 = r0[3], r1[3], r2[3]
+    a0, a1, a2 = w1 * p2 - w2 * p1, w2 * p0 - w0 * p2, w0 * p1 - w1 * p0
+    b0, b1, b2 = w1 * a2 - w2 * a1, w2 * a0 - w0 * a2, w0 * a1 - w1 * a0
+    return (w0, w1, w2, p0 - 0.5 * a0 + coef * b0, p1 - 0.5 * a1 + coef * b1, p2 - 0.5 * a2 + coef * b2)
 
 
 def cross(a, b):

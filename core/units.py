@@ -64,6 +64,8 @@ MAX_ITER = 30
 MAX_SPAN = 1e4
 #: Jacobians of this many recent closed states are kept for warm starts from them.
 JACOBIAN_MEMORY = 256
+#: Evaluation plans (index arrays per block and column layout) kept; oldest dropped first.
+PLAN_MEMORY = 64
 #: Continuation corrector: each Newton increment must be at most this fraction of the one
 #: before (a Kantorovich-style contraction test, see :func:`branch_step_certified`).
 CONTRACTION = 0.25
@@ -82,6 +84,11 @@ CORRECTOR_RATIO = 0.6
 NOISE_STEP = 1e-11
 #: A relative singular value below this leaves the orientation of a state undefined.
 ORIENT_RATIO = 1e-7
+#: Normal equations stand in for the SVD least-squares solve where ``det(G) / |G|_F^k``
+#: (``G = A^T A``, a lower bound of ``(s_min / s_max)^2``) is at least this: then no singular
+#: value lies near the cut-off and the rounding of the normal equations stays below
+#: ``cond(A)^2 eps``, about 1e-10 of the step.
+NORMAL_CERT = 1e-6
 
 #: Batched steps are processed in chunks of this many rows, which bounds the memory
 #: of the stacked Jacobians (rows x loop equations x unknowns) whatever the sweep length.
