@@ -348,55 +348,14 @@ class Evaluator:
             parts = [self.eval(Q[k:k + CHUNK], cols, rotmode) for k in range(0, B, CHUNK)]
             J = None if cols is None else np.concatenate([p[2] for p in parts])
             return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]), J
-        m, s = self.m, self.s
-        data = {jn: self._joint(jn, Q, rotmode) for jn in self.joints}
-        r = np.zeros((B, 6 * self.nl))
-        J = None if cols is None else np.zeros((B, 6 * self.nl, len(cols)))
-        for li, loop in enumerate(self.block.loops):
-            R = np.broadcast_to(np.eye(3), (B, 3, 3))
-            p = np.zeros((B, 3))
-            site = None
-            rows = {}
-            for jn, sign in loop.steps:
-                T, X = data[jn]
-                if jn == loop.name:
-                    site = (R @ self.sites[li])[:, :] + p
-                R, p, tw, _ = _step(R, p, T, X, sign, twists=cols is not None)
-                if tw is None:
-                    continue
-                if rotmode and jn in self.rotj:
-                    for k in range(3):
-                        key = ("s", jn, k)
-                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
-                else:
-                    sl = m._slices[jn]
-                    for k in range(sl.stop - sl.start):
-                        key = ("c", sl.start + k)
-                        rows[key] = rows[key] + tw[:, k] if key in rows else tw[:, k]
-            w, v = spatial.log_rp(R, p)
-            v = v + spatial.cross(w, site)
-            r[:, 6 * li:6 * li + 3] = w
-            r[:, 6 * li + 3:6 * li + 6] = v
-            if cols is not None:
-                for ci, c in enumerate(cols):
-                    if c[0] == "m":
-                        col = None
-                        for i in s.members[c[1]]:
-                            t = rows.get(("c", i))
-                            if t is not None:
-                                a = s.alpha[i] if i not in s.law else s.member_slope(i, Q[:, c[1]])[:, None]
-                                col = a * t if col is None else col + a * t
-                        if col is None:
-                            continue
-                    else:
-                        col = rows.get(c)
-                        if col is None:
-                            continue
-                    J[:, 6 * li:6 * li + 3, ci] = col[:, :3]
-                    J[:, 6 * li + 3:6 * li + 6, ci] = col[:, 3:] - spatial.cross(site, col[:, :3])
-        rr = (np.abs(r) * self.es[None, :]).reshape(B, self.nl, 6)  # scale-free, as the solver
-        errs = rr.max(axis=(1, 2))
-        return r, errs, J
+        plan = self.s._plan(self.block, cols or [], self.rotj if rotmode else set())
+        if B > SMALL_STACK or B == 0:
+            return eval_stack(self.s, plan, Q, cols is not None)
+        # a few states: one at a time (the stacked form's fixed cost is larger)
+        parts = [eval_one(self.s, plan, q, cols is not None) for q in Q]
+        r = np.array([p[0] for p in parts]).reshape(B, -1)
+        errs = np.array([p[1].max() for p in parts])
+        return r, errs, None if cols is None else np.array([p[2] for p in parts]).reshape(B, r.shape[1], len(cols))
 
     def apply(self, Q, du, cols):
         """Add steps du (B, len(cols)) (internal units) to states Q (B, n), in place."""
@@ -444,3 +403,248 @@ def tangent(ev, Q):
         return np.zeros((Q.shape[0], 0, len(ev.held)))
     x, _ = least_norm(Ju, -Jh)
     return x * cs[None, :nu, None] / cs[None, None, nu:]
+
+
+# ---------------------------------------------------------------------------------------
+# loop plans: the loop equations of one block for one column layout, one state or a stack
+# ---------------------------------------------------------------------------------------
+
+_EYE4 = np.eye(4)
+#: Stacks of at most this many states are evaluated one state at a time (:func:`eval_one`).
+SMALL_STACK = 8
+_I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1]
+_I2 = np.array([2, 0, 1])
+
+
+def loop_plan(s, block, cols, rot):
+    """Index arrays of ``block``'s loop equations for unknown columns ``cols`` (a dict).
+
+    Every loop is written as one flat product of signed primitive exponentials (a reversed
+    step ``E^-1`` is ``e_n(-t_n) ... e_1(-t_1)``), so that one stacked exponential gives
+    every factor; loops are padded with the identity to a common length and their prefix
+    products are formed side by side.  A Jacobian column is ``sign Ad(prefix) S`` of each
+    factor (``S`` is invariant under its own exponential, so the prefix before or after
+    the factor gives the same column), or for a free spherical joint in ``rot`` its three
+    rotation twists carried by the prefix before (forward) or after (reversed) the joint;
+    ``W`` maps these sources to the columns (coupling ratios; motion-law slopes are added
+    at each evaluation).  ``s``: the solver (couplings: master, alpha, law)."""
+    m = s.m
+    colidx = {c: k for k, c in enumerate(cols)}
+    screws, pidx, phome, psign = [], [], [], []
+    loops_f = []           # per loop: factor indices (into the stacked exponentials)
+    src_loop, src_pos, src_tw, src_sign, src_w = [], [], [], [], []  # Jacobian sources
+    varying = []           # (source, column, member, master): motion-law slopes
+    cut_pos = []
+    for li, loop in enumerate(block.loops):
+        fl = []
+        for jn, sign in loop.steps:
+            j = m.joints[jn]
+            sl = m._slices[jn]
+            if jn == loop.name:
+                cut_pos.append(len(fl))
+            start = len(fl)
+            order = range(len(j.primitives)) if sign > 0 else range(len(j.primitives) - 1, -1, -1)
+            for k in order:
+                fl.append(len(pidx))
+                screws.append(j.primitives[k].screw)
+                pidx.append(sl.start + k)
+                phome.append(j.home[k])
+                psign.append(float(sign))
+                if jn in rot:
+                    continue
+                i = sl.start + k
+                g = int(s.master[i])
+                weights = {}
+                c = colidx.get(("m", g))
+                if c is not None:
+                    if i in s.law:
+                        varying.append((len(src_loop), c, i, g))
+                    else:
+                        weights[c] = s.alpha[i]
+                src_loop.append(li)
+                src_pos.append(len(fl) - 1)
+                src_tw.append(j.primitives[k].screw)
+                src_sign.append(float(sign))
+                src_w.append(weights)
+            if jn in rot:
+                pos = start if sign > 0 else len(fl)
+                for k, x in enumerate(j.rotation_twists()):
+                    c = colidx.get(("s", jn, k))
+                    src_loop.append(li)
+                    src_pos.append(pos)
+                    src_tw.append(x)
+                    src_sign.append(float(sign))
+                    src_w.append({} if c is None else {c: 1.0})
+        loops_f.append(fl)
+    nl = len(block.loops)
+    npr = len(pidx)
+    kmax = max((len(fl) for fl in loops_f), default=0)
+    fidx = np.full((nl, kmax), npr, dtype=int)  # padding: the extra identity factor
+    for li, fl in enumerate(loops_f):
+        fidx[li, :len(fl)] = fl
+    screws.append(np.zeros(6))
+    ns = len(src_loop)
+    W = np.zeros((ns, len(cols)))
+    for k, weights in enumerate(src_w):
+        for c, a in weights.items():
+            W[k, c] += a
+    weights = [(k, src_loop[k], c, a) for k, ws in enumerate(src_w) for c, a in ws.items() if a != 0]
+    src_loop = np.array(src_loop, dtype=int)
+    src_pos = np.array(src_pos, dtype=int)
+    tw = np.array(src_tw, dtype=float).reshape(-1, 6)
+    powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))  # (P + 1, 3, 4, 4)
+    at_pos = []  # per position 0..kmax: (sources there, their loops)
+    for k in range(kmax + 1):
+        sel = np.flatnonzero(src_pos == k)
+        at_pos.append((sel, src_loop[sel]) if len(sel) else None)
+    return {
+        "p16": powers.reshape(-1, 3, 16), "coef": np.empty((len(screws), 1, 3)),
+        "p12": np.ascontiguousarray(powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1)),
+        "pidx": np.array(pidx + [0], dtype=int), "phome": np.array(phome + [0.0]),
+        "psign": np.array(psign + [0.0]), "fidx": fidx, "kmax": kmax, "nl": nl,
+        "cut": (np.array(cut_pos, dtype=int), np.arange(nl)), "cut_pos": cut_pos,
+        "points": np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4),
+        "src_loop": src_loop, "src_pos": src_pos, "at_pos": at_pos,
+        "src_wv": np.stack([tw[:, :3], tw[:, 3:]], axis=-1), "src_tw": tw,
+        "src_sign": np.array(src_sign)[:, None], "W": W, "weights": weights, "varying": varying,
+        "scatter": ((6 * src_loop[:, None] + np.arange(6)[None, :]).ravel(), np.repeat(np.arange(ns), 6)),
+        "ncols": len(cols),
+    }
+
+
+def eval_one(s, plan, q, jac=True):
+    """Residual (6 nl), per-loop errors (nl) and Jacobian (6 nl, ncols) at one state ``q``.
+
+    Residual rows per loop: ``(w, v + w x site)`` of ``log`` of the loop product, at the
+    cut joint's point; errors scale-free (radians; positions times ``s.pos_weight``)."""
+    nl = plan["nl"]
+    kmax = plan["kmax"]
+    th = (q[plan["pidx"]] - plan["phome"]) * plan["psign"]
+    # exp([S] t) = I + t [S] + (1 - cos t) [S]^2 + (t - sin t) [S]^3 (spatial.exp_unit) as one
+    # product of the coefficient rows with the stacked powers
+    coef = plan["coef"]
+    coef[:, 0, 0] = th
+    coef[:, 0, 1] = 1.0 - np.cos(th)
+    coef[:, 0, 2] = th - np.sin(th)
+    ex = ((coef @ plan["p16"]).reshape(-1, 4, 4) + _EYE4)[plan["fidx"]]  # (nl, kmax, 4, 4)
+    pre = np.empty((kmax + 1, nl, 4, 4))
+    pre[0] = _EYE4
+    for k in range(kmax):
+        np.matmul(pre[k], ex[:, k], out=pre[k + 1])
+    lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
+    if lw is not None:  # one loop near closure: plain floats
+        x, y, z, _ = plan["points"][0].tolist()
+        c0, c1, c2, _ = pre[plan["cut"]][0].tolist()
+        s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
+                      c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
+        w0, w1, w2, v0, v1, v2 = lw
+        v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
+        r = np.array([w0, w1, w2, v0, v1, v2])
+        errs = np.array([max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * s.pos_weight)])
+        site = np.array([[s0, s1, s2]])
+    else:
+        site = pre[plan["cut"]] @ plan["points"][:, :, None]  # (nl, 4, 1)
+        site = site[:, :3, 0]
+        w, v = spatial.log_rp(pre[kmax, :, :3, :3], pre[kmax, :, :3, 3])
+        v = v + spatial.cross(w, site)
+        r = np.concatenate([w, v], axis=1).ravel()
+        errs = np.maximum(np.abs(w).max(axis=1), np.abs(v).max(axis=1) * s.pos_weight)  # scale-free
+    if not jac:
+        return r, errs, None
+    ncol = plan["ncols"]
+    if not ncol or not len(plan["src_loop"]):
+        return r, errs, np.zeros((6 * nl, ncol))
+    P = pre[plan["src_pos"], plan["src_loop"]]  # (ns, 4, 4)
+    wv = P[:, :3, :3] @ plan["src_wv"]  # (ns, 3, 2): R w, R v
+    wr = wv[:, :, 0]
+    d = P[:, :3, 3] - (site if nl == 1 else site[plan["src_loop"]])
+    tw = np.empty((len(wr), 6))
+    tw[:, :3] = wr
+    tw[:, 3:] = wv[:, :, 1] + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
+    tw *= plan["src_sign"]
+    Wq = plan["W"]
+    if plan["varying"]:
+        Wq = Wq.copy()
+        for k, c, i, g in plan["varying"]:
+            Wq[k, c] += s.member_slope(i, q[g])
+    if nl == 1:
+        return r, errs, tw.T @ Wq
+    big = np.zeros((6 * nl, tw.shape[0]))
+    big[plan["scatter"]] = tw.ravel()
+    return r, errs, big @ Wq
+
+
+def _compose_soa(a, b):
+    """Rigid products ``a b`` of stacks held component-first: (3, 4, ...) top rows of 4x4."""
+    out = a[:, 0, None] * b[0]
+    out += a[:, 1, None] * b[1]
+    out += a[:, 2, None] * b[2]
+    out[:, 3] += a[:, 3]
+    return out
+
+
+def eval_stack(s, plan, Q, jac=True):
+    """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
+    Jacobian (B, 6 nl, ncols) (None without ``jac``).
+
+    Stacks are held component-first (a transform as its 12 top entries, each a row over
+    the loops and states), so every product is a few elementwise operations on long rows
+    instead of many tiny matrix products."""
+    B = Q.shape[0]
+    nl, kmax = plan["nl"], plan["kmax"]
+    th = ((Q[:, plan["pidx"]] - plan["phome"]) * plan["psign"]).T  # (P + 1, B)
+    coef = np.empty((th.shape[0], 3, B))
+    coef[:, 0] = th
+    coef[:, 1] = 1.0 - np.cos(th)
+    coef[:, 2] = th - np.sin(th)
+    E = (plan["p12"] @ coef).reshape(-1, 3, 4, B)  # (P + 1, 3, 4, B), identity added below
+    E[:, 0, 0] += 1.0
+    E[:, 1, 1] += 1.0
+    E[:, 2, 2] += 1.0
+    A = np.zeros((3, 4, nl, B))
+    A[0, 0] = A[1, 1] = A[2, 2] = 1.0
+    site = np.empty((3, nl, B))
+    ns = len(plan["src_loop"])
+    want = jac and plan["ncols"] and ns
+    if want:
+        wr = np.empty((ns, 3, B))
+        vr = np.empty((ns, 3, B))
+        pp = np.empty((ns, 3, B))
+    cut_pos = plan["cut_pos"]
+    for k in range(kmax + 1):
+        for li in range(nl):
+            if cut_pos[li] == k:
+                pt = plan["points"][li]
+                site[:, li] = A[:, 0, li] * pt[0] + A[:, 1, li] * pt[1] + A[:, 2, li] * pt[2] + A[:, 3, li]
+        hit = plan["at_pos"][k] if want else None
+        if hit is not None:
+            sel, lps = hit
+            R = A[:, :3][:, :, lps]  # (3, 3, nk, B)
+            w = plan["src_tw"][sel, :3].T[:, :, None]  # (3, nk, 1)
+            v = plan["src_tw"][sel, 3:].T[:, :, None]
+            wr[sel] = (R[:, 0] * w[0] + R[:, 1] * w[1] + R[:, 2] * w[2]).transpose(1, 0, 2)
+            vr[sel] = (R[:, 0] * v[0] + R[:, 1] * v[1] + R[:, 2] * v[2]).transpose(1, 0, 2)
+            pp[sel] = A[:, 3][:, lps].transpose(1, 0, 2)
+        if k < kmax:
+            A = _compose_soa(A, np.moveaxis(E[plan["fidx"][:, k]], 0, 2))
+    w, v = spatial.log_rp(np.moveaxis(A[:, :3], (0, 1), (-2, -1)).reshape(-1, 3, 3),
+                          np.moveaxis(A[:, 3], 0, -1).reshape(-1, 3))  # rows (loop, state)
+    w = w.reshape(nl, B, 3)
+    v = v.reshape(nl, B, 3) + spatial.cross(w, np.moveaxis(site, 0, -1))
+    r = np.concatenate([w, v], axis=2).transpose(1, 0, 2).reshape(B, 6 * nl)
+    errs = np.maximum(np.abs(w).max(axis=2), np.abs(v).max(axis=2) * s.pos_weight).max(axis=0)
+    if not jac:
+        return r, errs, None
+    if not want:
+        return r, errs, np.zeros((B, 6 * nl, plan["ncols"]))
+    d = pp - site[:, plan["src_loop"]].transpose(1, 0, 2)  # (ns, 3, B)
+    tw = np.empty((ns, 6, B))
+    tw[:, :3] = wr
+    tw[:, 3:] = vr + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
+    tw *= plan["src_sign"][:, :, None]
+    J = np.zeros((nl, plan["ncols"], 6, B))
+    for k, li, c, a in plan["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
+        J[li, c] += a * tw[k]
+    for k, c, i, g in plan["varying"]:
+        J[plan["src_loop"][k], c] += s.member_slope(i, Q[:, g])[None, :] * tw[k]
+    return r, errs, J.transpose(3, 0, 2, 1).reshape(B, 6 * nl, plan["ncols"])

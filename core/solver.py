@@ -40,7 +40,7 @@ import math
 
 import numpy as np
 
-from . import spatial
+from . import kinematics, spatial
 from .errors import AssemblyError, SpecError
 from .linalg import lstsq_small, lstsq_svd, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
@@ -50,8 +50,6 @@ from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTO
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
 
 _EYE4 = np.eye(4)
-_I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1]
-_I2 = np.array([2, 0, 1])
 
 
 def _log6_one(t):
@@ -262,164 +260,26 @@ class Solver:
         return cols, rot
 
     def _plan(self, block, cols, rot):
-        """Index arrays of a block for one set of unknown columns, built once (cached).
-
-        Every loop is written as one flat product of signed primitive exponentials
-        (a reversed step ``E^-1`` is ``e_n(-t_n) ... e_1(-t_1)``), so that one stacked
-        exponential gives every factor; loops are padded with the identity to a common
-        length and their prefix products are formed side by side.  A Jacobian column
-        is ``sign Ad(prefix) S`` of each factor (``S`` is invariant under its own
-        exponential, so the prefix before or after the factor gives the same column), or
-        for a free spherical joint its three rotation twists carried by the prefix before
-        (forward) or after (reversed) the joint; ``W`` maps these sources to the columns
-        (coupling ratios; motion-law slopes are filled in at each evaluation)."""
+        """The block's loop plan (:func:`jointwise.kinematics.loop_plan`) for one set of
+        unknown columns; key: block, columns, rotation-increment joints and the coupling
+        table; at most ``PLAN_MEMORY`` kept, oldest dropped first."""
         key = (block.index, tuple(cols), frozenset(rot), id(self.members))
         plan = self._plans.get(key)
-        if plan is not None:
-            return plan
-        m = self.m
-        colidx = {c: k for k, c in enumerate(cols)}
-        screws, pidx, phome, psign = [], [], [], []
-        loops_f = []           # per loop: factor indices (into the stacked exponentials)
-        src_loop, src_pos, src_tw, src_sign, src_w = [], [], [], [], []  # Jacobian sources
-        varying = []           # (source, column, member, master): motion-law slopes
-        cut_pos = []
-        for li, loop in enumerate(block.loops):
-            fl = []
-            for jn, sign in loop.steps:
-                j = m.joints[jn]
-                sl = m._slices[jn]
-                if jn == loop.name:
-                    cut_pos.append(len(fl))
-                start = len(fl)
-                order = range(len(j.primitives)) if sign > 0 else range(len(j.primitives) - 1, -1, -1)
-                for k in order:
-                    fl.append(len(pidx))
-                    screws.append(j.primitives[k].screw)
-                    pidx.append(sl.start + k)
-                    phome.append(j.home[k])
-                    psign.append(float(sign))
-                    if jn in rot:
-                        continue
-                    i = sl.start + k
-                    g = int(self.master[i])
-                    weights = {}
-                    c = colidx.get(("m", g))
-                    if c is not None:
-                        if i in self.law:
-                            varying.append((len(src_loop), c, i, g))
-                        else:
-                            weights[c] = self.alpha[i]
-                    src_loop.append(li)
-                    src_pos.append(len(fl) - 1)
-                    src_tw.append(j.primitives[k].screw)
-                    src_sign.append(float(sign))
-                    src_w.append(weights)
-                if jn in rot:
-                    pos = start if sign > 0 else len(fl)
-                    for k, x in enumerate(j.rotation_twists()):
-                        c = colidx.get(("s", jn, k))
-                        src_loop.append(li)
-                        src_pos.append(pos)
-                        src_tw.append(x)
-                        src_sign.append(float(sign))
-                        src_w.append({} if c is None else {c: 1.0})
-            loops_f.append(fl)
-        nl = len(block.loops)
-        npr = len(pidx)
-        kmax = max((len(fl) for fl in loops_f), default=0)
-        fidx = np.full((nl, kmax), npr, dtype=int)  # padding: the extra identity factor
-        for li, fl in enumerate(loops_f):
-            fidx[li, :len(fl)] = fl
-        screws.append(np.zeros(6))
-        ns = len(src_loop)
-        W = np.zeros((ns, len(cols)))
-        for s, weights in enumerate(src_w):
-            for c, a in weights.items():
-                W[s, c] += a
-        src_loop = np.array(src_loop, dtype=int)
-        rows6 = (6 * src_loop[:, None] + np.arange(6)[None, :]).ravel()
-        plan = {
-            "p16": spatial.screw_powers(np.array(screws).reshape(-1, 6)).reshape(-1, 3, 16),
-            "coef": np.empty((len(screws), 1, 3)),
-            "pidx": np.array(pidx + [0], dtype=int), "phome": np.array(phome + [0.0]),
-            "psign": np.array(psign + [0.0]), "fidx": fidx, "kmax": kmax, "nl": nl,
-            "cut": (np.array(cut_pos, dtype=int), np.arange(nl)),
-            "points": np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4),
-            "src_loop": src_loop, "src_pos": np.array(src_pos, dtype=int),
-            "src_wv": np.stack([np.array(src_tw, dtype=float).reshape(-1, 6)[:, :3],
-                                np.array(src_tw, dtype=float).reshape(-1, 6)[:, 3:]], axis=-1),
-            "src_sign": np.array(src_sign)[:, None], "W": W, "varying": varying,
-            "scatter": (rows6, np.repeat(np.arange(ns), 6)),
-        }
-        if len(self._plans) >= PLAN_MEMORY:
-            self._plans.pop(next(iter(self._plans)))
-        self._plans[key] = plan
+        if plan is None:
+            if len(self._plans) >= PLAN_MEMORY:
+                self._plans.pop(next(iter(self._plans)))
+            plan = self._plans[key] = kinematics.loop_plan(self, block, cols, rot)
         return plan
 
     def _eval(self, block, q, cols, rot, jac=True):
-        """Residual (6 per loop, at the cut), per-loop errors and the Jacobian."""
-        plan = self._fast.get(id(cols))
+        """Residual (6 per loop, at the cut), per-loop errors and the Jacobian at state ``q``
+        (:func:`jointwise.kinematics.eval_one`)."""
+        plan = self._fast.get(id(cols))  # key: the identity of the column list (checked)
         if plan is None or plan[0] is not cols or plan[1] != rot or plan[2] != block.index:
             if len(self._fast) >= PLAN_MEMORY:
                 self._fast.pop(next(iter(self._fast)))
             plan = self._fast[id(cols)] = (cols, set(rot), block.index, self._plan(block, cols, rot))
-        plan = plan[3]
-        nl = plan["nl"]
-        kmax = plan["kmax"]
-        th = (q[plan["pidx"]] - plan["phome"]) * plan["psign"]
-        # exp([S] t) = I + t [S] + (1 - cos t) [S]^2 + (t - sin t) [S]^3 (spatial.exp_unit) as one
-        # product of the coefficient rows with the stacked powers
-        coef = plan["coef"]
-        coef[:, 0, 0] = th
-        coef[:, 0, 1] = 1.0 - np.cos(th)
-        coef[:, 0, 2] = th - np.sin(th)
-        ex = ((coef @ plan["p16"]).reshape(-1, 4, 4) + _EYE4)[plan["fidx"]]  # (nl, kmax, 4, 4)
-        pre = np.empty((kmax + 1, nl, 4, 4))
-        pre[0] = _EYE4
-        for k in range(kmax):
-            np.matmul(pre[k], ex[:, k], out=pre[k + 1])
-        lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
-        if lw is not None:  # one loop near closure: plain floats
-            x, y, z, _ = plan["points"][0].tolist()
-            c0, c1, c2, _ = pre[plan["cut"]][0].tolist()
-            s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
-                          c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
-            w0, w1, w2, v0, v1, v2 = lw
-            v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
-            r = np.array([w0, w1, w2, v0, v1, v2])
-            errs = np.array([max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * self.pos_weight)])
-            site = np.array([[s0, s1, s2]])
-        else:
-            site = pre[plan["cut"]] @ plan["points"][:, :, None]  # (nl, 4, 1)
-            site = site[:, :3, 0]
-            w, v = spatial.log_rp(pre[kmax, :, :3, :3], pre[kmax, :, :3, 3])
-            v = v + spatial.cross(w, site)
-            r = np.concatenate([w, v], axis=1).ravel()
-            errs = np.maximum(np.abs(w).max(axis=1), np.abs(v).max(axis=1) * self.pos_weight)  # scale-free
-        if not jac:
-            return r, errs, None
-        ncol = len(cols)
-        if not ncol or not len(plan["src_loop"]):
-            return r, errs, np.zeros((6 * nl, ncol))
-        P = pre[plan["src_pos"], plan["src_loop"]]  # (ns, 4, 4)
-        wv = P[:, :3, :3] @ plan["src_wv"]  # (ns, 3, 2): R w, R v
-        wr = wv[:, :, 0]
-        d = P[:, :3, 3] - (site if nl == 1 else site[plan["src_loop"]])
-        tw = np.empty((len(wr), 6))
-        tw[:, :3] = wr
-        tw[:, 3:] = wv[:, :, 1] + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
-        tw *= plan["src_sign"]
-        Wq = plan["W"]
-        if plan["varying"]:
-            Wq = Wq.copy()
-            for s, c, i, g in plan["varying"]:
-                Wq[s, c] += self.member_slope(i, q[g])
-        if nl == 1:
-            return r, errs, tw.T @ Wq
-        big = np.zeros((6 * nl, tw.shape[0]))
-        big[plan["scatter"]] = tw.ravel()
-        return r, errs, big @ Wq
+        return kinematics.eval_one(self, plan[3], q, jac)
 
     def _col_scale(self, cols):
         """Size of one dimensionless unit of each column (length unit = mechanism size)."""
