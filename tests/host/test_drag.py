@@ -334,3 +334,20 @@ def test_handle_uses_the_lists_definition_when_it_changes(installed):
     p, _ = _handle_to(scene, mech, handle, "coupler", new_at, 115.0, start)
     assert math.degrees(jw.joints["crank_pin"].value) == pytest.approx(115.0, abs=1e-3)
     _check_scene_matches(scene, mech, mech.pose(start=start, targets={"sign_hook": p}))
+
+
+def test_a_handle_whose_measure_left_the_list_drags_nothing(installed):
+    # the measure removed from the Measures list: moving its handle poses nothing, the
+    # handle goes back and the status says why
+    scene, mech, handle = _with_handle("sign_hook")
+    jw = scene.jointwise
+    before = {it.name: float(it.value) for it in jw.joints}
+    was = _world(handle)
+    jw.measures.remove(jw.measures.find("sign_hook"))
+    m = was.copy()
+    m[:3, 3] += (5.0, 0.0, 0.0)
+    _set_world(handle, m)
+    assert {it.name: float(it.value) for it in jw.joints} == before
+    assert not jw.converged
+    assert "no point measure named 'sign_hook' in the Measures list" in jw.message, jw.message
+    assert np.allclose(_world(handle), was, atol=1e-4)
