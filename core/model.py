@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import spatial
-from .errors import LimitError, SpecError
+from .errors import LimitError, Reason, SpecError
 from .units import ANGLE_UNITS, ASSEMBLY_TOLERANCE, COAXIAL_TOLERANCE, FORMAT
 
 __all__ = ["Link", "Coupling", "Measure", "Loop", "Model"]
@@ -300,6 +300,10 @@ class Model:
     def _unit(self, i):
         return self._angle if self._kind[i] == "angle" else 1.0
 
+    def _unit_name(self, i):
+        """The file's unit text of coordinate ``i``."""
+        return self.angle_unit if self._kind[i] == "angle" else self.length_unit
+
     def to_internal(self, name, value):
         return float(value) * self._unit(self._require(name))
 
@@ -369,9 +373,8 @@ class Model:
             if lim is not None and not lim[0] - 1e-12 <= v <= lim[1] + 1e-12:
                 c = self.coordinates[i]
                 u = self._unit(i)
-                unit = self.angle_unit if self._kind[i] == "angle" else self.length_unit
-                raise LimitError(f"{c} = {v / u:g} {unit} lies outside its limits "
-                                 f"[{lim[0] / u:g}, {lim[1] / u:g}] {unit}", joint=c)
+                raise LimitError(reason=Reason("limit", joint=c, value=v / u, bounds=(lim[0] / u, lim[1] / u),
+                                               unit=self._unit_name(i)))
 
     def _local(self, i):
         return i - self._slices[self._owner[self.coordinates[i]]].start

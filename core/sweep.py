@@ -74,9 +74,9 @@ import os
 import numpy as np
 
 from . import kinematics, linalg, spatial
-from .errors import AssemblyError, JointwiseError, LimitError, SpecError
+from .errors import AssemblyError, JointwiseError, LimitError, Reason, SpecError
 from .linalg import branch_step_certified, orientation_agrees, orientation_frame
-from .results import Sweep
+from .results import Note, Sweep
 from .units import CHUNK, ORIENT_RATIO, SINGULAR_RATIO, TOLERANCE
 
 __all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule_csv",
@@ -205,7 +205,10 @@ def _run(mech, explicit, N, q0, release):
         slack = 1e-9 / s.qerr[i]  # radian, or a fraction of the mechanism's size
         bad = (Q[:, i] < lim[0] - slack) | (Q[:, i] > lim[1] + slack)
         for k in np.flatnonzero(bad & good & ~lim_bad):
-            reasons[int(k)] = f"limit of joint {j.name}" + (f" ({c})" if c != j.name else "")
+            u = mech._unit(i)
+            reasons[int(k)] = Note(f"limit of joint {j.name}" + (f" ({c})" if c != j.name else ""),
+                                   Reason("limit", joint=c, value=float(Q[k, i] / u),
+                                          bounds=(lim[0] / u, lim[1] / u), unit=mech._unit_name(i), held=False))
         lim_bad |= bad
     conv = good & ~lim_bad
     # singular flags on the solved states
@@ -357,7 +360,7 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
     bad = ~ok
     if bad.any():
         for k in np.flatnonzero(bad):
-            reasons.setdefault(int(k), "the loops do not close there")
+            reasons.setdefault(int(k), Note("the loops do not close there", Reason("unreachable")))
     return ok, np.where(np.isfinite(err), err, 0.0), reasons
 
 
@@ -377,12 +380,13 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             with guard:
                 qn, inf = s.pose(held, qstart)
         except LimitError as exc:
-            out = None, f"limit: {exc}"
+            out = None, Note(f"limit: {exc}", exc.reason)
         except JointwiseError as exc:
-            out = None, str(exc)
+            out = None, Note(str(exc), getattr(exc, "reason", None) or Reason("unreachable"))
         else:
             if not inf["converged"]:
-                out = None, f"the loops do not close (residual {inf['residual']:.3g})"
+                out = None, Note(f"the loops do not close (residual {inf['residual']:.3g})",
+                                 Reason("unreachable", error=inf["residual"]))
             else:
                 out = qn, None
         if info:
@@ -988,7 +992,8 @@ def follow(mech, table, start=None):
         conv = np.zeros(N, bool)
         sing = np.zeros(N, bool)
         resid = np.zeros(N)
-        reasons = {i: str(exc) for i in range(N)}
+        why = Note(str(exc), getattr(exc, "reason", None) or Reason("coupling"))
+        reasons = {i: why for i in range(N)}
     first = next(iter(table)) if table else None
     vals = np.asarray(table[first], float) if first else np.arange(N, dtype=float)
     return _finish(mech, first, vals, Q, conv, sing, resid, reasons, held_m)
