@@ -83,6 +83,7 @@ class Solver:
         self._layouts = {}
         self._lastJ = {}
         self._allcols = {}
+        self._tangent_cols = {}  # (block, held masters, moving master) -> column lists
         self._home_q = None
         self._home_notes = []
         self._rot_twists = {}
@@ -787,17 +788,24 @@ class Solver:
         bi = self.block_of_master.get(gper)
         if bi is not None:
             b = self.blocks[bi]
-            cols, _ = self._layout(b, held_m)
             rot = set()
-            cols = [c for c in cols if c[0] == "m"] + [
-                ("m", i) for jn in b.joints if self.m.joints[jn].type == "spherical"
-                for i in range(self.m._slices[jn].start, self.m._slices[jn].stop)
-                if i not in held_m and ("m", i) not in cols]
+            # the unknown columns and the moving one, kept per held set (one evaluation, and
+            # the same column list each time, so the evaluation plan is reused)
+            key = (bi, frozenset(held_m), gper, id(self.members))
+            hit = self._tangent_cols.get(key)
+            if hit is None:
+                cols, _ = self._layout(b, held_m)
+                cols = [c for c in cols if c[0] == "m"] + [
+                    ("m", i) for jn in b.joints if self.m.joints[jn].type == "spherical"
+                    for i in range(self.m._slices[jn].start, self.m._slices[jn].stop)
+                    if i not in held_m and ("m", i) not in cols]
+                hit = self._tangent_cols[key] = (cols, cols + [("m", gper)])
+            cols, allcols = hit
             if cols:
                 rs = self._row_scale(len(b.loops))
                 cs = self._col_scale(cols)
-                _, _, jh = self._eval(b, q, [("m", gper)], rot)
-                _, _, ju = self._eval(b, q, cols, rot)
+                _, _, J = self._eval(b, q, allcols, rot)
+                ju, jh = J[:, :-1], J[:, -1:]
                 du = np.linalg.lstsq(ju * rs[:, None] * cs[None, :], -(jh[:, 0] * dq[gper]) * rs,
                                      rcond=1e-10)[0] * cs
                 for c, d in zip(cols, du):
