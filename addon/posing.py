@@ -45,24 +45,21 @@ def held_names(scene, mech, given=(), inputs=(), animated=None):
 def held_values(scene, mech, extra=(), values=None):
     """{coordinate: value} to hold for a solve (host units): :func:`held_names` with
     ``extra`` given (the one being set or dragged), values from ``values`` or the list."""
-    jw = scene.jointwise
+    items = {it.name: it for it in scene.jointwise.joints}  # one pass over the list
     held = {}
     for name in held_names(scene, mech, given=extra):
         if values is not None and name in values:
             held[name] = float(values[name])
         else:
-            held[name] = float(jw.joints[name].value)
+            held[name] = float(items[name].value)
     return held
 
 
 def start_from_scene(scene, mech):
     """A warm start for ``Mechanism.pose`` from the values of the placement the scene
     shows (``last``: the last solved values), so the solve stays on the scene's branch."""
-    jw = scene.jointwise
-    q = []
-    for c in mech.coordinates:
-        item = jw.joints.get(c)
-        q.append(float(item.last) if item is not None else 0.0)
+    last = {it.name: it.last for it in scene.jointwise.joints}  # one pass over the list
+    q = [float(last.get(c, 0.0)) for c in mech.coordinates]
     try:
         Pose = sc.core().Pose
     except AttributeError:
@@ -138,10 +135,10 @@ def restore(scene, snap, values=True):
 def clamp_to_limits(scene, held):
     """Held values past their coordinate's limits moved onto the limit (in place).
     Returns [(coordinate, asked, limit)] for each value moved."""
-    jw = scene.jointwise
+    items = {it.name: it for it in scene.jointwise.joints}  # one pass over the list
     moved = []
     for name, v in held.items():
-        item = jw.joints.get(name)
+        item = items.get(name)
         if item is None or not item.use_limits:
             continue
         lo, hi = float(item.limit_min), float(item.limit_max)

@@ -412,9 +412,9 @@ def write_values(scene, joints):
     """Write solved coordinate values (host units) into the items (no update callbacks)."""
     jw = scene.jointwise
     with properties.quiet():
-        for name, v in joints.items():
-            item = jw.joints.get(name)
-            if item is None or not math.isfinite(v):
+        for item in jw.joints:  # one pass (a look-up by name searches the collection)
+            v = joints.get(item.name)
+            if v is None or not math.isfinite(v):
                 continue
             if abs(item.value - v) > 1e-12 * max(1.0, abs(v)):
                 item.value = v
