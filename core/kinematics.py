@@ -373,12 +373,24 @@ class Evaluator:
             j = m.joints[jn]
             sl = m._slices[jn]
             d = np.stack(parts, axis=-1)
-            Rd = spatial.exp3(d)
-            T = self.prims[jn][0].exp(Q[:, sl.start])
-            for k in (1, 2):
-                T = spatial.compose_rp(T, self.prims[jn][k].exp(Q[:, sl.start + k]))
-            Rn = Rd @ T[0]
+            Rn = spatial.exp3(d) @ joint_rotations(self.prims[jn], Q[:, sl])
             Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
+
+
+def joint_rotations(prims, Qj):
+    """Rotation parts (B, 3, 3) of a joint's displacement at its coordinates ``Qj`` (B, k),
+    from its primitives (:class:`spatial.UnitScrew`: ``R = I + sin t [w] + (1 - cos t)
+    [w]^2``), composed component-first (entries as rows over the stack)."""
+    R = None
+    for k, pr in enumerate(prims):
+        if not pr.rot:
+            continue
+        t = Qj[:, k] - pr.h
+        Rk = np.eye(3)[:, :, None] + np.sin(t) * pr.K[:, :, None] + (1.0 - np.cos(t)) * pr.K2[:, :, None]
+        R = Rk if R is None else R[:, 0, None] * Rk[0] + R[:, 1, None] * Rk[1] + R[:, 2, None] * Rk[2]
+    if R is None:
+        return np.broadcast_to(np.eye(3), (Qj.shape[0], 3, 3)).copy()
+    return np.moveaxis(R, -1, 0)
 
 
 def derive(s, Q, masters):
@@ -574,15 +586,6 @@ def eval_one(s, plan, q, jac=True):
     return r, errs, big @ Wq
 
 
-def _compose_soa(a, b):
-    """Rigid products ``a b`` of stacks held component-first: (3, 4, ...) top rows of 4x4."""
-    out = a[:, 0, None] * b[0]
-    out += a[:, 1, None] * b[1]
-    out += a[:, 2, None] * b[2]
-    out[:, 3] += a[:, 3]
-    return out
-
-
 def eval_stack(s, plan, Q, jac=True):
     """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
     Jacobian (B, 6 nl, ncols) (None without ``jac``).
@@ -597,10 +600,10 @@ def eval_stack(s, plan, Q, jac=True):
     coef[:, 0] = th
     coef[:, 1] = 1.0 - np.cos(th)
     coef[:, 2] = th - np.sin(th)
-    E = (plan["p12"] @ coef).reshape(-1, 3, 4, B)  # (P + 1, 3, 4, B), identity added below
-    E[:, 0, 0] += 1.0
-    E[:, 1, 1] += 1.0
-    E[:, 2, 2] += 1.0
+    E = np.moveaxis((plan["p12"] @ coef).reshape(-1, 3, 4, B), 0, 2)  # (3, 4, P + 1, B)
+    E[0, 0] += 1.0  # the identity of the exponential
+    E[1, 1] += 1.0
+    E[2, 2] += 1.0
     A = np.zeros((3, 4, nl, B))
     A[0, 0] = A[1, 1] = A[2, 2] = 1.0
     site = np.empty((3, nl, B))
@@ -626,13 +629,13 @@ def eval_stack(s, plan, Q, jac=True):
             vr[sel] = (R[:, 0] * v[0] + R[:, 1] * v[1] + R[:, 2] * v[2]).transpose(1, 0, 2)
             pp[sel] = A[:, 3][:, lps].transpose(1, 0, 2)
         if k < kmax:
-            A = _compose_soa(A, np.moveaxis(E[plan["fidx"][:, k]], 0, 2))
-    w, v = spatial.log_rp(np.moveaxis(A[:, :3], (0, 1), (-2, -1)).reshape(-1, 3, 3),
-                          np.moveaxis(A[:, 3], 0, -1).reshape(-1, 3))  # rows (loop, state)
-    w = w.reshape(nl, B, 3)
-    v = v.reshape(nl, B, 3) + spatial.cross(w, np.moveaxis(site, 0, -1))
-    r = np.concatenate([w, v], axis=2).transpose(1, 0, 2).reshape(B, 6 * nl)
-    errs = np.maximum(np.abs(w).max(axis=2), np.abs(v).max(axis=2) * s.pos_weight).max(axis=0)
+            A = spatial.compose_soa(A, E[:, :, plan["fidx"][:, k]])
+    w, v = spatial.log_soa(A)  # (3, nl, B) each
+    v[0] += w[1] * site[2] - w[2] * site[1]
+    v[1] += w[2] * site[0] - w[0] * site[2]
+    v[2] += w[0] * site[1] - w[1] * site[0]
+    r = np.concatenate([w, v]).reshape(6, nl, B).transpose(2, 1, 0).reshape(B, 6 * nl)
+    errs = np.maximum(np.abs(w).max(axis=0), np.abs(v).max(axis=0) * s.pos_weight).max(axis=0)
     if not jac:
         return r, errs, None
     if not want:
@@ -640,11 +643,13 @@ def eval_stack(s, plan, Q, jac=True):
     d = pp - site[:, plan["src_loop"]].transpose(1, 0, 2)  # (ns, 3, B)
     tw = np.empty((ns, 6, B))
     tw[:, :3] = wr
-    tw[:, 3:] = vr + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
+    tw[:, 3] = vr[:, 0] + d[:, 1] * wr[:, 2] - d[:, 2] * wr[:, 1]
+    tw[:, 4] = vr[:, 1] + d[:, 2] * wr[:, 0] - d[:, 0] * wr[:, 2]
+    tw[:, 5] = vr[:, 2] + d[:, 0] * wr[:, 1] - d[:, 1] * wr[:, 0]
     tw *= plan["src_sign"][:, :, None]
-    J = np.zeros((nl, plan["ncols"], 6, B))
+    J = np.zeros((B, nl, 6, plan["ncols"]))
     for k, li, c, a in plan["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
-        J[li, c] += a * tw[k]
+        J[:, li, :, c] += a * tw[k].T
     for k, c, i, g in plan["varying"]:
-        J[plan["src_loop"][k], c] += s.member_slope(i, Q[:, g])[None, :] * tw[k]
-    return r, errs, J.transpose(3, 0, 2, 1).reshape(B, 6 * nl, plan["ncols"])
+        J[:, plan["src_loop"][k], :, c] += (s.member_slope(i, Q[:, g])[None, :] * tw[k]).T
+    return r, errs, J.reshape(B, 6 * nl, plan["ncols"])

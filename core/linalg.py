@@ -14,38 +14,82 @@ import numpy as np
 
 from .units import CONTRACTION, NOISE_STEP, NORMAL_CERT, ORIENT_RATIO
 
-__all__ = ["chol_solve", "least_norm", "lstsq_small", "lstsq_svd", "orientation_frame",
+__all__ = ["chol_factor", "chol_apply", "chol_solve", "least_norm", "least_norm_factor", "least_norm_apply",
+           "tmul", "det_stack", "lstsq_small", "lstsq_svd", "orientation_frame",
            "orientation_agrees", "branch_step_certified"]
+
+
+def chol_factor(G):
+    """Cholesky factors of stacks of symmetric positive (semi)definite ``G`` (B, g, g), scaled
+    to unit Frobenius norm, held component-first: ``(L, scale, cert)`` with ``L[i][k]`` rows
+    (B,) for k <= i, ``scale`` (B,) the norms and ``cert = det(G) / |G|_F^g`` (B,), the
+    scale-free certificate used for singular flags.  A tiny shift (1e-13) keeps singular
+    stacks finite."""
+    B, g, _ = G.shape
+    fro = np.sqrt((G * G).sum(axis=(1, 2)))
+    scale = np.maximum(fro, 1e-300)
+    Gs = np.moveaxis(G, 0, -1) / scale  # (g, g, B)
+    mu = 1e-13
+    L = [[None] * g for _ in range(g)]
+    cert = np.ones(B)
+    for i in range(g):
+        for k in range(i + 1):
+            acc = Gs[i, k]
+            for j in range(k):
+                acc = acc - L[i][j] * L[k][j]
+            if i == k:
+                L[i][i] = np.sqrt(np.maximum(acc + mu, mu))
+                cert = cert * (L[i][i] * L[i][i])
+            else:
+                L[i][k] = acc / L[k][k]
+    return L, scale, cert
+
+
+def chol_apply(factor, b):
+    """Solve ``G x = b`` (b (B, g, k)) with the factors of :func:`chol_factor`; x (B, g, k)."""
+    L, scale, _ = factor
+    g = len(L)
+    bs = np.moveaxis(b, 0, -1) / scale  # (g, k, B)
+    y = [None] * g
+    for i in range(g):
+        acc = bs[i]
+        for j in range(i):
+            acc = acc - L[i][j] * y[j]
+        y[i] = acc / L[i][i]
+    x = [None] * g
+    for i in reversed(range(g)):
+        acc = y[i]
+        for j in range(i + 1, g):
+            acc = acc - L[j][i] * x[j]
+        x[i] = acc / L[i][i]
+    return np.moveaxis(np.stack(x), -1, 0) if g else np.zeros_like(b)
 
 
 def chol_solve(G, b):
     """Solve G x = b for stacks of symmetric positive (semi)definite G (B, g, g), b (B, g, k).
 
-    Vectorised Cholesky over the stack; returns (x, det(G) / |G|_F^g) where the second is
-    the scale-free certificate used for singular flags."""
-    B, g, _ = G.shape
-    fro = np.sqrt((G * G).sum(axis=(1, 2)))
-    scale = np.maximum(fro, 1e-300)
-    Gs = G / scale[:, None, None]
-    mu = 1e-13
-    L = np.zeros_like(Gs)
-    for i in range(g):
-        for k in range(i + 1):
-            acc = Gs[:, i, k] - (L[:, i, :k] * L[:, k, :k]).sum(axis=1)
-            if i == k:
-                L[:, i, i] = np.sqrt(np.maximum(acc + mu, mu))
-            else:
-                L[:, i, k] = acc / L[:, k, k]
-    diag = np.stack([L[:, i, i] for i in range(g)], axis=1)
-    cert = np.prod(diag * diag, axis=1)
-    y = np.zeros_like(b)
-    bs = b / scale[:, None, None]
-    for i in range(g):
-        y[:, i] = (bs[:, i] - (L[:, i, :i, None] * y[:, :i]).sum(axis=1)) / L[:, i, i, None]
-    x = np.zeros_like(b)
-    for i in reversed(range(g)):
-        x[:, i] = (y[:, i] - (L[:, i + 1:, i, None] * x[:, i + 1:]).sum(axis=1)) / L[:, i, i, None]
-    return x, cert
+    Vectorised Cholesky over the stack (:func:`chol_factor`); returns (x, det(G) / |G|_F^g)
+    where the second is the scale-free certificate used for singular flags."""
+    fac = chol_factor(G)
+    return chol_apply(fac, b), fac[2]
+
+
+def least_norm_factor(Js):
+    """The factorisation :func:`least_norm` uses for ``Js`` (B, m, k): reuse it for several
+    right-hand sides (:func:`least_norm_apply`)."""
+    B, mrow, ncol = Js.shape
+    if ncol <= mrow:
+        return Js, True, chol_factor(tmul(Js, Js))
+    Jt = np.swapaxes(Js, 1, 2)
+    return Js, False, chol_factor(tmul(Jt, Jt))
+
+
+def least_norm_apply(factor, rhs):
+    """Least-norm / least-squares solutions for ``rhs`` (B, m, k) from :func:`least_norm_factor`."""
+    Js, tall, fac = factor
+    if tall:
+        return chol_apply(fac, tmul(Js, rhs))
+    return tmul(Js, chol_apply(fac, rhs))
 
 
 def least_norm(Js, rhs):
@@ -53,13 +97,35 @@ def least_norm(Js, rhs):
 
     Normal equations on the smaller side: (J^T J) x = J^T rhs when J has no more columns
     than rows, else x = J^T (J J^T)^-1 rhs.  Returns (x, certificate)."""
-    B, mrow, ncol = Js.shape
-    Jt = np.swapaxes(Js, 1, 2)
-    if ncol <= mrow:
-        x, cert = chol_solve(Jt @ Js, Jt @ rhs)
-        return x, cert
-    y, cert = chol_solve(Js @ Jt, rhs)
-    return Jt @ y, cert
+    fac = least_norm_factor(Js)
+    return least_norm_apply(fac, rhs), fac[2][2]
+
+
+def tmul(A, Bm):
+    """``A^T Bm`` of stacks A (B, m, k), Bm (B, m, c) -> (B, k, c), by elementwise products."""
+    Ac = np.moveaxis(A, 0, -1)
+    Bc = np.moveaxis(Bm, 0, -1)
+    k, c = A.shape[2], Bm.shape[2]
+    out = np.empty((k, c, A.shape[0]))
+    for i in range(k):
+        for j in range(c):
+            out[i, j] = (Ac[:, i] * Bc[:, j]).sum(axis=0)
+    return np.moveaxis(out, -1, 0)
+
+
+def det_stack(M):
+    """Determinants of stacked square matrices (B, k, k); closed forms, elementwise, up to 3 x 3."""
+    k = M.shape[-1]
+    if k == 1:
+        return M[:, 0, 0].copy()
+    if k == 2:
+        return M[:, 0, 0] * M[:, 1, 1] - M[:, 0, 1] * M[:, 1, 0]
+    if k == 3:
+        a, b, c = M[:, 0, 0], M[:, 0, 1], M[:, 0, 2]
+        d, e, f = M[:, 1, 0], M[:, 1, 1], M[:, 1, 2]
+        g, h, i = M[:, 2, 0], M[:, 2, 1], M[:, 2, 2]
+        return a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
+    return np.linalg.det(M)
 
 
 def lstsq_small(a, b, rcond):

@@ -343,6 +343,8 @@ class Model:
         """Displacements from home of every link for internal coordinates ``q`` (n,) or a
         stack of them (B, n)."""
         q = np.asarray(q, dtype=float)
+        if q.ndim == 2 and q.shape[0] > 8 and q.shape[1]:
+            return self._link_poses_stack(q)
         es = self.joint_transforms(q)
         out = {self.ground: np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
         for link in self.order[1:]:
@@ -353,6 +355,47 @@ class Model:
             else:
                 out[link] = out[j.child] @ spatial.inverse(es[jname])
         return {name: np.array(out[name]) for name in self.links}
+
+    def _link_poses_stack(self, q):
+        """:meth:`link_poses` of a stack (B, n), computed component-first (each entry of
+        the transforms a row over the stack: elementwise products instead of many tiny
+        4x4 ones): one product of the coefficient rows with the stacked powers gives every
+        primitive's exponential (:func:`spatial.exp_unit`), then the joints and the tree."""
+        if self._powers is None:
+            screws = [p.screw for j in self.joints.values() for p in j.primitives]
+            self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
+        B = q.shape[0]
+        th = (q - self.home).T  # (n, B)
+        coef = np.empty((th.shape[0], 3, B))
+        coef[:, 0] = th
+        coef[:, 1] = 1.0 - np.cos(th)
+        coef[:, 2] = th - np.sin(th)
+        p12 = np.ascontiguousarray(self._powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1))
+        E = np.moveaxis((p12 @ coef).reshape(-1, 3, 4, B), 0, 2)  # (3, 4, n, B)
+        E[0, 0] += 1.0
+        E[1, 1] += 1.0
+        E[2, 2] += 1.0
+        eye = np.zeros((3, 4, B))
+        eye[0, 0] = eye[1, 1] = eye[2, 2] = 1.0
+        out = {self.ground: eye}
+        for link in self.order[1:]:
+            jname, sign = self.tree_parent[link]
+            j = self.joints[jname]
+            sl = self._slices[jname]
+            t = eye
+            if sl.stop > sl.start:
+                t = E[:, :, sl.start]
+                for k in range(sl.start + 1, sl.stop):
+                    t = spatial.compose_soa(t, E[:, :, k])
+            out[link] = (spatial.compose_soa(out[j.parent], t) if sign > 0
+                         else spatial.compose_soa(out[j.child], spatial.inverse_soa(t)))
+        res = {}
+        for name in self.links:
+            mat = np.zeros((B, 4, 4))
+            mat[:, :3, :] = np.moveaxis(out[name], -1, 0)
+            mat[:, 3, 3] = 1.0
+            res[name] = mat
+        return res
 
     def _held_from(self, values):
         held = {}

@@ -298,6 +298,56 @@ def log_rp(R, p):
     return w, p - 0.5 * wp + coef[:, None] * cross(w, wp)
 
 
+def compose_soa(a, b):
+    """Rigid products ``a b`` of stacks held component-first: (3, 4, ...) the top rows of
+    4x4 transforms, each entry an array over the stack (elementwise, no tiny matrix products)."""
+    out = a[:, 0, None] * b[0]
+    out += a[:, 1, None] * b[1]
+    out += a[:, 2, None] * b[2]
+    out[:, 3] += a[:, 3]
+    return out
+
+
+def inverse_soa(t):
+    """Inverses of rigid motions held component-first (3, 4, ...): ``(R^T, -R^T p)``."""
+    out = np.empty_like(t)
+    out[:, :3] = np.swapaxes(t[:, :3], 0, 1)
+    out[:, 3] = -(out[:, 0] * t[0, 3] + out[:, 1] * t[1, 3] + out[:, 2] * t[2, 3])
+    return out
+
+
+def log_soa(T):
+    """:func:`log_rp` of rigid motions held component-first: ``T`` (3, 4, ...) the top rows
+    of 4x4 transforms, each entry an array over the stack.  Returns ``(w, v)``, each
+    (3, ...), by the same rules (elementwise; the few rotations near pi through
+    :func:`log3`)."""
+    r = T
+    k0 = 0.5 * (r[2, 1] - r[1, 2])
+    k1 = 0.5 * (r[0, 2] - r[2, 0])
+    k2 = 0.5 * (r[1, 0] - r[0, 1])
+    s = np.sqrt(k0 * k0 + k1 * k1 + k2 * k2)
+    c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
+    ang = np.arctan2(s, c)
+    small = ang < 1e-4
+    f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(s > 0, s, 1.0))
+    w = np.stack([k0 * f, k1 * f, k2 * f])
+    far = ang > 2.5
+    if far.any():  # near pi: the skew part vanishes; the axis comes from the symmetric part
+        w[:, far] = log3(np.moveaxis(r[:, :3][:, :, far], -1, 0)).T
+        ang = np.sqrt((w * w).sum(axis=0))
+        small = ang < 1e-4
+    a_ = np.where(small, 1.0, ang)
+    coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
+    p = r[:, 3]
+    wp0 = w[1] * p[2] - w[2] * p[1]
+    wp1 = w[2] * p[0] - w[0] * p[2]
+    wp2 = w[0] * p[1] - w[1] * p[0]
+    v = np.stack([p[0] - 0.5 * wp0 + coef * (w[1] * wp2 - w[2] * wp1),
+                  p[1] - 0.5 * wp1 + coef * (w[2] * wp0 - w[0] * wp2),
+                  p[2] - 0.5 * wp2 + coef * (w[0] * wp1 - w[1] * wp0)])
+    return w, v
+
+
 def adjoint_apply(R, p, X):
     """``Ad(R, p)`` applied to twists X: (k, 6) or (B, k, 6) -> (B, k, 6), without building
     the 6x6 matrices: ``(R w, R v + p x R w)`` (ref. 1, eq. 2.58)."""

@@ -630,8 +630,8 @@ def _certificate(ev, Q, want_js=True):
     Js = J * ev.rs[None, :, None] * cs[None, None, :]
     B, mr, nc = Js.shape
     Jt = np.swapaxes(Js, 1, 2)
-    G = Jt @ Js if nc <= mr else Js @ Jt
-    _, cert = _chol_solve(G, np.zeros((B, G.shape[1], 1)))
+    G = linalg.tmul(Js, Js) if nc <= mr else linalg.tmul(Jt, Jt)
+    cert = linalg.chol_factor(G)[2]
     return cert, Js
 
 
@@ -735,12 +735,7 @@ def _rot_diff(ev, A, Bq):
 
 
 def _joint_rotation(ev, jn, q):
-    prs = ev.prims[jn]
-    sl = ev.m._slices[jn]
-    T = prs[0].exp(q[:, 0])
-    for k in range(1, len(prs)):
-        T = _compose(T, prs[k].exp(q[:, k]))
-    return np.asarray(T[0])
+    return kinematics.joint_rotations(ev.prims[jn], q)
 
 
 def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
@@ -782,28 +777,29 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
         _derive(s, X0, ev.held)
     r0, _, J0 = ev.eval(X0, cols)
     Js0 = J0 * rs[None, :, None] * cs[None, None, :]
-    d0 = _least_norm(Js0, -(r0 * rs[None, :])[:, :, None])[0][:, :, 0]
+    fac0 = linalg.least_norm_factor(Js0)  # one factorisation for both chord increments
+    d0 = linalg.least_norm_apply(fac0, -(r0 * rs[None, :])[:, :, None])[:, :, 0]
     X1 = X0.copy()
     ev.apply(X1, d0 * cs[None, :], cols)
     r1 = ev.eval(X1)[0]
-    d1 = _least_norm(Js0, -(r1 * rs[None, :])[:, :, None])[0][:, :, 0]
+    d1 = linalg.least_norm_apply(fac0, -(r1 * rs[None, :])[:, :, None])[:, :, 0]
     diff = _rot_diff(ev, X0, Qb)
     if rank < k:  # idle freedoms (a coupler's spin) are not part of the branch: row-space part
-        diff = _least_norm(Js0, (Js0 @ diff[:, :, None]))[0][:, :, 0]
+        diff = linalg.least_norm_apply(fac0, (Js0 @ diff[:, :, None]))[:, :, 0]
     ok = branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1),
                                np.linalg.norm(diff, axis=1))
-    Jt = np.swapaxes(Jsa, 1, 2)
     if rank == k:
-        G, M = Jt @ Jsa, Jt @ Jsb
+        G, M = linalg.tmul(Jsa, Jsa), linalg.tmul(Jsa, Jsb)
     elif rank == mrow:
-        G, M = Jsa @ Jt, Jsa @ np.swapaxes(Jsb, 1, 2)
+        Jt = np.swapaxes(Jsa, 1, 2)
+        G, M = linalg.tmul(Jt, Jt), linalg.tmul(Jt, np.swapaxes(Jsb, 1, 2))
     else:
         frame = orientation_frame(Jsa, rank)
         return ok, orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
     # how well the orientation is defined: det(G) against |G|^g (the engine's certificate)
-    defined = _chol_solve(G, np.zeros((B, G.shape[1], 1)))[1]
+    defined = linalg.chol_factor(G)[2]
     degenerate = defined < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
-    return ok, (np.linalg.det(M) > 0) | degenerate, degenerate
+    return ok, (linalg.det_stack(M) > 0) | degenerate, degenerate
 
 
 def _scaled_jacobian(ev, Q):
