@@ -93,6 +93,7 @@ class Body:
         self.edges, _ = px.triangle_edges(tris)
         self.closed = px.is_closed(tris)
         self.centre, self.radius = px.bounding_sphere(verts)
+        self.box = verts.min(axis=0), verts.max(axis=0)
         lengths = np.linalg.norm(verts[self.edges[:, 0]] - verts[self.edges[:, 1]], axis=1)
         self.half_edge = 0.5 * lengths
         self.longest_edge = float(lengths.max()) if len(lengths) else 0.0
@@ -320,7 +321,10 @@ def _overlap(a, b, va, vb0, gaps):
     if pairs:
         ia, ib = pairs[0]
         return True, (va[tris[ia]].mean(axis=0), b.verts[b.tris[ib]].mean(axis=0)), built
-    if a.closed and b.closed and (px.inside_closed(va[0], b.verts, b.tris)
+    # wholly inside: every vertex of A within B's box, then one inside B (or the same
+    # the other way round)
+    if a.closed and b.closed and ((np.all(va >= b.box[0]) and np.all(va <= b.box[1])
+                                   and px.inside_closed(va[0], b.verts, b.tris))
                                   or px.inside_closed(vb0, a.verts, a.tris)):
         return True, (va[0], va[0]), built
     return False, None, built
@@ -332,7 +336,7 @@ def _overlap(a, b, va, vb0, gaps):
 _SPECTRAL = 0.7072
 # how far past the best distance so far a visited frame's own distance is found: the
 # farther, the more frames around it its distance rules out, at more queries per frame
-MARGIN = 0.0
+MARGIN = 0.5
 
 
 def _norms(x):
@@ -340,22 +344,41 @@ def _norms(x):
 
 
 class _Motion:
-    """How far points of A may move relative to B between a frame ``i`` and every frame
-    (so how much the distance between them may change): of A relative to B (centre and
-    rotation of A in B's frame), of B relative to A, or of each in the world, the two
-    added; the smallest counts. The same for each group of A with its own centre and
-    radius."""
+    """Lower bounds of the distance at every frame from a lower bound ``d`` at frame
+    ``i``, by how far points of A may move relative to B in between.
 
-    def __init__(self, a, b, t, tinv, groups):
+    1. Displacement: of A relative to B (centre and rotation of A in B's frame), of B
+       relative to A, or of each in the world, the two added; the smallest counts. The
+       same for each group of A with its own centre and radius.
+    2. Per pair of groups ``k`` of A, ``l`` of B (centres ``c``, radii ``r``), in B's
+       frame: a point pair is ``s + e`` with ``s = c_k - c_l`` and ``|e| <= r_k + r_l``;
+       from frame ``i`` to ``f`` the pair's distance falls by at most
+       ``|s_f - s_i|``'s part along ``s`` (``||s_f| - |s_i||``), plus the turn of ``s``
+       acting on ``e`` (the chord ``|s_f/|s_f| - s_i/|s_i||`` times ``r_k + r_l``), plus
+       A's turn acting on its offset (``|R_f - R_i|_2 r_k``). Parts that move sideways
+       to their separation, as two far arms turning together, barely change it.
+    The frame's bound is the smallest over the groups (or group pairs), and never below
+    the groups' sphere gaps there."""
+
+    def __init__(self, a, b, t, tinv, groups, gaps):
         self.a, self.b = a, b
         self.rot = t[:, :3, :3].reshape(-1, 9)
         self.ca = np.einsum("nij,j->ni", t[:, :3, :3], a.centre) + t[:, :3, 3]
         self.cb = np.einsum("nij,j->ni", tinv[:, :3, :3], b.centre) + tinv[:, :3, 3]
         self.groups = groups
+        self.gaps = gaps
+        sep = groups[:, :, None, :] - b.group_centres[None, None]          # (N, Ka, Kb, 3)
+        self.sep_len = _norms(sep)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.sep_dir = sep / self.sep_len[..., None]                   # nan where 0
+        self.reach = a.group_radii[:, None] + b.group_radii[None, :]
+
+    def turn(self, i):
+        return _SPECTRAL * _norms(self.rot - self.rot[i])
 
     def __call__(self, i):
         a, b = self.a, self.b
-        turn = _SPECTRAL * _norms(self.rot - self.rot[i])
+        turn = self.turn(i)
         turn_a = _SPECTRAL * _norms(a.world_flat - a.world_flat[i])
         move_b = (_norms(b.world_centre - b.world_centre[i])
                   + _SPECTRAL * _norms(b.world_flat - b.world_flat[i]) * b.radius)
@@ -368,6 +391,13 @@ class _Motion:
             + move_b[:, None])
         return move, move_groups
 
+    def pairs(self, i, d, frames):
+        """Bound 2 at ``frames`` (indices) from ``d`` at frame ``i``."""
+        chord = _norms(self.sep_dir[frames] - self.sep_dir[i])
+        fall = (chord * self.reach + np.abs(self.sep_len[frames] - self.sep_len[i])
+                + self.turn(i)[frames, None, None] * self.a.group_radii[None, :, None])
+        return np.fmax(d - fall, self.gaps[frames]).min(axis=(1, 2))   # nan (no direction): gaps
+
 
 def check_pair(a, b, frames, timer):
     """Overlap at every frame and smallest distance over the frames for bodies ``a``, ``b``.
@@ -375,19 +405,15 @@ def check_pair(a, b, frames, timer):
     Frames are visited lowest lower bound first. The bound of a frame starts as the
     smallest gap between the two meshes' groups of triangles (their bounding spheres)
     and is raised by every frame ``g`` where a lower bound ``d_g`` of the distance is
-    known: between two frames no point of A moves relative to B by more than
-    ``|c(f) - c(g)| + |R(f) - R(g)|_2 r_A`` (centre and rotation of A in B's frame; the
-    same the other way round, or the two bodies' own motions in the world added; the
-    smallest counts, :class:`_Motion`), and the distance changes no faster than the
-    points move. The same holds for each group of A with its own centre and radius
-    (every group is at least ``d_g`` from B at ``g``), and the frame's bound is the
-    smallest over them. At a visited frame the distance is found exactly up to the best
-    so far plus a margin (:data:`MARGIN` times the two meshes' longest edges), so its
-    bound rules out the frames around it; a frame that the finer groups' spheres
-    already keep above the best needs no mesh query, and its sphere bound does the
-    same. Frames whose bound is above zero cannot touch; frames whose bound is above
-    the best distance cannot hold the minimum; once the pair touches, only frames that
-    may touch are visited. So every frame is decided without querying most of them."""
+    known, by how far the parts can move in between (:class:`_Motion`: displacements
+    of the bodies and their groups, and, per pair of groups, how much their separation
+    can shrink). At a visited frame the distance is found exactly up to the best so far
+    plus a margin (:data:`MARGIN` times the two meshes' longest edges), so its bound
+    rules out the frames around it; a frame that the finer groups' spheres already keep
+    above the best needs no mesh query, and its sphere bound does the same. Frames
+    whose bound is above zero cannot touch; frames whose bound is above the best
+    distance cannot hold the minimum; once the pair touches, only frames that may touch
+    are visited. So every frame is decided without querying most of them."""
     res = PairResult(a, b)
     t = b.rel_inv @ a.rel                                   # a (world now) -> b's frame now
     tinv = a.rel_inv @ b.rel                                # b (world now) -> a's frame now
@@ -395,7 +421,7 @@ def check_pair(a, b, frames, timer):
     gaps = px.group_gaps(groups, a.group_radii, b.group_centres, b.group_radii)   # (N, Ka, Kb)
     low_groups = gaps.min(axis=2)                          # (N, Ka): each group of A to B
     low = low_groups.min(axis=1)
-    motion = _Motion(a, b, t, tinv, groups)
+    motion = _Motion(a, b, t, tinv, groups, gaps)
     margin = MARGIN * (a.longest_edge + b.longest_edge)
     n = len(frames)
     undecided = np.ones(n, dtype=bool)
@@ -406,7 +432,10 @@ def check_pair(a, b, frames, timer):
         nonlocal low, low_groups
         move, move_groups = motion(i)
         low_groups = np.maximum(low_groups, d - move_groups)
-        low = np.maximum(low_groups.min(axis=1), d - move)
+        low = np.maximum(low, np.maximum(low_groups.min(axis=1), d - move))
+        open_ = np.flatnonzero(undecided & ((low <= 0.0) | (low < best)))
+        if len(open_):
+            low[open_] = np.maximum(low[open_], motion.pairs(i, d, open_))
 
     while True:
         need = undecided & ((low <= 0.0) | (low < best))

@@ -216,6 +216,9 @@ def inside_closed(point, verts, tris):
     replaced by the next direction). A point on the surface, where every ray grazes,
     counts as outside (touching, not overlapping)."""
     verts = np.asarray(verts, dtype=float)
+    p = np.asarray(point, dtype=float)
+    if len(verts) == 0 or np.any(p < verts.min(axis=0)) or np.any(p > verts.max(axis=0)):
+        return False  # outside the bounding box
     tris = np.asarray(tris, dtype=np.int64).reshape(-1, 3)
     a, b, c = verts[tris[:, 0]], verts[tris[:, 1]], verts[tris[:, 2]]
     for d in _RAYS:
@@ -295,8 +298,8 @@ def group_gaps(ca, ra, cb, rb):
     """Gaps between the groups' spheres of two meshes, ``(..., Ka, Kb)``: ``ca``
     ``(..., Ka, 3)`` (may carry a leading stack of placements), ``cb`` ``(Kb, 3)``.
     Their minimum is a lower bound of the distance between the meshes."""
-    d = np.linalg.norm(np.asarray(ca)[..., :, None, :] - cb, axis=-1)
-    return d - ra[:, None] - rb[None, :]
+    diff = np.asarray(ca)[..., :, None, :] - cb
+    return np.sqrt(np.einsum("...i,...i->...", diff, diff)) - ra[:, None] - rb[None, :]
 
 
 def point_gaps(points, centres, radii):
