@@ -20,6 +20,8 @@ q_dot_leader^2``: the ``f''`` term joins the right-hand side beside :func:`loop_
 """
 from __future__ import annotations
 
+import weakref
+
 import numpy as np
 
 from . import spatial
@@ -169,7 +171,7 @@ def link_motion(model, Q, Qd, link, *, rot=(), links=None):
     Q = np.asarray(Q, dtype=float)
     B, n = Q.shape
     if links is not None:
-        (R, p), cols, walk = _framed_columns(model, Q, link, rot, links)
+        (R, p), cols, walk = _framed_columns(model, Q, link, rot, links, Qd is not None)
     else:
         R = np.broadcast_to(np.eye(3), (B, 3, 3))
         p = np.zeros((B, 3))
@@ -192,35 +194,64 @@ def link_motion(model, Q, Qd, link, *, rot=(), links=None):
     return (R, p), cols, V, bias
 
 
-def _framed_columns(model, Q, link, rot, links):
+_FRAMED = weakref.WeakKeyDictionary()  # model -> {(link, rot joints on its path): plan}
+
+
+def _framed_plan(model, link, rot):
+    """What :func:`_framed_columns` reads for ``link``: per primitive of its tree path (in
+    product order) the joint's parent link, its screw (None for a compound joint's, which
+    depends on the state), the walking sign and the coordinate."""
+    path = _path_from_ground(model, link)
+    key = (link, frozenset(jn for jn, _ in path if jn in rot))
+    plans = _FRAMED.get(model)
+    if plans is None:
+        plans = _FRAMED[model] = {}
+    plan = plans.get(key)
+    if plan is None:
+        parents, xs, signs, idx, compound = [], [], [], [], []
+        for jn, sign in path:
+            j = model.joints[jn]
+            k = len(j.primitives)
+            if not k:
+                continue
+            fixed = j.rotation_twists() if jn in key[1] else (j.screws if k == 1 else None)
+            if fixed is None:
+                compound.append((jn, len(idx), k, sign))
+            start = model._slices[jn].start
+            for i in (range(k) if sign > 0 else reversed(range(k))):
+                parents.append(j.parent)
+                xs.append(np.zeros(6) if fixed is None else fixed[i])
+                signs.append(float(sign))
+                idx.append(start + i)
+        plan = plans[key] = (parents, np.array(xs).reshape(-1, 6), np.array(signs)[None, :, None],
+                             np.array(idx, dtype=int), compound)
+    return plan
+
+
+def _framed_columns(model, Q, link, rot, links, want_walk=True):
     """:func:`link_motion`'s columns with the frames read from link displacements: every
     primitive of the path carried by its joint's parent frame in one stacked adjoint."""
     B, n = Q.shape
-    parents, xs, signs, idx = [], [], [], []
-    for jn, sign in _path_from_ground(model, link):
-        j = model.joints[jn]
-        k = len(j.primitives)
-        if not k:
-            continue
-        X = j.rotation_twists() if jn in rot else (j.screws if k == 1 else joint_motion(model, jn, Q)[1])
-        X = np.broadcast_to(X, (B, k, 6))
-        start = model._slices[jn].start
-        for i in (range(k) if sign > 0 else reversed(range(k))):
-            parents.append(j.parent)
-            xs.append(X[:, i])
-            signs.append(float(sign))
-            idx.append(start + i)
+    parents, X0, signs, idx, compound = _framed_plan(model, link, rot)
     D = np.asarray(links[link]).reshape(-1, 4, 4)
     cols = np.zeros((B, 6, n))
-    if not idx:
+    if not len(idx):
         return (D[:, :3, :3], D[:, :3, 3]), cols, []
-    F = np.stack([np.asarray(links[name]).reshape(-1, 4, 4) for name in parents], axis=1)  # (B, M, 4, 4)
-    X = np.stack(xs, axis=1)                                                                  # (B, M, 6)
-    w = (F[..., :3, :3] @ X[..., :3, None])[..., 0]
-    v = (F[..., :3, :3] @ X[..., 3:, None])[..., 0] + spatial.cross(F[..., :3, 3], w)
-    tw = np.concatenate([w, v], axis=-1) * np.array(signs)[None, :, None]  # Ad(F) X (ref. eq. 2.58)
+    X = np.broadcast_to(X0, (B,) + X0.shape)
+    if compound:
+        X = X.copy()
+        for jn, at, k, sign in compound:
+            Xj = np.broadcast_to(joint_motion(model, jn, Q)[1], (B, k, 6))
+            X[:, at:at + k] = Xj if sign > 0 else Xj[:, ::-1]
+    F = [links[name] for name in parents]
+    F = np.stack(F)[None] if np.ndim(F[0]) == 2 else np.stack(F, axis=1)  # (B, M, 4, 4)
+    Rf = F[..., :3, :3]
+    w = (Rf @ X[..., :3, None])[..., 0]
+    v = (Rf @ X[..., 3:, None])[..., 0] + spatial.cross(F[..., :3, 3], w)
+    tw = np.concatenate([w, v], axis=-1) * signs  # Ad(F) X (ref. eq. 2.58)
     cols[:, :, idx] = np.swapaxes(tw, 1, 2)
-    return (D[:, :3, :3], D[:, :3, 3]), cols, [(i, tw[:, m]) for m, i in enumerate(idx)]
+    walk = [(i, tw[:, m]) for m, i in enumerate(idx)] if want_walk else []
+    return (D[:, :3, :3], D[:, :3, 3]), cols, walk
 
 
 def _cross_cols(w_cols, x):

@@ -165,6 +165,10 @@ def log3(r):
     part vanishes, and its sign from the skew part.
     """
     r = np.asarray(r, dtype=float)
+    if r.shape == (3, 3):  # one rotation up to about 8 deg: the scalar series
+        w = _log3_rows(r.tolist())
+        if w is not None:
+            return np.array(w[:3])
     lead = r.shape[:-2]
     r = r.reshape((-1, 3, 3))
     skew = vee(r - np.swapaxes(r, 1, 2)) / 2  # sin(ang) * axis
@@ -235,15 +239,11 @@ def log_rows(t):
     a 4x4), in plain floats; None where the rotation is larger than about 8 deg (use
     :func:`log_rp` there).  The series of the general formula is accurate to machine
     precision in that range (the scalar fast path of :func:`log6`)."""
-    r0, r1, r2 = t[0], t[1], t[2]
-    c = (r0[0] + r1[1] + r2[2] - 1.0) / 2.0
-    if c <= 0.99:
+    rot = _log3_rows(t)
+    if rot is None:
         return None
-    k0, k1, k2 = (r2[1] - r1[2]) / 2.0, (r0[2] - r2[0]) / 2.0, (r1[0] - r0[1]) / 2.0
-    s = math.sqrt(k0 * k0 + k1 * k1 + k2 * k2)
-    ang = math.asin(min(1.0, s))
-    f = ang / s if s > 1e-300 else 1.0
-    w0, w1, w2 = k0 * f, k1 * f, k2 * f
+    w0, w1, w2, ang = rot
+    r0, r1, r2 = t[0], t[1], t[2]
     if ang < 1e-4:
         coef = 1 / 12 + ang * ang / 720
     else:
@@ -252,6 +252,21 @@ def log_rows(t):
     a0, a1, a2 = w1 * p2 - w2 * p1, w2 * p0 - w0 * p2, w0 * p1 - w1 * p0
     b0, b1, b2 = w1 * a2 - w2 * a1, w2 * a0 - w0 * a2, w0 * a1 - w1 * a0
     return (w0, w1, w2, p0 - 0.5 * a0 + coef * b0, p1 - 0.5 * a1 + coef * b1, p2 - 0.5 * a2 + coef * b2)
+
+
+def _log3_rows(r):
+    """``(w0, w1, w2, angle)`` of one rotation given as nested lists (rows; a 4x4's upper
+    left block is read), in plain floats; None where the rotation is larger than about
+    8 deg.  ``w = asin(|s|) s / |s|`` from the skew part ``s``, exact in that range."""
+    r0, r1, r2 = r[0], r[1], r[2]
+    c = (r0[0] + r1[1] + r2[2] - 1.0) / 2.0
+    if c <= 0.99:
+        return None
+    k0, k1, k2 = (r2[1] - r1[2]) / 2.0, (r0[2] - r2[0]) / 2.0, (r1[0] - r0[1]) / 2.0
+    s = math.sqrt(k0 * k0 + k1 * k1 + k2 * k2)
+    ang = math.asin(min(1.0, s))
+    f = ang / s if s > 1e-300 else 1.0
+    return k0 * f, k1 * f, k2 * f, ang
 
 
 def cross(a, b):

@@ -299,3 +299,14 @@ def test_log3_derivative_inverse_matches_differences(angle):
     fd = (spatial.log3(E @ spatial.exp3(-w * h)) - spatial.log3(E @ spatial.exp3(w * h))) / (2 * h)
     got = -spatial.log3_derivative_inverse(spatial.log3(E)) @ w
     assert np.allclose(got, fd, atol=1e-7)
+
+
+@pytest.mark.parametrize("angle", [0.0, 1e-9, 1e-5, 0.05, 0.13, 0.15, 1.0, 3.0])
+def test_log3_of_one_rotation_matches_scipy(angle):
+    # one (3, 3) rotation takes the scalar series up to about 8 deg, the stacked form
+    # beyond: both give scipy's rotation vector
+    from jointwise import spatial
+    axis = np.array([-0.2, 0.9, 0.4]) / np.linalg.norm([-0.2, 0.9, 0.4])
+    R = Rotation.from_rotvec(axis * angle).as_matrix()
+    assert np.allclose(spatial.log3(R), axis * angle, rtol=0, atol=1e-13)
+    assert np.allclose(spatial.log3(R[None])[0], axis * angle, rtol=0, atol=1e-13)
