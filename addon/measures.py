@@ -28,7 +28,7 @@ import bpy
 import numpy as np
 from bpy.props import EnumProperty, FloatVectorProperty, StringProperty
 
-from . import animation, convert
+from . import animation, convert, posing
 from . import scene as sc
 from .convert import SceneError
 
@@ -92,22 +92,26 @@ class _WithMeasures:
         return getattr(self._mech, name)
 
 
-def evaluate(scene, mech, Q, links):
+def evaluate(scene, mech, Q, links, ramp=None):
     """Measures at states ``Q`` (N, n) with link displacements ``links`` {name: (N, 4, 4)}:
-    ``({name: (value (N,), location (N, 3) or None)}, {name: problem})``, host units."""
+    ``({name: (value (N,), location (N, 3) or None)}, {name: problem})``, host units.
+    ``ramp``: the coordinate a bake ramps (rates are taken along its motion)."""
     defs, problems = definitions(scene, mech)
     if not defs:
         return {}, problems
     from jointwise.measures import evaluate as core_evaluate
     Q = np.atleast_2d(Q)
-    single = {n: m for n, m in defs.items() if m.type == "rate"} if len(Q) == 1 else {}
-    rest = {n: m for n, m in defs.items() if n not in single}
+    rates = {n: m for n, m in defs.items() if m.type == "rate"}
+    rest = {n: m for n, m in defs.items() if n not in rates}
     values = core_evaluate(_WithMeasures(mech, rest), Q, links)[0] if rest else {}
-    for name, m in single.items():
-        try:
-            values[name] = np.array([_rate_at(mech, Q[0], m.of, m.per)])
-        except AttributeError:  # a core without the one-pose tangent: the batched evaluation
-            values.update(core_evaluate(_WithMeasures(mech, {name: m}), Q, links)[0])
+    for name, m in rates.items():
+        held = rate_held(scene, mech, m.of, m.per, ramp)
+        if len(Q) == 1:
+            values[name] = np.array([_rate_at(mech, Q[0], m.of, m.per, held)])
+        else:
+            masters = {int(mech.solver.master[i]) for i in held}
+            values.update(core_evaluate(_WithMeasures(mech, {name: m}), Q, links,
+                                        held_masters=masters)[0])
     g = sc.ground_displacement(scene)
     out = {}
     for name, m in defs.items():
@@ -122,22 +126,31 @@ def evaluate(scene, mech, Q, links):
     return out, problems
 
 
-def _rate_at(mech, q, of, per):
-    """d(of)/d(per) at one state ``q`` (host units: the scene mechanism is in radians and
-    scene units) from the constraint Jacobian (``Solver.tangent``, least norm), with the
-    drives held except ``of``, ``per`` and, when ``per`` is not a drive, the drives of its
-    loop block (``per`` takes their place as the input, as in the core's rate measure).
+def rate_held(scene, mech, of, per, ramp=None):
+    """Coordinate indices held while ``per`` moves, for the rate d(of)/d(per), by the core's
+    one holding rule with the list's Drive flags and animated coordinates: ``per`` given (a
+    passive ``per`` releases the drives of its loop group: it takes their place as the
+    input); in a bake ramping ``ramp``, the bake's held set with ``per`` in the ramp's place
+    (as the core's batched rate does). ``of`` and ``per`` are left out."""
+    if ramp and ramp in mech.coordinates:
+        names = posing.held_names(scene, mech, given=[ramp], inputs=[ramp])
+        if per not in names:
+            names = [c for c in names if c != ramp]
+    else:
+        names = posing.held_names(scene, mech, given=[per])
+    return {mech.coordinates.index(c) for c in names if c not in (of, per)}
 
-    The same quantity as the core's batched rate (``jointwise.measures.rate``), which a
-    bake uses; one pose costs a fraction of it (host tests compare both with a sweep)."""
-    s = mech.solver
+
+def _rate_at(mech, q, of, per, held):
+    """d(of)/d(per) at one state ``q`` (host units: the scene mechanism is in radians and
+    scene units) from the constraint Jacobian (``Solver.tangent``, least norm) with the
+    coordinates ``held`` (indices, :func:`rate_held`) kept.
+
+    The same quantity as the core's batched rate (``jointwise.measures.rate``) with the
+    same held set, which a bake uses; one pose costs a fraction of it (host tests compare
+    both with a sweep)."""
     io, ip = mech.coordinates.index(of), mech.coordinates.index(per)
-    drives = {mech.coordinates.index(c) for c in mech.driven}
-    held = drives - {io, ip}
-    if ip not in drives:
-        block = s.block_of_master.get(int(s.master[ip]))
-        held = {i for i in held if s.block_of_master.get(int(s.master[i])) != block}
-    return float(s.tangent(np.asarray(q, dtype=float), held, ip)[io])
+    return float(mech.solver.tangent(np.asarray(q, dtype=float), held, ip)[io])
 
 
 # -- live values -----------------------------------------------------------------------------
@@ -180,7 +193,8 @@ def bake_channels(scene, solved):
     except KeyError as exc:
         raise SceneError(f"measures: the bake has no values of coordinate {exc}; no keys were written") from None
     links = {k: np.asarray(v, dtype=float) for k, v in solved.links.items()}
-    out, problems = evaluate(scene, mech, Q, links)
+    ramp = getattr(solved, "ramp", None)
+    out, problems = evaluate(scene, mech, Q, links, ramp=ramp[0] if ramp else None)
     channels = {}
     for name, (value, loc) in out.items():
         if not np.all(np.isfinite(value)) or (loc is not None and not np.all(np.isfinite(loc))):

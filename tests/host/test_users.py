@@ -373,3 +373,44 @@ def test_mobility_is_worked_out_once_per_structure(fresh, tmp_path, monkeypatch)
     for deg in (115.0, 110.0):
         jw.joints["a"].value = math.radians(deg)
     assert len(calls) == first + 1
+
+
+def test_a_rate_measure_holds_the_lists_drives(fresh, tmp_path):
+    """Two freedoms, two drives: the rate of c per a is taken with the other drive e held
+    (the core's holding rule, asked with the list's Drive flags), live and in a bake.
+    Reference: central differences of the core's poses with e held, h = 0.01 deg (error
+    of order h^2)."""
+    ws.make_five_bar_objects(0.001)
+    path = ws.five_bar_file(tmp_path)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    jw = fresh.jointwise
+    assert jw.joints["a"].drive and jw.joints["e"].drive and "c_per_a" in jw.measures
+    import jointwise
+    mech = jointwise.load(str(path))
+    h = 0.01
+
+    def want(a_deg, e_deg):
+        hi = mech.pose({"a": a_deg + h, "e": e_deg}).joints["c"]
+        lo = mech.pose({"a": a_deg - h, "e": e_deg}).joints["c"]
+        return (hi - lo) / (2 * h)  # deg per deg = rad per rad
+    jw.joints["a"].value = math.radians(100.0)
+    assert jw.converged, jw.message
+    assert jw.measures["c_per_a"].value == pytest.approx(want(100.0, 90.0), abs=1e-5)
+    # baked from keys of a (linear), e held by its Drive flag: the keyed rate at a sampled frame
+    it = jw.joints["a"]
+    for f, deg in ((1, 90.0), (11, 110.0)):
+        fresh.frame_set(f)
+        it.angle = math.radians(deg)
+        fresh.keyframe_insert('jointwise.joints["a"].angle', frame=f)
+    for kp in ws.fcurves_of(fresh)[0].keyframe_points:
+        kp.interpolation = 'LINEAR'
+    fresh.frame_start, fresh.frame_end = 1, 11
+    assert bpy.ops.jointwise.bake() == {"FINISHED"}, jw.message
+    fresh.frame_set(6)  # a = 100 deg
+    assert jw.measures["c_per_a"].value == pytest.approx(want(100.0, 90.0), abs=1e-5)
+    # a ramp of a is its loop's input (as --drive on the command line): e is released, and
+    # the rate is the one along that motion (least norm), no longer the one with e held
+    assert bpy.ops.jointwise.bake(frame_start=1, frame_end=11, drive="a", value_from=math.radians(90.0),
+                                  value_to=math.radians(110.0)) == {"FINISHED"}, jw.message
+    fresh.frame_set(6)
+    assert abs(jw.measures["c_per_a"].value - want(100.0, 90.0)) > 1e-2

@@ -164,6 +164,39 @@ def twin_clamp_file(folder, lift=40.0):
     return path
 
 
+# "Pantile" five-bar (two freedoms): ground pivots FA, FE; cranks FA-FB, FE-FD (30 mm, both
+# at 90 deg at home); couplers FB-FC, FD-FC (50 mm) meeting at FC.
+FA, FE = np.array([0.0, 0.0, 0.0]), np.array([60.0, 0.0, 0.0])
+FB, FD, FC = np.array([0.0, 30.0, 0.0]), np.array([60.0, 30.0, 0.0]), np.array([30.0, 70.0, 0.0])
+
+
+def make_five_bar_objects(scale=0.001):
+    return {"Left": _bar("Left", FA, FB, "XYZ", scale), "LeftArm": _bar("LeftArm", FB, FC, "XYZ", scale),
+            "RightArm": _bar("RightArm", FD, FC, "QUATERNION", scale),
+            "Right": _bar("Right", FE, FD, "XYZ", scale)}
+
+
+def five_bar_file(folder):
+    """Two cranks ``a`` and ``e`` (both Drive), one loop closed by ``c``; a rate measure of
+    ``c`` per ``a``."""
+    lines = ['format = 1', '[mechanism]', 'name = "Pantile five-bar, Pell & Marrow Toolworks"',
+             'length_unit = "mm"', 'angle_unit = "deg"', 'ground = "frame"', '[links.frame]']
+    for link, obj in (("left", "Left"), ("left_arm", "LeftArm"), ("right_arm", "RightArm"),
+                      ("right", "Right")):
+        lines += [f'[links.{link}]', f'object = "{obj}"']
+    for j, p, c, pt, extra in (("a", "frame", "left", FA, ['home = 90', 'drive = true']),
+                               ("b", "left", "left_arm", FB, []),
+                               ("c", "left_arm", "right_arm", FC, []),
+                               ("d", "right_arm", "right", FD, []),
+                               ("e", "frame", "right", FE, ['home = 90', 'drive = true'])):
+        lines += [f'[joints.{j}]', 'type = "revolute"', f'parent = "{p}"', f'child = "{c}"',
+                  f'point = {fmt(pt)}', 'axis = [0, 0, 1]'] + extra
+    lines += ['[measures.c_per_a]', 'type = "rate"', 'of = "c"', 'per = "a"']
+    path = pathlib.Path(folder) / "pantile.toml"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
 def make_vise_objects(scale=1.0):
     return {
         "Body": cube("Body", (0, 0, -10 * scale), (120 * scale, 40 * scale, 10 * scale)),
