@@ -459,7 +459,7 @@ _I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1
 _I2 = np.array([2, 0, 1])
 
 
-def loop_plan(s, block, cols, rot):
+def loop_plan(s, block, cols, rot, coupled=True):
     """Index arrays of ``block``'s loop equations for unknown columns ``cols`` (a dict).
 
     Every loop is written as one flat product of signed primitive exponentials (a reversed
@@ -470,7 +470,8 @@ def loop_plan(s, block, cols, rot):
     the factor gives the same column), or for a free spherical joint in ``rot`` its three
     rotation twists carried by the prefix before (forward) or after (reversed) the joint;
     ``W`` maps these sources to the columns (coupling ratios; motion-law slopes are added
-    at each evaluation).  ``s``: the solver (couplings: master, alpha, law)."""
+    at each evaluation).  ``s``: the solver (couplings: master, alpha, law).  With
+    ``coupled=False`` couplings are not eliminated: column ``("m", i)`` is coordinate i."""
     m = s.m
     colidx = {c: k for k, c in enumerate(cols)}
     screws, pidx, phome, psign = [], [], [], []
@@ -496,14 +497,14 @@ def loop_plan(s, block, cols, rot):
                 if jn in rot:
                     continue
                 i = sl.start + k
-                g = int(s.master[i])
+                g = int(s.master[i]) if coupled else i
                 weights = {}
                 c = colidx.get(("m", g))
                 if c is not None:
-                    if i in s.law:
+                    if coupled and i in s.law:
                         varying.append((len(src_loop), c, i, g))
                     else:
-                        weights[c] = s.alpha[i]
+                        weights[c] = s.alpha[i] if coupled else 1.0
                 src_loop.append(li)
                 src_pos.append(len(fl) - 1)
                 src_tw.append(j.primitives[k].screw)

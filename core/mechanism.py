@@ -199,8 +199,16 @@ class Mechanism(Model):
         return [c for c in self.coordinates if c in out]
 
     def mobility(self, q=None):
-        """Kutzbach count and numeric mobility: see :meth:`jointwise.solver.Solver.mobility`."""
-        return self.solver.mobility(self.home if q is None else q)
+        """Kutzbach count and numeric mobility: see :meth:`jointwise.solver.Solver.mobility`.
+
+        At home (``q`` None) it is worked out once per structure and kept (a new joint
+        geometry forgets it); at a given state ``q`` it is worked out there."""
+        if q is not None:
+            return self.solver.mobility(q)
+        hit = self._derived.get("mobility")
+        if hit is None:
+            hit = self._derived["mobility"] = self.solver.mobility(self.home)
+        return dict(hit)
 
     # -- sweeps (engine in jointwise.sweep) --------------------------------------------
     def sweep(self, drive, values, held=None, **options):

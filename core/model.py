@@ -112,6 +112,9 @@ class Model:
                 self._owner[c] = j.name
         self.home = np.concatenate([j.home for j in self.joints.values()]) if self.joints else np.zeros(0)
         self._powers = None
+        #: values worked out from the structure alone (mobility at home, ...): kept until
+        #: the structure changes (:meth:`_structure_changed`)
+        self._derived = {}
         self._build_tree()
         self.size = self._size()
 
@@ -181,6 +184,11 @@ class Model:
         j = self.joints[jname]
         return j.parent if sign > 0 else j.child
 
+    def _structure_changed(self):
+        """Forget everything worked out from the joints' geometry."""
+        self._powers = None
+        self._derived.clear()
+
     def _set_geometry(self, geometry):
         for n, (a, p) in geometry.items():
             j = self.joints[n]
@@ -189,6 +197,7 @@ class Model:
             if p is not None:
                 j.point = np.array(p, float)
             j.primitives = j._build()
+        self._structure_changed()
 
     def _settle_geometry(self):
         """Make nearly parallel joint axes of the loops exactly parallel.
@@ -257,6 +266,7 @@ class Model:
         if notes:
             for j in self.joints.values():
                 j.primitives = j._build()
+            self._structure_changed()
         return notes
 
     def _size(self):

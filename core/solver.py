@@ -57,6 +57,14 @@ def _log6_one(t):
     x = spatial.log6(t)
     return x[:3], x[3:]
 
+def _remember(cache, key, value):
+    """Store ``value`` under ``key`` in a dict kept to ``PLAN_MEMORY`` entries (oldest out)."""
+    while len(cache) >= PLAN_MEMORY:
+        cache.pop(next(iter(cache)))
+    cache[key] = value
+    return value
+
+
 class _Block:
     """Loops that share coordinates, solved together."""
 
@@ -75,15 +83,25 @@ class Solver:
         self.n = n
         self._couplings()
         self._blocks()
+        # Caches: each has a bound and a key that names everything its value depends on
+        # (the coupling table and the geometry are fixed for a solver's life).
+        #   _plans    (block, unknown columns, rotation-increment joints, coupled) -> loop
+        #             plan (kinematics.loop_plan); PLAN_MEMORY, oldest out
+        #   _layouts  (block, held masters) -> (unknown columns, rotation joints); PLAN_MEMORY
+        #   _allcols  (block, held masters in order) -> unknown + held columns; PLAN_MEMORY
+        #   _kept     (given coordinates, drive flags) -> drives kept held; PLAN_MEMORY
+        #   _tangent_cols (block, held masters, moving master) -> column lists; PLAN_MEMORY
+        #   _lastJ    (block, state bytes) -> Jacobian of a closed state; JACOBIAN_MEMORY
+        #   _row_scales  loop count -> row scale; _rot_twists  joint -> twists (structure)
+        #   _generic_rank (purpose, block, columns) -> largest rank seen (one per layout)
         self._generic_rank = {}
         self._plans = {}
-        self._fast = {}
         self._kept = {}
         self._row_scales = {}
         self._layouts = {}
         self._lastJ = {}
         self._allcols = {}
-        self._tangent_cols = {}  # (block, held masters, moving master) -> column lists
+        self._tangent_cols = {}
         self._home_q = None
         self._home_notes = []
         self._rot_twists = {}
@@ -232,10 +250,10 @@ class Solver:
     # -- evaluation --------------------------------------------------------------------
     def _layout(self, block, held_masters):
         """Unknown columns of a block: list of ("m", master) or ("s", joint, 0..2)."""
-        key = (block.index, frozenset(held_masters), id(self.members))
+        key = (block.index, frozenset(held_masters))
         hit = self._layouts.get(key)
         if hit is None:
-            hit = self._layouts[key] = self._layout_new(block, held_masters)
+            hit = _remember(self._layouts, key, self._layout_new(block, held_masters))
         return hit
 
     def _layout_new(self, block, held_masters):
@@ -260,27 +278,20 @@ class Solver:
                 cols.extend(("s", jn, k) for k in range(3))
         return cols, rot
 
-    def _plan(self, block, cols, rot):
+    def _plan(self, block, cols, rot, coupled=True):
         """The block's loop plan (:func:`jointwise.kinematics.loop_plan`) for one set of
-        unknown columns; key: block, columns, rotation-increment joints and the coupling
-        table; at most ``PLAN_MEMORY`` kept, oldest dropped first."""
-        key = (block.index, tuple(cols), frozenset(rot), id(self.members))
+        unknown columns; key: block, columns, rotation-increment joints and whether
+        couplings are eliminated; at most ``PLAN_MEMORY`` kept, oldest dropped first."""
+        key = (block.index, tuple(cols), frozenset(rot), coupled)
         plan = self._plans.get(key)
         if plan is None:
-            if len(self._plans) >= PLAN_MEMORY:
-                self._plans.pop(next(iter(self._plans)))
-            plan = self._plans[key] = kinematics.loop_plan(self, block, cols, rot)
+            plan = _remember(self._plans, key, kinematics.loop_plan(self, block, cols, rot, coupled))
         return plan
 
-    def _eval(self, block, q, cols, rot, jac=True):
+    def _eval(self, block, q, cols, rot, jac=True, coupled=True):
         """Residual (6 per loop, at the cut), per-loop errors and the Jacobian at state ``q``
         (:func:`jointwise.kinematics.eval_one`)."""
-        plan = self._fast.get(id(cols))  # key: the identity of the column list (checked)
-        if plan is None or plan[0] is not cols or plan[1] != rot or plan[2] != block.index:
-            if len(self._fast) >= PLAN_MEMORY:
-                self._fast.pop(next(iter(self._fast)))
-            plan = self._fast[id(cols)] = (cols, set(rot), block.index, self._plan(block, cols, rot))
-        return kinematics.eval_one(self, plan[3], q, jac)
+        return kinematics.eval_one(self, self._plan(block, cols, rot, coupled), q, jac)
 
     def _col_scale(self, cols):
         """Size of one dimensionless unit of each column (length unit = mechanism size)."""
@@ -509,8 +520,9 @@ class Solver:
         self._home_notes = notes
         return q.copy()
 
-    def pose(self, held, q_start=None):
-        """Solve with coordinates ``held`` (index -> internal value).  Returns (q, info)."""
+    def pose(self, held, q_start=None, release=False):
+        """Solve with coordinates ``held`` (index -> internal value).  Returns (q, info).
+        ``release``: the file's drives are not held (as ``sweep --drive``)."""
         q = self.home_state() if q_start is None else np.array(q_start, dtype=float)
         notes = list(self._home_notes) if q_start is None else []
         explicit = dict(held)
@@ -518,7 +530,7 @@ class Solver:
         source = {}
         for i, v in explicit.items():
             self._hold(target, source, i, v)
-        for i in self.kept_drives(explicit):
+        for i in ([] if release else self.kept_drives(explicit)):
             self._hold(target, source, i, q[i])
         # coordinates outside every loop: set directly
         for g, v in target.items():
@@ -543,16 +555,14 @@ class Solver:
         the one holding rule, :meth:`Mechanism.held_coordinates` (coordinates outside every
         loop keep their values here anyway, so only the drives are returned)."""
         m = self.m
-        # key: the given coordinates and the drive flags (sweeps switch them off for a run)
+        # key: the given coordinates and the drive flags (a front may change a joint's flag)
         key = (tuple(explicit), tuple(j.drive for j in m.joints.values()))
         hit = self._kept.get(key)
         if hit is None:
             driven = set(m.driven)
             names = m.held_coordinates([m.coordinates[i] for i in explicit])
             hit = [m._index[c] for c in names if c in driven and m._index[c] not in explicit]
-            if len(self._kept) >= PLAN_MEMORY:
-                self._kept.pop(next(iter(self._kept)))
-            self._kept[key] = hit
+            _remember(self._kept, key, hit)
         return list(hit)
 
     def _hold(self, target, source, i, v):
@@ -588,11 +598,10 @@ class Solver:
                 self._fail(b, q, held_b, source, err, errs, h0)
             return err, self._singular(b, J, cols, rs, cs)
         nu = len(cols)
-        akey = (id(cols), tuple(hlist))
+        akey = (b.index, tuple(hlist))  # the held masters decide cols as well
         allcols = self._allcols.get(akey)
-        if allcols is None or allcols[0] is not cols:
-            allcols = self._allcols[akey] = (cols, cols + [("m", g) for g in hlist])
-        allcols = allcols[1]
+        if allcols is None:
+            allcols = _remember(self._allcols, akey, cols + [("m", g) for g in hlist])
         q0 = q.copy()
         dfull = np.array([held_b[g] - h0[g] for g in hlist])  # held change per unit t
         held_rate = span  # dimensionless held motion per unit t
@@ -791,7 +800,7 @@ class Solver:
             rot = set()
             # the unknown columns and the moving one, kept per held set (one evaluation, and
             # the same column list each time, so the evaluation plan is reused)
-            key = (bi, frozenset(held_m), gper, id(self.members))
+            key = (bi, frozenset(held_m), gper)
             hit = self._tangent_cols.get(key)
             if hit is None:
                 cols, _ = self._layout(b, held_m)
@@ -799,7 +808,7 @@ class Solver:
                     ("m", i) for jn in b.joints if self.m.joints[jn].type == "spherical"
                     for i in range(self.m._slices[jn].start, self.m._slices[jn].stop)
                     if i not in held_m and ("m", i) not in cols]
-                hit = self._tangent_cols[key] = (cols, cols + [("m", gper)])
+                hit = _remember(self._tangent_cols, key, (cols, cols + [("m", gper)]))
             cols, allcols = hit
             if cols:
                 rs = self._row_scale(len(b.loops))
@@ -903,16 +912,8 @@ class Solver:
 
     def _eval_members(self, b, q, full, rot):
         # like _eval, but with one column per coordinate (no coupling elimination)
-        saved = (self.master, self.alpha, self.members, self.law)
-        self.master = np.arange(self.n)
-        self.alpha = np.ones(self.n)
-        self.members = {i: [i] for i in range(self.n)}
-        self.law = {}
-        try:
-            cols = [("m", c[1]) if c[0] == "c" else c for c in full]
-            return self._eval(b, q, cols, rot)
-        finally:
-            self.master, self.alpha, self.members, self.law = saved
+        cols = [("m", c[1]) if c[0] == "c" else c for c in full]
+        return self._eval(b, q, cols, rot, coupled=False)
 
     def mobility(self, q):
         """Mobility counts at state ``q``.

@@ -124,30 +124,6 @@ class _Context:
         self.evs = [_Evaluator(mech, b, self.held_masters) for b in self.s.blocks]
 
 
-def _drives_released(mech):
-    """Context manager: the file's ``drive = true`` flags are off inside it."""
-    class _Ctx:
-        def __enter__(self_):
-            mech.solver.home_state()  # home is settled with the file's own drives
-            self_.saved = {n: j.drive for n, j in mech.joints.items()}
-            for j in mech.joints.values():
-                j.drive = False
-
-        def __exit__(self_, *exc):
-            for n, d in self_.saved.items():
-                mech.joints[n].drive = d
-            return False
-    return _Ctx()
-
-
-class _Null:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
-
-
 def _held_set(mech, explicit, release):
     """Masters held in a run, as Solver.pose would: explicit ones, plus (unless released)
     the file's drives outside blocks where a passive coordinate is given."""
@@ -365,20 +341,18 @@ def _run_block(ctx, ev, Q, target, q0, explicit, release):
 
 
 def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
-    m, s = ctx.m, ctx.s
+    s = ctx.s
     N = Q.shape[0]
     Hm = np.stack([target[g] for g in ev.held], axis=1) if ev.held else np.zeros((N, 0))
     path = _dimless_path(ev, Hm)
     ok = np.zeros(N, bool)
     err = np.full(N, np.inf)
     reasons = {}
-    guard = _drives_released(m) if release else _Null()
 
     def pose_one(i, qstart, info=False):
         held = {k: float(v[i]) for k, v in explicit.items()}
         try:
-            with guard:
-                qn, inf = s.pose(held, qstart)
+            qn, inf = s.pose(held, qstart, release=release)
         except LimitError as exc:
             out = None, Note(f"limit: {exc}", exc.reason)
         except JointwiseError as exc:
@@ -1177,10 +1151,9 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
             raise JointwiseError(f"{drive!r} is the drive; it cannot also be held")
         heldv[mech._require(k)] = float(v) * mech._unit(mech._require(k))
     mech.check_limits(heldv)
-    with _drives_released(mech):
-        q_home = s.home_state()
-        if heldv:
-            q_home, info = s.pose(heldv, q_home)
+    q_home = s.home_state()  # home is settled with the file's own drives
+    if heldv:
+        q_home, info = s.pose(heldv, q_home, release=True)
     home = q_home[di] / unit
     if step is None:
         step = 2.0 * (math.pi / 180) / unit if is_angle else mech.size / 50.0
@@ -1203,8 +1176,7 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
         if lim is not None and not (lim[0] - 1e-12 <= value * unit <= lim[1] + 1e-12):
             return None, f"limit of joint {j.name}"
         try:
-            with _drives_released(mech):
-                q, info = s.pose(h, qstart)
+            q, info = s.pose(h, qstart, release=True)
         except LimitError as exc:
             jn = mech._owner.get(exc.joint, exc.joint) if exc.joint else "?"
             return None, f"limit of joint {jn}"
