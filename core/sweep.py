@@ -97,17 +97,12 @@ FINE_STEP = 0.006
 BATCH_ITER = 6
 
 
-# the batched evaluator lives in kinematics, the stacked linear algebra in linalg
+# the batched evaluator lives in kinematics (``_Evaluator``: its old name here, which tests
+# and benchmarks use), the stacked linear algebra in linalg
 _Evaluator = kinematics.Evaluator
 _derive = kinematics.derive
 _tangent = kinematics.tangent
 _least_norm = linalg.least_norm
-_chol_solve = linalg.chol_solve
-# old names of spatial's (R, p) kernel, for modules not yet moved to it
-_Prim = spatial.UnitScrew
-_compose = spatial.compose_rp
-_inv = spatial.inverse_rp
-_ad_apply = spatial.adjoint_apply
 
 
 # ---------------------------------------------------------------------------------------

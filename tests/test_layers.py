@@ -71,8 +71,8 @@ def package_imports(path, package, modules):
         elif isinstance(node, ast.Import) and package:
             for a in node.names:
                 parts = a.name.split(".")
-                if parts[0] == package and len(parts) > 1:
-                    out.append((node.lineno, parts[1]))
+                if parts[0] == package:
+                    out.append((node.lineno, parts[1] if len(parts) > 1 else "__init__"))
     return out
 
 
@@ -155,6 +155,6 @@ def test_the_checks_catch_a_circle_and_an_upward_import(tmp_path):
     assert circles(edges) in ([["low", "high", "low"]], [["high", "low", "high"]])
     bad = layer_violations(edges, [{"low"}, {"high"}, {"__init__"}], "pkg")
     assert len(bad) == 1 and "pkg/low.py:2 imports high" in bad[0]
-    (tmp_path / "other.py").write_text("from pkg.low import f\nimport pkg.high\n")
+    (tmp_path / "other.py").write_text("from pkg.low import f\nimport pkg.high\nimport pkg\nfrom pkg import low, x\n")
     edges, _ = graph(tmp_path, "pkg")
-    assert [t for _, t in edges["other"]] == ["low", "high"]
+    assert [t for _, t in edges["other"]] == ["low", "high", "__init__", "low", "__init__"]
