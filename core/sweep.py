@@ -814,12 +814,30 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one):
         Js = _scaled_jacobian(ev, Q[rows])
         pa, pb = np.searchsorted(rows, sel - 1), np.searchsorted(rows, sel)
         cert[sel], orient[sel], degenerate[sel] = _certify_pairs(ev, Q[sel - 1], Q[sel], Js[pa], Js[pb])
-    last = before = None
-    for i in range(N):
-        if not ok[i]:
-            continue
+    # Rows whose step from the row before is certified need nothing more: their flag is
+    # set here, all at once; the loop below visits only the others (the first closed row,
+    # rows after a gap, uncertified steps), in order, with the closed rows before them.
+    trivial = np.zeros(N, bool)
+    trivial[1:] = ok[1:] & ok[:-1] & cert[1:]
+    crossed[trivial] = ~orient[trivial]
+    prev_ok = np.concatenate([[-1], np.maximum.accumulate(np.where(ok, np.arange(N), -1))[:-1]])
+    todo = [int(i) for i in np.flatnonzero(ok & ~trivial)]
+    p = -1  # the last row visited; (last_s, before_s): the closed rows before and at it
+    last_s = before_s = None
+    k = 0
+    while k < len(todo):
+        i = todo[k]
+        k += 1
+        l1 = int(prev_ok[i])  # rows between p and i are unchanged: closed ones are trivial
+        if l1 > p:
+            last = l1
+            l2 = int(prev_ok[l1])
+            before = l2 if l2 > p else last_s
+        else:
+            last, before = last_s, before_s
+        p = i
         if last is None:
-            last = i
+            last_s, before_s = i, before
             continue
         good, same, degen = cert[i], orient[i], degenerate[i]
         if last != i - 1:
@@ -834,14 +852,19 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one):
             if qn is None:
                 ok[i] = False
                 reasons[i] = why
+                last_s, before_s = last, before
+                if i + 1 < N and trivial[i + 1]:  # its step no longer starts at a closed row
+                    trivial[i + 1] = False
+                    todo.insert(k, i + 1)
                 continue
             moved = _distance(ev, Q[i:i + 1], qn[None, :])[0] > 1e-7
             Q[i] = qn
             err[i] = ev.eval(Q[i:i + 1])[1][0]
             crossed[i] = sing
             if moved and i < N - 1:
+                crossed[i + 1:] = False
                 return crossed, i  # the rows after i were solved on another branch: redo them
-        before, last = last, i
+        last_s, before_s = i, last
     return crossed, None
 
 
