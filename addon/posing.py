@@ -15,6 +15,7 @@ from . import scene as sc
 from .convert import SceneError
 
 AFTER_POSE = []
+_SOLVED = {}  # scene pointer -> (mechanism, the last pose's q in float64)
 
 
 def animated_coordinates(scene):
@@ -60,6 +61,12 @@ def start_from_scene(scene, mech):
     shows (``last``: the last solved values), so the solve stays on the scene's branch."""
     last = {it.name: it.last for it in scene.jointwise.joints}  # one pass over the list
     q = [float(last.get(c, 0.0)) for c in mech.coordinates]
+    kept = _SOLVED.get(scene.as_pointer())
+    if kept is not None and kept[0] is mech and len(kept[1]) == len(q) and np.array_equal(
+            kept[1].astype(np.float32), np.asarray(q, dtype=np.float32)):
+        # the list shows the last pose (its values are that pose's, rounded to 32-bit
+        # floats): start from the pose itself, so blocks nothing moved are left as they are
+        q = kept[1].tolist()
     try:
         Pose = sc.core().Pose
     except AttributeError:
@@ -248,6 +255,9 @@ def _pose_scene(scene, extra=(), values=None, restore_values=True):
         msg = failure_text(scene, exc, asked)
         set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         return False, msg
+    q = getattr(pose, "q", None)
+    if q is not None:
+        _SOLVED[scene.as_pointer()] = (mech, np.array(q, dtype=float))
     msg = status_text(scene, pose, clamped)
     set_status(scene, converged=pose.converged, error=pose.residual, singular=pose.singular,
                message=msg, mobility=_or_unknown(mobility_of(mech)))

@@ -94,6 +94,10 @@ class Solver:
         #   _lastJ    (block, state bytes) -> Jacobian of a closed state; JACOBIAN_MEMORY
         #   _row_scales  loop count -> row scale; _rot_twists  joint -> twists (structure)
         #   _generic_rank (purpose, block, columns) -> largest rank seen (one per layout)
+        #   _settled  block -> (its coordinates' bytes and held values as a pose left them,
+        #             (error, singular)): a pose started there with the same held values
+        #             skips the block (a value change moves one block of many); one per block
+        #   _block_idx  block -> indices of its joints' coordinates (structure)
         self._generic_rank = {}
         self._plans = {}
         self._kept = {}
@@ -102,6 +106,8 @@ class Solver:
         self._lastJ = {}
         self._allcols = {}
         self._tangent_cols = {}
+        self._settled = {}
+        self._block_idx = {}
         self._home_q = None
         self._home_notes = []
         self._rot_twists = {}
@@ -542,13 +548,29 @@ class Solver:
         self._crossed = False
         for b in self.blocks:
             held_b = {g: target[g] for g in b.groups if g in target}
-            err, sing = self._solve_block(b, q, held_b, source)
+            idx = self._block_coordinates(b)
+            key = (q[idx].tobytes(), tuple(sorted(held_b.items())))
+            hit = self._settled.get(b.index)
+            if hit is not None and hit[0] == key:
+                err, sing = hit[1]  # started where it was left, same held values: nothing to do
+            else:
+                err, sing = self._solve_block(b, q, held_b, source)
+                self._settled[b.index] = ((q[idx].tobytes(), key[1]), (err, sing))
             worst = max(worst, err)
             singular = singular or sing
         self._check_passive_limits(q, set(target))
         return q, {"converged": worst <= TOLERANCE, "residual": float(worst),
                    "singular": bool(singular), "notes": notes,
                    "crossed_singular": bool(self._crossed)}
+
+    def _block_coordinates(self, b):
+        """Indices of every coordinate of block ``b``'s joints (kept per block)."""
+        idx = self._block_idx.get(b.index)
+        if idx is None:
+            m = self.m
+            idx = self._block_idx[b.index] = np.array(
+                [i for jn in b.joints for i in range(m._slices[jn].start, m._slices[jn].stop)], dtype=int)
+        return idx
 
     def kept_drives(self, explicit):
         """The file's driven coordinates held besides ``explicit`` (coordinate indices), by

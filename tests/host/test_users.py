@@ -414,3 +414,30 @@ def test_a_rate_measure_holds_the_lists_drives(fresh, tmp_path):
                                   value_to=math.radians(110.0)) == {"FINISHED"}, jw.message
     fresh.frame_set(6)
     assert abs(jw.measures["c_per_a"].value - want(100.0, 90.0)) > 1e-2
+
+
+def test_a_value_change_solves_only_the_loop_it_moves(fresh, tmp_path, monkeypatch):
+    """Two clamps, no coupling: two loop blocks. The next pose starts from the last one
+    exactly (not from the list's 32-bit values), so a change of the first crank solves the
+    first block only; the placements are the core's. Reference: the core's pose of the file."""
+    ws.make_twin_clamp_objects(0.001)
+    path = ws.twin_clamp_file(tmp_path, coupled=False)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    jw = fresh.jointwise
+    jw.joints["a2"].drive = True
+    import jointwise.solver as core_solver
+    calls = []
+    real = core_solver.Solver._solve_block
+
+    def counted(self, b, *a, **k):
+        calls.append(b.index)
+        return real(self, b, *a, **k)
+    monkeypatch.setattr(core_solver.Solver, "_solve_block", counted)
+    jw.joints["a1"].value = math.radians(95.0)
+    assert jw.converged, jw.message
+    for deg in (100.0, 105.0, 110.0):
+        calls.clear()
+        jw.joints["a1"].value = math.radians(deg)
+        assert jw.converged, jw.message
+        assert len(calls) == 1, calls
+    _check_links(fresh, _expect(path, {"a1": 110.0, "a2": 90.0}))

@@ -139,7 +139,7 @@ def make_twin_clamp_objects(scale=0.001, lift=40.0):
     return objs
 
 
-def twin_clamp_file(folder, lift=40.0):
+def twin_clamp_file(folder, lift=40.0, coupled=True):
     """Two Lintel clamps (loops closed by ``c1`` and ``c2``) joined by a coupling: the second
     crank follows the first rocker (``a2 = d1 + 90 deg``, a gear pair of ratio 1), so the two
     loops are one group. The first crank ``a1`` is the drive."""
@@ -157,8 +157,9 @@ def twin_clamp_file(folder, lift=40.0):
                       f'child = "{c}{k}"', f'point = {fmt(pt + z)}', 'axis = [0, 0, 1]']
             if j == "a":
                 lines += ['home = 90'] + (['drive = true'] if k == 1 else [])
-    lines += ['[couplings.rocker_to_crank]', 'leader = "d1"', 'follower = "a2"', 'ratio = 1',
-              'offset = 90']
+    if coupled:
+        lines += ['[couplings.rocker_to_crank]', 'leader = "d1"', 'follower = "a2"', 'ratio = 1',
+                  'offset = 90']
     path = pathlib.Path(folder) / "lintel_twin.toml"
     path.write_text("\n".join(lines) + "\n")
     return path
