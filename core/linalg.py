@@ -19,17 +19,37 @@ __all__ = ["chol_factor", "chol_apply", "chol_solve", "least_norm", "least_norm_
            "orientation_agrees", "branch_step_certified"]
 
 
+#: Component-first stacked algebra (entries as rows over the stack) pays one Python step per
+#: entry; it is used where that stays small (and the stack long), the stacked numpy form
+#: (one step per row or per product) elsewhere.
+SOA_MAX_ORDER = 6
+SOA_MAX_TERMS = 200
+SOA_MIN_STACK = 64
+
+
 def chol_factor(G):
     """Cholesky factors of stacks of symmetric positive (semi)definite ``G`` (B, g, g), scaled
-    to unit Frobenius norm, held component-first: ``(L, scale, cert)`` with ``L[i][k]`` rows
-    (B,) for k <= i, ``scale`` (B,) the norms and ``cert = det(G) / |G|_F^g`` (B,), the
-    scale-free certificate used for singular flags.  A tiny shift (1e-13) keeps singular
-    stacks finite."""
+    to unit Frobenius norm: ``(L, scale, cert)`` with ``scale`` (B,) the norms and ``cert =
+    det(G) / |G|_F^g`` (B,), the scale-free certificate used for singular flags.  A tiny
+    shift (1e-13) keeps singular stacks finite.  ``L`` is held component-first (``L[i][k]``
+    rows (B,)) for small orders on long stacks, else as one stacked array (B, g, g)."""
     B, g, _ = G.shape
     fro = np.sqrt((G * G).sum(axis=(1, 2)))
     scale = np.maximum(fro, 1e-300)
-    Gs = np.moveaxis(G, 0, -1) / scale  # (g, g, B)
     mu = 1e-13
+    if g > SOA_MAX_ORDER or B < SOA_MIN_STACK:
+        Gs = G / scale[:, None, None]
+        L = np.zeros_like(Gs)
+        for i in range(g):
+            for k in range(i + 1):
+                acc = Gs[:, i, k] - (L[:, i, :k] * L[:, k, :k]).sum(axis=1)
+                if i == k:
+                    L[:, i, i] = np.sqrt(np.maximum(acc + mu, mu))
+                else:
+                    L[:, i, k] = acc / L[:, k, k]
+        diag = np.stack([L[:, i, i] for i in range(g)], axis=1) if g else np.ones((B, 0))
+        return L, scale, np.prod(diag * diag, axis=1)
+    Gs = np.moveaxis(G, 0, -1) / scale  # (g, g, B)
     L = [[None] * g for _ in range(g)]
     cert = np.ones(B)
     for i in range(g):
@@ -48,6 +68,16 @@ def chol_factor(G):
 def chol_apply(factor, b):
     """Solve ``G x = b`` (b (B, g, k)) with the factors of :func:`chol_factor`; x (B, g, k)."""
     L, scale, _ = factor
+    if isinstance(L, np.ndarray):  # stacked factors
+        g = L.shape[1]
+        y = np.zeros_like(b)
+        bs = b / scale[:, None, None]
+        for i in range(g):
+            y[:, i] = (bs[:, i] - (L[:, i, :i, None] * y[:, :i]).sum(axis=1)) / L[:, i, i, None]
+        x = np.zeros_like(b)
+        for i in reversed(range(g)):
+            x[:, i] = (y[:, i] - (L[:, i + 1:, i, None] * x[:, i + 1:]).sum(axis=1)) / L[:, i, i, None]
+        return x
     g = len(L)
     bs = np.moveaxis(b, 0, -1) / scale  # (g, k, B)
     y = [None] * g
@@ -102,14 +132,26 @@ def least_norm(Js, rhs):
 
 
 def tmul(A, Bm):
-    """``A^T Bm`` of stacks A (B, m, k), Bm (B, m, c) -> (B, k, c), by elementwise products."""
-    Ac = np.moveaxis(A, 0, -1)
-    Bc = np.moveaxis(Bm, 0, -1)
-    k, c = A.shape[2], Bm.shape[2]
-    out = np.empty((k, c, A.shape[0]))
+    """``A^T Bm`` of stacks A (B, m, k), Bm (B, m, c) -> (B, k, c).  Small products on long
+    stacks go component-first (rows over the stack, made contiguous once; a Gram matrix,
+    ``Bm is A``, fills one half and mirrors it) instead of many tiny matrix products;
+    larger ones (or short stacks) as one stacked matrix product."""
+    same = Bm is A
+    B, m, k = A.shape
+    c = Bm.shape[2]
+    terms = m * (k * (k + 1) // 2 if same else k * c)
+    if B < SOA_MIN_STACK or terms > SOA_MAX_TERMS:
+        return np.swapaxes(A, 1, 2) @ Bm
+    Ac = np.ascontiguousarray(np.moveaxis(A, 0, -1))  # (m, k, B)
+    Bc = Ac if same else np.ascontiguousarray(np.moveaxis(Bm, 0, -1))
+    out = np.zeros((k, c, B))
     for i in range(k):
-        for j in range(c):
-            out[i, j] = (Ac[:, i] * Bc[:, j]).sum(axis=0)
+        for j in range(i + 1 if same else c):
+            acc = out[i, j]
+            for r in range(m):
+                acc += Ac[r, i] * Bc[r, j]
+            if same:
+                out[j, i] = acc
     return np.moveaxis(out, -1, 0)
 
 
