@@ -154,6 +154,10 @@ def jointed_pairs(scene):
 
 # -- one pair ---------------------------------------------------------------------------------
 
+def _norms(x):
+    return np.sqrt(np.einsum("...i,...i->...", x, x))
+
+
 def _vertex_distances(points, body, reach, candidates, groups):
     """Distance of each of ``points`` (in ``body``'s frame now) to ``body``'s surface
     where it is below its ``reach`` (one per point), else inf; with the nearest surface
@@ -172,15 +176,12 @@ def _vertex_distances(points, body, reach, candidates, groups):
         return dist, near
     find = body.tree.find_nearest
     lims = (reach[keep] * (1 + 1e-6) + 1e-9).tolist()
-    ks, ids = [], []
-    for k, p, lim in zip(keep.tolist(), points[keep].tolist(), lims):
-        idx = find(p, lim)[2]
-        if idx is not None:
-            ks.append(k)
-            ids.append(idx)
-    if ks:
-        ks = np.asarray(ks)
-        t = body.tris[np.asarray(ids)]
+    # the triangle index, or None (nan here) when nothing is that near
+    ids = np.array([find(p, lim)[2] for p, lim in zip(points[keep].tolist(), lims)], dtype=float)
+    hit = ~np.isnan(ids)
+    if hit.any():
+        ks = keep[hit]
+        t = body.tris[ids[hit].astype(np.int64)]
         v = body.verts
         p = points[ks]
         q = px.triangle_closest_points(p, v[t[:, 0]], v[t[:, 1]], v[t[:, 2]])
@@ -201,13 +202,13 @@ def _edge_edge(a_pts, a_edges, b_pts, b_edges, limit, chunk=250_000):
         return None
     pa, qa = a_pts[a_edges[:, 0]], a_pts[a_edges[:, 1]]
     pb, qb = b_pts[b_edges[:, 0]], b_pts[b_edges[:, 1]]
-    ma, ha = 0.5 * (pa + qa), 0.5 * np.linalg.norm(qa - pa, axis=1)
-    mb, hb = 0.5 * (pb + qb), 0.5 * np.linalg.norm(qb - pb, axis=1)
+    ma, ha = 0.5 * (pa + qa), 0.5 * _norms(qa - pa)
+    mb, hb = 0.5 * (pb + qb), 0.5 * _norms(qb - pb)
     best = None
     rows = max(1, chunk // len(b_edges))
     for s in range(0, len(a_edges), rows):
         sl = slice(s, s + rows)
-        gap = np.linalg.norm(ma[sl, None] - mb[None], axis=2) - ha[sl, None] - hb[None]
+        gap = _norms(ma[sl, None] - mb[None]) - ha[sl, None] - hb[None]
         i, j = np.nonzero(gap < limit)
         if not len(i):
             continue
@@ -262,13 +263,11 @@ class Timer:
         self.solve = self.trees = self.queries = 0.0
 
 
-def _upper(a, b, va, k):
-    """A distance between a point of A and one of B (so the smallest is at most that):
-    A's vertex ``k`` (``va``: A's points in b's frame) to its nearest point of B."""
-    idx = b.tree.find_nearest(va[k].tolist())[2]
-    t = b.tris[idx]
-    q = px.triangle_closest_points(va[k], b.verts[t[0]], b.verts[t[1]], b.verts[t[2]])
-    return float(np.linalg.norm(va[k] - q))
+def _upper(b, point):
+    """An upper bound of the distance from ``point`` (in b's frame) to B's surface: the
+    tree's own distance, with room for its single precision."""
+    dist = b.tree.find_nearest(point.tolist())[3]
+    return dist + 1e-5 * (1.0 + float(np.abs(point).max()) + dist)
 
 
 def _distance(a, b, va, vb, gaps, limit, hint=None):
@@ -290,8 +289,7 @@ def _distance(a, b, va, vb, gaps, limit, hint=None):
     gb = gaps.min(axis=0)[b.fine_vert_group]
     if hint is None:
         hint = int(np.argmin(ga))
-    up = _upper(a, b, va, hint)
-    limit = min(limit, up * (1 + 1e-9) + 1e-12)
+    limit = min(limit, _upper(b, va[hint]))
     reach_a, reach_b = limit + a.vert_edge, limit + b.vert_edge
     # B's groups within reach of A's and the other way round
     groups_b = np.flatnonzero(gaps.min(axis=0) < reach_a.max(initial=0.0))
@@ -362,10 +360,6 @@ _SPECTRAL = 0.7072
 # how far past the best distance so far a visited frame's own distance is found: the
 # farther, the more frames around it its distance rules out, at more queries per frame
 MARGIN = 0.5
-
-
-def _norms(x):
-    return np.sqrt(np.einsum("...i,...i->...", x, x))
 
 
 class _Motion:
