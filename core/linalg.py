@@ -15,7 +15,7 @@ import numpy as np
 from .units import CONTRACTION, NOISE_STEP, NORMAL_CERT, ORIENT_RATIO
 
 __all__ = ["chol_factor", "chol_apply", "chol_solve", "least_norm", "least_norm_factor", "least_norm_apply",
-           "tmul", "det_stack", "lstsq_small", "lstsq_svd", "orientation_frame",
+           "tmul", "det_stack", "det_small", "lstsq_small", "lstsq_svd", "orientation_frame",
            "orientation_agrees", "branch_step_certified"]
 
 
@@ -179,6 +179,11 @@ def lstsq_small(a, b, rcond):
     or two columns (the common four-bar and slider blocks) or by ``np.linalg.solve``;
     otherwise (wide, rank-deficient or ill-conditioned ``a``) the SVD solve itself."""
     m, k = a.shape
+    if 0 < m < k and rcond < 1e-3:  # wide: least norm a^T (a a^T)^-1 b, certified the same way
+        g = a @ a.T
+        fro = math.sqrt(float((g * g).sum()))
+        if fro > 0 and det_small(g / fro) >= NORMAL_CERT:
+            return a.T @ np.linalg.solve(g, b)
     if 0 < k <= m and rcond < 1e-3:
         if k == 1:
             g = float(a[:, 0] @ a[:, 0])
@@ -208,7 +213,7 @@ def lstsq_small(a, b, rcond):
     return np.linalg.lstsq(a, b, rcond=rcond)[0]
 
 
-def _det_small(m):
+def det_small(m):
     """Determinant of one square matrix; plain floats up to 3 x 3."""
     k = m.shape[0]
     if k == 1:
@@ -277,7 +282,7 @@ def orientation_agrees(frame, Js):
     u, v, defined = frame
     m = np.swapaxes(u, -1, -2) @ Js @ v
     if m.ndim == 2:  # one state
-        return bool(_det_small(m) > 0 or defined < ORIENT_RATIO)
+        return bool(det_small(m) > 0 or defined < ORIENT_RATIO)
     return (np.linalg.det(m) > 0) | (defined < ORIENT_RATIO)
 
 

@@ -42,10 +42,10 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, SpecError
-from .linalg import lstsq_small, lstsq_svd, orientation_agrees
+from .linalg import det_small, lstsq_small, lstsq_svd, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
-                    MAX_SPAN, MAX_STEP, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
+                    MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
 
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
 
@@ -73,6 +73,36 @@ class _Block:
         self.loops = loops          # list of Loop
         self.joints = joints        # joint names in these loops (ordered)
         self.groups = groups        # master indices whose group touches these loops
+
+
+#: A closed state's scaled solved Jacobian counts as proven regular where ``det(G) / |G|_F^g``
+#: (``G`` its Gram matrix on the smaller side) reaches this: then ``s_min / s_max >=
+#: SINGULAR_RATIO`` (the certificate bounds ``(s_min / s_max)^2`` from below), so it has full
+#: rank, is not singular, its orientation is defined and no SVD is needed.
+FULL_CERT = max(NORMAL_CERT, SINGULAR_RATIO ** 2)
+
+
+def _state_info(js):
+    """How a closed state's scaled solved Jacobian ``js`` (m, k) is read: ``("full", js)``
+    where the certificate proves it regular (see ``FULL_CERT``), else ``("svd", (u, s, vt))``
+    its thin SVD."""
+    m, k = js.shape
+    if k and m:
+        g = js.T @ js if k <= m else js @ js.T
+        fro = math.sqrt(float((g * g).sum()))
+        if fro > 0 and det_small(g / fro) >= FULL_CERT:
+            return "full", js
+    return "svd", np.linalg.svd(js, full_matrices=False)
+
+
+def _agrees(frame, js):
+    """The orientation test of :func:`jointwise.linalg.orientation_agrees` for one state.  For
+    a frame ``("full", J_a)`` (full rank proven) ``det(U^T J_b V) > 0`` equals ``det(J_a^T
+    J_b) > 0`` (tall) or ``det(J_a J_b^T) > 0`` (wide), since ``J_a = U S V^T``."""
+    if isinstance(frame[0], str):  # ("full", J_a)
+        ja = frame[1]
+        return det_small(ja.T @ js if ja.shape[1] <= ja.shape[0] else ja @ js.T) > 0
+    return orientation_agrees(frame, js)
 
 
 class Solver:
@@ -430,11 +460,15 @@ class Solver:
         err = float(errs.max())
         return err <= TOLERANCE, err, errs, J
 
-    def _orientation(self, b, svd, cols):
-        """Orientation frame (see :func:`jointwise.linalg.orientation_frame`) of a solved block's Jacobian,
-        from the thin SVD ``(u, s, vt)`` of its scaled form."""
-        u, sv, vt = svd
+    def _orientation(self, b, info, cols):
+        """Orientation frame (see :func:`jointwise.linalg.orientation_frame`) of a solved block's
+        Jacobian, from :func:`_state_info` of its scaled form: where full rank is proven the
+        frame is the scaled Jacobian itself (:func:`_agrees`), else ``(U_r, V_r, s_r / s_1)``."""
         key = ("orient", b.index, tuple(cols))
+        if info[0] == "full":
+            self._generic_rank[key] = max(self._generic_rank.get(key, 0), min(info[1].shape))
+            return info
+        u, sv, vt = info[1]
         rank = int((sv > 1e-9 * max(sv[0], 1e-300)).sum()) if sv.size else 0
         rank = max(rank, self._generic_rank.get(key, 0))
         self._generic_rank[key] = rank
@@ -646,8 +680,10 @@ class Solver:
             # tangent: d(unknown)/dt = -pinv(J_u) J_h d(held)/dt  (dimensionless columns)
             if cols:
                 if svd_here is None:
-                    svd_here = np.linalg.svd(J_here[:, :nu] * rs[:, None] * cs[None, :], full_matrices=False)
-                rate = lstsq_svd(svd_here, -(J_here[:, nu:] @ dfull) * rs, 1e-6)
+                    svd_here = _state_info(J_here[:, :nu] * rs[:, None] * cs[None, :])
+                rhs = -(J_here[:, nu:] @ dfull) * rs
+                rate = (lstsq_small(svd_here[1], rhs, 1e-6) if svd_here[0] == "full"
+                        else lstsq_svd(svd_here[1], rhs, 1e-6))
                 rmax = float(np.abs(rate).max()) if rate.size else 0.0
             else:
                 rate, rmax = np.zeros(0), 0.0
@@ -673,7 +709,7 @@ class Solver:
                 J = Jall[:, :nu]
                 moved = self._dist(before, trial, cols) if ok else 0.0
                 if ok and moved <= 0.5 * rmax * (t1 - t) + JUMP_SLACK:
-                    if frame is None or orientation_agrees(frame, J * rs[:, None] * cs[None, :]):
+                    if frame is None or _agrees(frame, J * rs[:, None] * cs[None, :]):
                         break
                     if dt * max(held_rate, 1e-12) < 1e-7:
                         crossed = self._crossed = True  # the path passes a singular point: flag it
@@ -702,12 +738,12 @@ class Solver:
             elif moved < 0.1 * pred:
                 limit = min(1.5 * limit, MAX_MOTION)
         if cols and J is not None and J.size:
-            svd_here = np.linalg.svd(J * rs[:, None] * cs[None, :], full_matrices=False)
+            svd_here = _state_info(J * rs[:, None] * cs[None, :])
         if J_here is not None:
             if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
                 self._lastJ.pop(next(iter(self._lastJ)))
             # key: block and the closed state's bytes; value: its column layout, Jacobian
-            # and the thin SVD of the scaled solved part (tangent and orientation next time)
+            # and how its scaled solved part reads (_state_info: tangent and orientation next time)
             self._lastJ[(b.index, q.tobytes())] = (allcols, J_here, svd_here)
         return err, crossed or self._singular(b, J, cols, rs, cs, svd_here)
 
@@ -787,12 +823,17 @@ class Solver:
         raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
                             f"(closest closure error reached){where}", loop=loop, error=float(err), joint=blame)
 
-    def _singular(self, b, J, cols, rs, cs, svd=None):
+    def _singular(self, b, J, cols, rs, cs, info=None):
         """Near a dead point: the generic-rank singular value of the scaled J_u is tiny
-        (``svd``: the thin SVD of the scaled J_u, when already computed)."""
+        (``info``: :func:`_state_info` of the scaled J_u, when already computed; where it
+        proves full rank with ``s_min / s_max >= SINGULAR_RATIO`` there is no dead point)."""
         if not cols or J is None or not J.size:
             return False
-        s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False) if svd is None else svd[1]
+        if info is not None and info[0] == "full":
+            key = (b.index, tuple(cols))
+            self._generic_rank[key] = max(self._generic_rank.get(key, 0), min(info[1].shape))
+            return False
+        s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False) if info is None else info[1][1]
         if s.size == 0 or s[0] == 0:
             return False
         rank = int((s > 1e-9 * s[0]).sum())
