@@ -20,6 +20,7 @@ q_dot_leader^2``: the ``f''`` term joins the right-hand side beside :func:`loop_
 """
 from __future__ import annotations
 
+import math
 import weakref
 
 import numpy as np
@@ -424,6 +425,35 @@ def joint_rotations(prims, Qj):
     return np.moveaxis(R, -1, 0)
 
 
+def joint_rotation_one(prims, qj):
+    """Rotation part (3, 3) of one joint's displacement at its coordinates ``qj`` (k,): the
+    single-state form of :func:`joint_rotations` (``R = I + sin t [w] + (1 - cos t) [w]^2``
+    per primitive, in order)."""
+    R = None
+    for pr, t in zip(prims, np.asarray(qj, dtype=float).tolist()):
+        if not pr.rot:
+            continue
+        t -= pr.h
+        Rk = _EYE3 + math.sin(t) * pr.K + (1.0 - math.cos(t)) * pr.K2
+        R = Rk if R is None else R @ Rk
+    return _EYE3.copy() if R is None else R
+
+
+def rotation_one(w):
+    """exp([w]) of one rotation vector (Rodrigues' formula with :func:`spatial.exp3`'s
+    coefficients and small-angle series), in plain floats."""
+    x, y, z = np.asarray(w, dtype=float).tolist()
+    th2 = x * x + y * y + z * z
+    th = math.sqrt(th2)
+    if th < 1e-4:
+        a, b = 1 - th2 / 6, 0.5 - th2 / 24
+    else:
+        a, b = math.sin(th) / th, (1 - math.cos(th)) / th2
+    return np.array([[1 - b * (y * y + z * z), b * x * y - a * z, b * x * z + a * y],
+                     [b * x * y + a * z, 1 - b * (x * x + z * z), b * y * z - a * x],
+                     [b * x * z - a * y, b * y * z + a * x, 1 - b * (x * x + y * y)]])
+
+
 def derive(s, Q, masters):
     """Set every coupled member of ``masters`` from its master, in place (states Q (B, n))."""
     for g in masters:
@@ -453,6 +483,7 @@ def tangent(ev, Q):
 # ---------------------------------------------------------------------------------------
 
 _EYE4 = np.eye(4)
+_EYE3 = np.eye(3)
 #: Stacks of at most this many states are evaluated one state at a time (:func:`eval_one`).
 SMALL_STACK = 8
 _I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1]

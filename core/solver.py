@@ -353,14 +353,12 @@ class Solver:
                 sph.setdefault(c[1], np.zeros(3))[c[2]] = d
         self._derive(q, [c[1] for c in cols if c[0] == "m"])
         for jn, d in sph.items():
-            j = m.joints[jn]
+            # the increment turns about world axes through the joint point: its rotation is
+            # exp3(d) (the rotation twists' angular parts are the unit axes); the coordinates
+            # read only the rotation of the joint's new displacement
             sl = m._slices[jn]
-            tws = self._rot_twists.get(jn)
-            if tws is None:
-                tws = self._rot_twists[jn] = j.rotation_twists()
-            tw = d @ tws
-            e = spatial.exp6(tw) @ j.transform(q[sl])
-            q[sl] = j.coordinates_from_transform(e, near=q[sl])
+            rn = kinematics.rotation_one(d) @ kinematics.joint_rotation_one(self._unit_screws(jn), q[sl])
+            q[sl] = m.joints[jn].coordinates_from_transform(rn, near=q[sl])
 
     def _derive(self, q, masters):
         for g in masters:
@@ -798,10 +796,19 @@ class Solver:
                 d = max(d, abs(a[c[1]] - b[c[1]]) * self.cscale[c[1]])
         for jn in {c[1] for c in cols if c[0] == "s"}:
             sl = self.m._slices[jn]
-            j = self.m.joints[jn]
-            rel = j.transform(a[sl])[:3, :3].T @ j.transform(b[sl])[:3, :3]
+            prims = self._unit_screws(jn)
+            rel = kinematics.joint_rotation_one(prims, a[sl]).T @ kinematics.joint_rotation_one(prims, b[sl])
             d = max(d, float(np.linalg.norm(spatial.log3(rel))))
         return d
+
+    def _unit_screws(self, jn):
+        """The joint's primitives as :class:`spatial.UnitScrew` (kept per joint: structure)."""
+        prims = self._rot_twists.get(("prims", jn))
+        if prims is None:
+            j = self.m.joints[jn]
+            prims = self._rot_twists[("prims", jn)] = [spatial.UnitScrew(pr.screw, h)
+                                                       for pr, h in zip(j.primitives, j.home)]
+        return prims
 
     def _fail(self, b, q, held_b, source, err, errs, h0):
         m = self.m
