@@ -435,6 +435,7 @@ def check_pair(a, b, frames, timer):
     are visited. So every frame is decided without querying most of them."""
     res = PairResult(a, b)
     clock = timer.clock
+    t0 = clock()
     t = b.rel_inv @ a.rel                                   # a (world now) -> b's frame now
     tinv = a.rel_inv @ b.rel                                # b (world now) -> a's frame now
     groups = np.einsum("nij,kj->nki", t[:, :3, :3], a.group_centres) + t[:, None, :3, 3]
@@ -447,6 +448,7 @@ def check_pair(a, b, frames, timer):
     undecided = np.ones(n, dtype=bool)
     best = math.inf
     hint = None
+    timer.queries += clock() - t0  # the bounds at every frame count as queries
 
     def raise_bounds(i, d):
         nonlocal low, low_groups
