@@ -405,14 +405,16 @@ class Evaluator:
             j = m.joints[jn]
             sl = m._slices[jn]
             d = np.stack(parts, axis=-1)
-            Rn = spatial.exp3(d) @ joint_rotations(self.prims[jn], Q[:, sl])
+            Rn = joint_rotations(self.prims[jn], Q[:, sl], turn=d)
             Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
 
 
-def joint_rotations(prims, Qj):
+def joint_rotations(prims, Qj, turn=None):
     """Rotation parts (B, 3, 3) of a joint's displacement at its coordinates ``Qj`` (B, k),
     from its primitives (:class:`spatial.UnitScrew`: ``R = I + sin t [w] + (1 - cos t)
-    [w]^2``), composed component-first (entries as rows over the stack)."""
+    [w]^2``), composed component-first (entries as rows over the stack).  ``turn`` (B, 3):
+    rotation vectors whose rotations ``exp3(turn)`` (Rodrigues, :func:`spatial.exp3`'s
+    coefficients and series) are applied on the left."""
     R = None
     for k, pr in enumerate(prims):
         if not pr.rot:
@@ -421,8 +423,22 @@ def joint_rotations(prims, Qj):
         Rk = np.eye(3)[:, :, None] + np.sin(t) * pr.K[:, :, None] + (1.0 - np.cos(t)) * pr.K2[:, :, None]
         R = Rk if R is None else R[:, 0, None] * Rk[0] + R[:, 1, None] * Rk[1] + R[:, 2, None] * Rk[2]
     if R is None:
-        return np.broadcast_to(np.eye(3), (Qj.shape[0], 3, 3)).copy()
-    return np.moveaxis(R, -1, 0)
+        R = np.broadcast_to(np.eye(3)[:, :, None], (3, 3, Qj.shape[0]))
+    if turn is not None:
+        x, y, z = np.asarray(turn, dtype=float).T
+        th2 = x * x + y * y + z * z
+        th = np.sqrt(th2)
+        small = th < 1e-4
+        ts = np.where(small, 1.0, th)
+        a = np.where(small, 1 - th2 / 6, np.sin(ts) / ts)
+        b = np.where(small, 0.5 - th2 / 24, (1 - np.cos(ts)) / (ts * ts))
+        bx, by, bz = b * x, b * y, b * z
+        ax, ay, az = a * x, a * y, a * z
+        T = np.array([[1 - by * y - bz * z, bx * y - az, bx * z + ay],
+                      [bx * y + az, 1 - bx * x - bz * z, by * z - ax],
+                      [bx * z - ay, by * z + ax, 1 - bx * x - by * y]])
+        R = T[:, 0, None] * R[0] + T[:, 1, None] * R[1] + T[:, 2, None] * R[2]
+    return np.moveaxis(R, -1, 0).copy()
 
 
 def joint_rotation_one(prims, qj):
@@ -563,7 +579,12 @@ def loop_plan(s, block, cols, rot, coupled=True):
     for k, weights in enumerate(src_w):
         for c, a in weights.items():
             W[k, c] += a
-    weights = [(k, src_loop[k], c, a) for k, ws in enumerate(src_w) for c, a in ws.items() if a != 0]
+    weights, seen = [], set()  # (source, loop, column, weight, first term of that entry)
+    for k, ws in enumerate(src_w):
+        for c, a in ws.items():
+            if a != 0:
+                weights.append((k, src_loop[k], c, a, (src_loop[k], c) not in seen))
+                seen.add((src_loop[k], c))
     src_loop = np.array(src_loop, dtype=int)
     src_pos = np.array(src_pos, dtype=int)
     tw = np.array(src_tw, dtype=float).reshape(-1, 6)
@@ -711,8 +732,13 @@ def eval_stack(s, plan, Q, jac=True):
     tw[:, 5] = vr[:, 2] + d[:, 0] * wr[:, 1] - d[:, 1] * wr[:, 0]
     tw *= plan["src_sign"][:, :, None]
     J = np.zeros((B, nl, 6, plan["ncols"]))
-    for k, li, c, a in plan["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
-        J[:, li, :, c] += a * tw[k].T
+    for k, li, c, a, first in plan["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
+        if not first:
+            J[:, li, :, c] += a * tw[k].T
+        elif a == 1.0:
+            J[:, li, :, c] = tw[k].T
+        else:
+            np.multiply(tw[k].T, a, out=J[:, li, :, c])
     for k, c, i, g in plan["varying"]:
         J[:, plan["src_loop"][k], :, c] += (s.member_slope(i, Q[:, g])[None, :] * tw[k]).T
     return r, errs, J.reshape(B, 6 * nl, plan["ncols"])
