@@ -128,9 +128,12 @@ def display_length(system, length_unit, scale_length):
     return label, s * per_metre
 
 
-def _number(x, digits):
+def number_text(x, digits):
     """``digits`` significant digits, but whole numbers too large for them in full
-    (45000, not 4.5e+04: a screw's many turns read as a user typed them)."""
+    (45000, not 4.5e+04: a screw's many turns read as a user typed them), and rounding
+    noise below 5e-9 of the unit shown as 0 (a distance of 8.5e-12 mm is a zero)."""
+    if abs(x) < 5e-9:
+        x = 0.0
     if math.isfinite(x) and 10.0 ** digits <= abs(x) < 1e12:
         return f"{x:.0f}"
     return f"{x:.{digits}g}"
@@ -139,9 +142,9 @@ def _number(x, digits):
 def format_value(v, kind, length=("BU", 1.0), digits=4):
     """A joint value for a message: angles in degrees, lengths in the display unit."""
     if kind == "angle":
-        return f"{_number(math.degrees(v), digits)}°"
+        return f"{number_text(math.degrees(v), digits)}°"
     label, k = length
-    return f"{_number(v * k, digits + 1)} {label}"
+    return f"{number_text(v * k, digits + 1)} {label}"
 
 
 # -- messages --------------------------------------------------------------------------

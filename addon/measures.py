@@ -407,7 +407,7 @@ def format_measure(scene, it):
     if it.kind == 'POINT':
         label, f = length
         x, y, z = (v * f for v in it.location)
-        return f"({x:.4g}, {y:.4g}, {z:.4g}) {label}"
+        return f"({convert.number_text(x, 4)}, {convert.number_text(y, 4)}, {convert.number_text(z, 4)}) {label}"
     if it.kind == 'DISTANCE':
         return convert.format_value(it.value, "length", length)
     if it.kind == 'ANGLE':
@@ -418,8 +418,8 @@ def format_measure(scene, it):
     unit = {"angle": "°", "length": label}
     scale = (f if ko == "length" else math.degrees(1.0)) / (f if kp == "length" else math.degrees(1.0))
     if ko == kp:
-        return f"{it.value:.4g}"
-    return f"{it.value * scale:.4g} {unit[ko]}/{unit[kp]}"
+        return convert.number_text(it.value, 4)
+    return f"{convert.number_text(it.value * scale, 4)} {unit[ko]}/{unit[kp]}"
 
 
 # -- operators -------------------------------------------------------------------------------

@@ -18,7 +18,8 @@ import types
 ROOT = pathlib.Path(__file__).resolve().parents[1]
 MODULE = "bl_ext.user_default.jointwise"
 PANELS = ("JOINTWISE_PT_mechanism", "JOINTWISE_PT_joints", "JOINTWISE_PT_links",
-          "JOINTWISE_PT_couplings", "JOINTWISE_PT_bake", "JOINTWISE_PT_traces")
+          "JOINTWISE_PT_couplings", "JOINTWISE_PT_measures", "JOINTWISE_PT_bake",
+          "JOINTWISE_PT_traces", "JOINTWISE_PT_clearance")
 
 
 def _value(data, name):
@@ -28,7 +29,8 @@ def _value(data, name):
     v = getattr(data, name)
     if prop.type == 'FLOAT' and prop.subtype == 'ANGLE':
         d = math.degrees(v)
-        return f"{0.0 if abs(d) < 5e-7 else d:.4g}°"
+        d = 0.0 if abs(d) < 5e-7 else d
+        return f"{d:.0f}°" if abs(d) >= 1e4 else f"{d:.4g}°"
     if prop.type == 'FLOAT' and prop.subtype == 'DISTANCE':
         import importlib
         sc = importlib.import_module(MODULE + ".scene")
@@ -39,6 +41,8 @@ def _value(data, name):
         return v.name if v is not None else "-"
     if prop.type == 'BOOLEAN':
         return "[x]" if v else "[ ]"
+    if prop.type == 'FLOAT' and getattr(prop, "is_array", False):
+        return "(" + ", ".join(f"{x:.4g}" for x in v) + ")"
     if prop.type == 'FLOAT':
         return f"{v:.4g}"
     return str(v)

@@ -129,6 +129,9 @@ def test_units_and_messages():
     assert convert.format_value(0.0125, "length", ("mm", 1000.0)) == "12.5 mm"
     # many turns in full, as typed (not 4.5e+04°)
     assert convert.format_value(math.radians(45000.0), "angle") == "45000°"
+    assert convert.format_value(8.5265e-15, "length", ("mm", 1000.0)) == "0 mm"   # rounding noise
+    assert convert.format_value(-1e-13, "angle") == "0°"                          # no "-0°"
+    assert convert.format_value(2e-8, "length", ("mm", 1.0)) == "2e-08 mm"        # small, not noise
     assert convert.format_value(-2.5, "length", ("mm", 1e5)) == "-250000 mm"
 
 
