@@ -94,7 +94,7 @@ def follow_frames(scene, mech, frames, table, progress=None):
         sing = np.asarray(getattr(sw, "singular", np.zeros(n, bool)), dtype=bool)
         if progress:
             progress(n)
-        reasons = {int(i): str(r) for i, r in dict(getattr(sw, "reasons", None) or {}).items()}
+        reasons = {int(i): posing.error_text(scene, r) for i, r in dict(getattr(sw, "reasons", None) or {}).items()}
         return Solved(frames, links, joints, conv, sing, reasons)
     err = sc.core().JointwiseError
     links = {name: np.tile(np.eye(4), (n, 1, 1)) for name in mech.links}
@@ -107,7 +107,7 @@ def follow_frames(scene, mech, frames, table, progress=None):
         try:
             pose = mech.pose({k: float(v[i]) for k, v in table.items()}, start=prev)
         except err as exc:
-            reasons[i] = sc.convert.describe_error(exc)
+            reasons[i] = posing.error_text(scene, exc)
             break  # continuation cannot go on past a failed frame
         conv[i] = pose.converged
         sing[i] = bool(getattr(pose, "singular", False))

@@ -168,6 +168,30 @@ def message_core_to_host(msg, length=("BU", 1.0)):
     return _M.sub(lambda m: f"{float(m.group(1)) * k:.6g} {label}", msg)
 
 
+def reason_text(reason, value_text):
+    """The extension's own words for a core failure, built from its structured reason
+    (``jointwise.errors.Reason``: kind, joint, loop, value, bounds) instead of rewriting the
+    core's text. ``value_text(name, v)`` formats a value of coordinate ``name`` in display
+    units (the scene mechanism's radians or scene units). None for a reason without the
+    fields its kind needs (the caller falls back to the core's text)."""
+    if reason is None:
+        return None
+    j, v, b = reason.joint, reason.value, reason.bounds
+    if reason.kind == "limit" and j is not None and v is not None and b is not None:
+        span = f"[{value_text(j, b[0])}, {value_text(j, b[1])}]"
+        if getattr(reason, "held", True):
+            return f"{j} = {value_text(j, v)} lies outside its limits {span}"
+        return f"the closed placement puts {j} at {value_text(j, v)}, outside its limits {span}"
+    if reason.kind == "unreachable" and (reason.loop or j):
+        text = f"the loop closed by joint {reason.loop!r} cannot close" if reason.loop else "the loops cannot close"
+        if j is not None and b is not None:
+            text += f"; {j} keeps it closed only up to about {value_text(j, b[1])}"
+        elif j is not None:
+            text += f" with {j} there"
+        return text
+    return None
+
+
 def describe_error(exc):
     msg = str(exc)
     loop = getattr(exc, "loop", None)

@@ -250,7 +250,7 @@ def drag(scene, obj, link_name=None, measure=None):
         if was is not None:
             from mathutils import Matrix
             obj.matrix_world = Matrix(was.tolist())
-        msg = sc.message_core_to_host(f"dragging {what}: {exc}", scene)
+        msg = f"dragging {what}: {posing.error_text(scene, exc)}"
         posing.set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         record(scene)
         return False, msg

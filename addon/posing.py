@@ -200,10 +200,18 @@ def reachable_text(scene, mech, name):
     return f"reachable from {_value_text(scene, name, lo)} to {_value_text(scene, name, hi)}"
 
 
+def error_text(scene, exc):
+    """A core failure in the extension's own words and display units: from the error's
+    structured reason where it has one; otherwise (a file or scene problem, text only) the
+    core's text with its units put into display units."""
+    text = convert.reason_text(getattr(exc, "reason", None), lambda n, v: _value_text(scene, n, v))
+    return text if text is not None else sc.message_core_to_host(convert.describe_error(exc), scene)
+
+
 def failure_text(scene, exc, asked):
     """A failure that leads with what the user can do, then the core's detail.
     ``asked``: {coordinate: value} the user asked for (the dragged one)."""
-    detail = sc.message_core_to_host(convert.describe_error(exc), scene)
+    detail = error_text(scene, exc)
     jw = scene.jointwise
     name = next((e for e in asked if e in jw.joints), None)
     if name is None or not isinstance(exc, sc.core().AssemblyError):

@@ -154,3 +154,27 @@ def test_addon_imports_point_down_the_layers():
                     t = t.split(".")[0]
                     assert layer[t] < layer[name] or (t == name), \
                         f"addon/{path.name}:{node.lineno} imports {t} (layer {layer[t]} >= {layer[name]})"
+
+
+def test_failure_words_from_the_structured_reason():
+    """The extension words a core failure from its Reason's fields in display units (no
+    rewriting of the core's text); values given in the scene mechanism's radians."""
+    from jointwise.errors import LimitError, Reason
+    deg = lambda name, v: convert.format_value(v, "angle")
+    lim = Reason("limit", joint="crank", value=math.radians(70.0),
+                 bounds=(math.radians(-60.0), math.radians(60.0)), unit="rad")
+    assert convert.reason_text(lim, deg) == "crank = 70° lies outside its limits [-60°, 60°]"
+    solved = Reason("limit", joint="rocker", value=math.radians(61.0),
+                    bounds=(math.radians(-60.0), math.radians(60.0)), unit="rad", held=False)
+    assert convert.reason_text(solved, deg) == (
+        "the closed placement puts rocker at 61°, outside its limits [-60°, 60°]")
+    far = Reason("unreachable", joint="crank", loop="pin_c", bounds=(0.0, math.radians(46.812)),
+                 unit="rad", error=1e-3)
+    assert convert.reason_text(far, deg) == (
+        "the loop closed by joint 'pin_c' cannot close; crank keeps it closed only up to about 46.81°")
+    # the error object carries the same reason; a reason without its fields gives None
+    assert convert.reason_text(LimitError(reason=lim).reason, deg).startswith("crank = 70°")
+    assert convert.reason_text(Reason("unreachable", joint="crank", loop="pin_c"), deg) == (
+        "the loop closed by joint 'pin_c' cannot close with crank there")
+    assert convert.reason_text(Reason("unreachable"), deg) is None
+    assert convert.reason_text(None, deg) is None
