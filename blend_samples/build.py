@@ -481,7 +481,7 @@ def parts_kittiwake(mech):
     frame.cylinder(o + (0, 0, -16), o + (0, 0, -4), 8).cylinder(w + (0, 0, -16), w + (0, 0, -6), 8)
     frame.span((-14, 48, 12), (-9, 80, 28)).span((9, 48, 12), (14, 80, 28))          # slide guide
     # driver: pin crank (30 mm, towards the wheel at 0 deg; home 180 deg) and the cam above
-    home = math.radians(mech.joints["drive_shaft"].home[0])
+    home = float(mech.joints["drive_shaft"].home[0])  # the core keeps angles in radians
     pin = o + 30 * np.array([math.cos(home), math.sin(home), 0.0])
     driver = Shape().bar([o, pin], (0, 0, 1), 6, 4, 2.0)
     driver.cylinder(pin + (0, 0, 2), pin + (0, 0, 12), 3.0).cylinder(o + (0, 0, -4), o + (0, 0, 26), 4.0)
@@ -494,7 +494,7 @@ def parts_kittiwake(mech):
     R = 60 * math.cos(math.pi / 6)
     table = Shape().cylinder(w + (0, 0, 0), w + (0, 0, 6), R, 48)
     table.cylinder(w + (0, 0, 6), w + (0, 0, 9), 12, 24).cylinder(w + (0, 0, 9), w + (0, 0, 12), 26, 48)
-    phi = math.radians(mech.joints["table_spindle"].home[0])
+    phi = float(mech.joints["table_spindle"].home[0])  # radians
     for k in range(6):  # slot k points at the crank centre when the wheel is at phi = 0 (turning about -z)
         a = math.pi - phi + k * math.pi / 3
         u = np.array([math.cos(a), math.sin(a), 0.0])
