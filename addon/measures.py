@@ -168,6 +168,12 @@ def refresh(scene, mech, pose):
         out, problems = evaluate(scene, mech, np.asarray(q, dtype=float)[None], links)
     except (SceneError, sc.core().JointwiseError, ValueError, np.linalg.LinAlgError) as exc:
         out, problems = {}, {m.name: str(exc) for m in jw.measures}
+    _show(jw, out, problems)
+
+
+def _show(jw, out, problems):
+    """Put one state's measures (``evaluate``'s first row) and problems on the list; a value
+    that is not finite leaves the shown one as it was."""
     for m in jw.measures:
         m.problem = problems.get(m.name, "")
         if m.name not in out:
@@ -248,14 +254,7 @@ def refresh_from_scene(scene):
     q = np.array([float(jw.joints[c].last) if c in jw.joints else 0.0 for c in mech.coordinates])[None]
     links = {l: sc.scene_displacement(scene, l)[None] for l in mech.links}
     out, problems = evaluate(scene, mech, q, links)
-    for m in jw.measures:
-        m.problem = problems.get(m.name, "")
-        if m.name in out:
-            value, loc = out[m.name]
-            if np.isfinite(value[0]):
-                m.value = float(value[0])
-            if loc is not None and np.all(np.isfinite(loc[0])):
-                m.location = [float(x) for x in loc[0]]
+    _show(jw, out, problems)
 
 
 # -- files -----------------------------------------------------------------------------------
