@@ -42,7 +42,6 @@ HANDLE = "jointwise_handle"
 MOVED = 1e-5
 
 _shown = {}      # scene pointer -> {object name: 4x4 world matrix jointwise last gave it}
-_exact = {}      # scene pointer -> (mechanism, float64 state) of the last pose jointwise applied
 _busy = [False]  # our own writes re-enter the handler through view_layer.update()
 
 
@@ -78,24 +77,6 @@ def _expected(scene, mech):
     start = posing.start_from_scene(scene, mech)
     worlds = sc.world_matrices(scene, mech.link_poses(start.q))
     return {obj.name: w for obj, w in worlds.values()}
-
-
-def _start(scene, mech):
-    """The warm start of a drag: the values of the placement the scene shows, exactly (in
-    float64) when they are those of the last pose jointwise applied (the stored values are
-    float32), so the core resumes from its own last closed state without closing it again."""
-    start = posing.start_from_scene(scene, mech)
-    hit = _exact.get(scene.as_pointer())
-    if (start is not None and hit is not None and hit[0] is mech and hit[1].shape == start.q.shape
-            and np.array_equal(hit[1].astype(np.float32), start.q.astype(np.float32))):
-        start.q = hit[1].copy()
-    return start
-
-
-def _remember(scene, mech, pose):
-    q = getattr(pose, "q", None)
-    if q is not None:
-        _exact[scene.as_pointer()] = (mech, np.array(q, dtype=float))
 
 
 # -- handles ---------------------------------------------------------------------------------
@@ -228,17 +209,17 @@ def drag(scene, obj, link_name=None, measure=None):
         mech = sc.mechanism_from_scene(scene)
         targets = _target(scene, obj, link_name, measure)
         if measure is None:
-            pose = mech.pose(start=_start(scene, mech), targets=targets)
+            pose = mech.pose(start=posing.start_from_scene(scene, mech), targets=targets)
         else:  # the point measure of the scene's list (the scene's mechanism has none)
             from jointwise.targets import pose_to_targets
-            pose = pose_to_targets(mech, None, _start(scene, mech), targets,
+            pose = pose_to_targets(mech, None, posing.start_from_scene(scene, mech), targets,
                                    measures=_measure_target(scene, mech, measure))
         if not pose.converged:
             raise sc.core().AssemblyError(f"the loops did not close (closure error {pose.residual:.3g})",
                                           error=pose.residual)
         sc.apply_displacements(scene, pose.links)
         sc.write_values(scene, pose.joints)
-        _remember(scene, mech, pose)
+        posing.remember(scene, mech, pose)
         place_handles(scene, pose.links)
         auto = scene.tool_settings.use_keyframe_insert_auto
         if auto:
@@ -320,7 +301,6 @@ def jointwise_drag(scene, depsgraph=None):
 
 
 def _after_pose(scene, mech, pose):
-    _remember(scene, mech, pose)
     place_handles(scene, pose.links)
     record(scene)
 
@@ -328,7 +308,7 @@ def _after_pose(scene, mech, pose):
 @persistent
 def jointwise_drag_load_post(*_args):
     _shown.clear()  # scene pointers of the file before mean nothing now
-    _exact.clear()
+    posing.forget()
 
 
 _HANDLERS = (
@@ -351,7 +331,7 @@ def unregister():
     if _after_pose in posing.AFTER_POSE:
         posing.AFTER_POSE.remove(_after_pose)
     _shown.clear()
-    _exact.clear()
+    posing.forget()
 
 
 def live_remove(lst, fn):

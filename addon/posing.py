@@ -56,6 +56,19 @@ def held_values(scene, mech, extra=(), values=None):
     return held
 
 
+def remember(scene, mech, pose):
+    """Keep ``pose``'s exact (float64) state as the scene's last pose: the next solve of
+    this mechanism starts from it while the list still shows it (:func:`start_from_scene`)."""
+    q = getattr(pose, "q", None)
+    if q is not None:
+        _SOLVED[scene.as_pointer()] = (mech, np.array(q, dtype=float))
+
+
+def forget():
+    """Drop every kept last pose (a file was loaded: scene pointers mean nothing now)."""
+    _SOLVED.clear()
+
+
 def start_from_scene(scene, mech):
     """A warm start for ``Mechanism.pose`` from the values of the placement the scene
     shows (``last``: the last solved values), so the solve stays on the scene's branch."""
@@ -263,9 +276,7 @@ def _pose_scene(scene, extra=(), values=None, restore_values=True):
         msg = failure_text(scene, exc, asked)
         set_status(scene, converged=False, error=getattr(exc, "error", None), message=msg)
         return False, msg
-    q = getattr(pose, "q", None)
-    if q is not None:
-        _SOLVED[scene.as_pointer()] = (mech, np.array(q, dtype=float))
+    remember(scene, mech, pose)
     msg = status_text(scene, pose, clamped)
     set_status(scene, converged=pose.converged, error=pose.residual, singular=pose.singular,
                message=msg, mobility=_or_unknown(mobility_of(mech)))
