@@ -80,7 +80,7 @@ def loop_columns(mech, block, Q):
                 site = (R @ m.joints[loop.name].point) + p
             R, p, tw, order = _step(R, p, T, X, sign)
             if tw is not None:
-                start = m._slices[jn].start
+                start = m.slices[jn].start
                 cols.extend((start + k, tw[:, k]) for k in order)
         out.append((cols, site))
     return out
@@ -185,7 +185,7 @@ def link_motion(model, Q, Qd, link, *, rot=(), links=None):
             R, p, tw, order = _step(R, p, T, X, sign)
             if tw is None:
                 continue
-            start = model._slices[jn].start
+            start = model.slices[jn].start
             for k in order:
                 cols[:, :, start + k] += tw[:, k]
                 walk.append((start + k, tw[:, k]))
@@ -218,7 +218,7 @@ def _framed_plan(model, link, rot):
             fixed = j.rotation_twists() if jn in key[1] else (j.screws if k == 1 else None)
             if fixed is None:
                 compound.append((jn, len(idx), k, sign))
-            start = model._slices[jn].start
+            start = model.slices[jn].start
             for i in (range(k) if sign > 0 else reversed(range(k))):
                 parents.append(j.parent)
                 xs.append(np.zeros(6) if fixed is None else fixed[i])
@@ -302,7 +302,7 @@ def joint_motion(model, jn, Q, prims=None):
     before the joint, ``X[k] = Ad(prefix_k) S_k`` ((k, 6), or (B, k, 6) for compound joints).
     ``prims``: the joint's :class:`spatial.UnitScrew` list, if kept by the caller."""
     j = model.joints[jn]
-    sl = model._slices[jn]
+    sl = model.slices[jn]
     B = Q.shape[0]
     if not j.primitives:
         return (np.broadcast_to(np.eye(3), (B, 3, 3)), np.zeros((B, 3))), np.zeros((0, 6))
@@ -336,7 +336,7 @@ class Evaluator:
             j = mech.joints[jn]
             self.prims[jn] = [spatial.UnitScrew(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
             if j.type == "spherical":
-                idx = range(mech._slices[jn].start, mech._slices[jn].stop)
+                idx = range(mech.slices[jn].start, mech.slices[jn].stop)
                 if all(s.master[i] == i and len(s.members[i]) == 1 and i not in held_masters for i in idx):
                     self.rotj.add(jn)
         # unknown columns, Newton mode (free spherical joints by rotation increments)
@@ -344,7 +344,7 @@ class Evaluator:
         for g in block.groups:
             if g in held_masters:
                 continue
-            if mech._owner[mech.coordinates[g]] in self.rotj:
+            if mech.owner[mech.coordinates[g]] in self.rotj:
                 continue
             self.cols_rot.append(("m", g))
         for jn in self.joints:
@@ -366,7 +366,7 @@ class Evaluator:
     def _joint(self, jn, Q, rotmode):
         prs = self.prims[jn]
         if rotmode and jn in self.rotj:
-            sl = self.m._slices[jn]
+            sl = self.m.slices[jn]
             T = prs[0].exp(Q[:, sl.start])
             for k in range(1, len(prs)):
                 T = spatial.compose_rp(T, prs[k].exp(Q[:, sl.start + k]))
@@ -403,7 +403,7 @@ class Evaluator:
         derive(s, Q, masters)
         for jn, parts in sph.items():
             j = m.joints[jn]
-            sl = m._slices[jn]
+            sl = m.slices[jn]
             d = np.stack(parts, axis=-1)
             Rn = joint_rotations(self.prims[jn], Q[:, sl], turn=d)
             Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
@@ -530,7 +530,7 @@ def loop_plan(s, block, cols, rot, coupled=True):
         fl = []
         for jn, sign in loop.steps:
             j = m.joints[jn]
-            sl = m._slices[jn]
+            sl = m.slices[jn]
             if jn == loop.name:
                 cut_pos.append(len(fl))
             start = len(fl)

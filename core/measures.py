@@ -66,7 +66,7 @@ def evaluate(mech, Q, links, held_masters=None, drive=None):
         return values, adv
     s = mech.solver
     if held_masters is None:
-        held_masters = {int(s.master[mech._index[c]]) for c in mech.driven}
+        held_masters = {int(s.master[mech.index[c]]) for c in mech.driven}
     for name, m in mech.measures.items():
         if m.type == "point":
             values[name] = _world(links, m.a[0], m.a[1])
@@ -98,14 +98,14 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     rate is the speed ratio along the mechanism's motion, whichever coordinate drove it."""
     s = mech.solver
     N = Q.shape[0]
-    io, ip = mech._require(of), mech._require(per)
+    io, ip = mech.index_of(of), mech.index_of(per)
     go, gp = int(s.master[io]), int(s.master[ip])
-    conv = mech._unit(ip) / mech._unit(io)
+    conv = mech.unit_scale(ip) / mech.unit_scale(io)
     if go == gp:
         return s.member_slope(io, Q[:, go]) / s.member_slope(ip, Q[:, go]) * np.ones(N) * conv
     held = set(held_masters)
     if gp not in held and drive is not None:
-        held.discard(int(s.master[mech._require(drive)]))
+        held.discard(int(s.master[mech.index_of(drive)]))
     held.discard(go)
     held.add(gp)
     bi = s.block_of_master.get(gp)

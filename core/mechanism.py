@@ -141,11 +141,11 @@ class Mechanism(Model):
         """
         q = self.solver.home_state() if self.loops or self.couplings else self.home.copy()
         for name, v in values.items():
-            i = self._require(name)
+            i = self.index_of(name)
             fv = float(v)
             if not math.isfinite(fv):
                 raise SpecError(f"value of {name!r} must be finite, got {v!r}", source=self.source)
-            q[i] = fv * self._unit(i)
+            q[i] = fv * self.unit_scale(i)
         err = self.solver.closure(q)[0]
         return Pose(joints=self._values_out(q), links=self.link_poses(q), converged=err <= 1e-9,
                     residual=float(err), q=q)
@@ -175,13 +175,13 @@ class Mechanism(Model):
         and one coordinate (the group's leader) of every coupling group outside all loops
         (nothing else places it)."""
         s = self.solver
-        idx = [self._require(c) for c in given]
+        idx = [self.index_of(c) for c in given]
         given_set = {self.coordinates[i] for i in idx}
-        drive_set = set(self.driven if drives is None else (self.coordinates[self._require(c)] for c in drives))
-        anim = {self.coordinates[self._require(c)] for c in animated}
+        drive_set = set(self.driven if drives is None else (self.coordinates[self.index_of(c)] for c in drives))
+        anim = {self.coordinates[self.index_of(c)] for c in animated}
         group = lambda i: s.block_of_master.get(int(s.master[i]))  # noqa: E731
         released = {group(i) for i in idx if self.coordinates[i] not in drive_set}
-        released |= {group(self._require(c)) for c in inputs}
+        released |= {group(self.index_of(c)) for c in inputs}
         released.discard(None)
         held_m = {int(s.master[i]) for i in idx}
         out = set(given_set)

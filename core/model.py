@@ -94,22 +94,25 @@ class Model:
         self.couplings = dict(couplings or {})
         self.measures = dict(measures or {})
         self.source = source
-        self._angle = ANGLE_UNITS[angle_unit]
+        self.angle_scale = ANGLE_UNITS[angle_unit]
 
-        # coordinates
+        # the coordinate layout, read by every layer above (public, fixed for the model's life):
+        #   coordinates  names in state order; kinds  "angle" or "length" per coordinate;
+        #   slices  joint -> its coordinates' slice of a state; index  coordinate -> position;
+        #   owner  coordinate -> joint; angle_scale  radians per file angle unit
         self.coordinates = []
-        self._kind = []
-        self._slices = {}
+        self.kinds = []
+        self.slices = {}
         for j in self.joints.values():
             start = len(self.coordinates)
             self.coordinates.extend(j.coordinates)
-            self._kind.extend(j.kinds)
-            self._slices[j.name] = slice(start, len(self.coordinates))
-        self._index = {c: i for i, c in enumerate(self.coordinates)}
-        self._owner = {}
+            self.kinds.extend(j.kinds)
+            self.slices[j.name] = slice(start, len(self.coordinates))
+        self.index = {c: i for i, c in enumerate(self.coordinates)}
+        self.owner = {}
         for j in self.joints.values():
             for c in j.coordinates:
-                self._owner[c] = j.name
+                self.owner[c] = j.name
         self.home = np.concatenate([j.home for j in self.joints.values()]) if self.joints else np.zeros(0)
         self._powers = None
         #: values worked out from the structure alone (mobility at home, ...): kept until
@@ -285,21 +288,21 @@ class Model:
 
     def coordinate_kind(self, name):
         """``"angle"`` or ``"length"``."""
-        return self._kind[self._require(name)]
+        return self.kinds[self.index_of(name)]
 
     def joint_of(self, coordinate):
         """Name of the joint owning ``coordinate``."""
-        self._require(coordinate)
-        return self._owner[coordinate]
+        self.index_of(coordinate)
+        return self.owner[coordinate]
 
     @property
     def driven(self):
         """Coordinates of joints with ``drive = true``."""
         return [c for j in self.joints.values() if j.drive for c in j.coordinates]
 
-    def _require(self, name):
+    def index_of(self, name):
         try:
-            return self._index[name]
+            return self.index[name]
         except KeyError:
             import difflib
             close = difflib.get_close_matches(str(name), self.coordinates, n=1)
@@ -307,23 +310,23 @@ class Model:
             raise SpecError(f"no coordinate named {name!r}{hint}", source=self.source) from None
 
     # -- units -----------------------------------------------------------------
-    def _unit(self, i):
-        return self._angle if self._kind[i] == "angle" else 1.0
+    def unit_scale(self, i):
+        return self.angle_scale if self.kinds[i] == "angle" else 1.0
 
-    def _unit_name(self, i):
+    def unit_name(self, i):
         """The file's unit text of coordinate ``i``."""
-        return self.angle_unit if self._kind[i] == "angle" else self.length_unit
+        return self.angle_unit if self.kinds[i] == "angle" else self.length_unit
 
     def to_internal(self, name, value):
-        return float(value) * self._unit(self._require(name))
+        return float(value) * self.unit_scale(self.index_of(name))
 
     def to_file(self, name, value):
-        return value / self._unit(self._require(name))
+        return value / self.unit_scale(self.index_of(name))
 
     def _values_out(self, q):
         scale = self.__dict__.get("_unit_scale")  # built once (units never change)
         if scale is None or len(scale) != len(q):
-            scale = self._unit_scale = np.array([self._unit(i) for i in range(len(q))])
+            scale = self._unit_scale = np.array([self.unit_scale(i) for i in range(len(q))])
         return dict(zip(self.coordinates, (q / scale).tolist()))
 
     # -- posing ------------------------------------------------------------------
@@ -339,7 +342,7 @@ class Model:
         eye = np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))
         ex = spatial.exp_unit(self._powers, q - self.home) if q.shape[-1] else None
         out = {}
-        for name, sl in self._slices.items():
+        for name, sl in self.slices.items():
             if sl.stop == sl.start:
                 out[name] = eye
                 continue
@@ -391,7 +394,7 @@ class Model:
         for link in self.order[1:]:
             jname, sign = self.tree_parent[link]
             j = self.joints[jname]
-            sl = self._slices[jname]
+            sl = self.slices[jname]
             t = eye
             if sl.stop > sl.start:
                 t = E[:, :, sl.start]
@@ -410,27 +413,27 @@ class Model:
     def _held_from(self, values):
         held = {}
         for name, v in (values or {}).items():
-            i = self._require(name)
+            i = self.index_of(name)
             try:
                 fv = float(v)
             except (TypeError, ValueError):
                 raise SpecError(f"value of {name!r} must be a number, got {v!r}", source=self.source) from None
             if not math.isfinite(fv):
                 raise SpecError(f"value of {name!r} must be finite, got {v!r}", source=self.source)
-            held[i] = fv * self._unit(i)
+            held[i] = fv * self.unit_scale(i)
         return held
 
     def check_limits(self, held):
         for i, v in held.items():
-            lim = self.joints[self._owner[self.coordinates[i]]].limits[self._local(i)]
+            lim = self.joints[self.owner[self.coordinates[i]]].limits[self.local_index(i)]
             if lim is not None and not lim[0] - 1e-12 <= v <= lim[1] + 1e-12:
                 c = self.coordinates[i]
-                u = self._unit(i)
+                u = self.unit_scale(i)
                 raise LimitError(reason=Reason("limit", joint=c, value=v / u, bounds=(lim[0] / u, lim[1] / u),
-                                               unit=self._unit_name(i)))
+                                               unit=self.unit_name(i)))
 
-    def _local(self, i):
-        return i - self._slices[self._owner[self.coordinates[i]]].start
+    def local_index(self, i):
+        return i - self.slices[self.owner[self.coordinates[i]]].start
 
     # -- export ----------------------------------------------------------------
     def to_dict(self):

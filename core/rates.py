@@ -263,9 +263,9 @@ def _rate_measure(mech, m, D, xd, xdd, held_masters, drive):
     d(of)/d(per) along the sweep (see the module's notes)."""
     s = mech.solver
     N = D[0].shape[0]
-    io, ip = mech._require(m.of), mech._require(m.per)
+    io, ip = mech.index_of(m.of), mech.index_of(m.per)
     go, gp = int(s.master[io]), int(s.master[ip])
-    conv = mech._unit(ip) / mech._unit(io)
+    conv = mech.unit_scale(ip) / mech.unit_scale(io)
     if go != gp:
         bo = s.block_of_master.get(go)
         if bo is None or s.block_of_master.get(gp) != bo:      # the measure is 0 throughout
@@ -320,9 +320,9 @@ def attach(mech, sw, drive, values, speed, acceleration, held_masters):
     ``measure_accelerations`` (file units per s, per s^2) to Sweep ``sw``; rows that did
     not converge, and values undefined there (see the module's notes), hold NaN (written
     as empty cells, null in JSON)."""
-    i = mech._require(drive)
+    i = mech.index_of(drive)
     t, rate = drive_timing(values, speed, acceleration)
-    unit = mech._unit(i)
+    unit = mech.unit_scale(i)
     xd = rate * unit
     xdd = float(acceleration) * unit
     rated = any(m.type == "rate" for m in mech.measures.values())
@@ -332,7 +332,7 @@ def attach(mech, sw, drive, values, speed, acceleration, held_masters):
     sw.time = t
     sw.velocities, sw.accelerations = {}, {}
     for k, c in enumerate(mech.coordinates):
-        u = mech._unit(k)
+        u = mech.unit_scale(k)
         sw.velocities[c] = np.where(bad, np.nan, Qd[:, k] / u)
         sw.accelerations[c] = np.where(bad, np.nan, Qdd[:, k] / u)
     mv, ma = measure_rates(mech, sw.q, Qd, Qdd, (D, xd, xdd, held_masters, i) if rated else None)

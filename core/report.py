@@ -471,7 +471,7 @@ def _check_span(mech, drive, start, end):
     from .spec import LIMITS
     span = abs(end - start)
     if mech.coordinate_kind(drive) == "angle":
-        turns = span * mech._unit(mech._require(drive)) / (2 * math.pi)
+        turns = span * mech.unit_scale(mech.index_of(drive)) / (2 * math.pi)
         if turns > LIMITS["turns"]:
             raise SpecError(f"--from {start:g} --to {end:g}: a span of {turns:.4g} turns of {drive!r} is "
                             f"beyond the limit of {LIMITS['turns']:g} turns of one sweep")
@@ -492,13 +492,13 @@ def sweep_command(mech, args, emit=None):
     names and moved into place only when both could be written; a sweep with unreachable
     rows is a complete answer: it is written, and the exit code is 3."""
     drive = args.drive
-    mech._require(drive)
+    mech.index_of(drive)
     held = {}
     for name, v in args.set:
         if name == drive:
             raise SpecError(f"--set {name}: {name!r} is the drive; give its range with --from/--to",
                             source=mech.source)
-        mech._require(name)
+        mech.index_of(name)
         held[name] = v
     _check_span(mech, drive, args.start, args.end)
     if args.plot:
@@ -587,7 +587,7 @@ def range_command(mech, args, emit):
     for name, v in args.set:
         if name == args.drive:
             raise SpecError(f"--set {name}: {name!r} is the drive of the range", source=mech.source)
-        mech._require(name)
+        mech.index_of(name)
         held[name] = v
     res = reach(mech, args.drive, held)
     if args.format == "json":
@@ -613,7 +613,7 @@ def cam_command(mech, args, emit):
     except CamError as exc:
         print(f"jointwise: {os.path.basename(args.file)}: {exc}", file=sys.stderr)
         return EXIT_ASSEMBLY
-    au = mech._angle
+    au = mech.angle_scale
     radius = res["profile_radius"]
     cols = [np.round(res["theta"] / au, 9), res["lift"], res["pitch"][:, 0], res["pitch"][:, 1],
             res["profile"][:, 0], res["profile"][:, 1], res["pressure_angle"] / au, radius]

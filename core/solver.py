@@ -144,7 +144,7 @@ class Solver:
         self._crossed = False
         #: after a failed continuation: the farthest closed state it reached (for ``reach``)
         self.last_closed = None
-        self.is_length = np.array([k == "length" for k in mech._kind], dtype=bool)
+        self.is_length = np.array([k == "length" for k in mech.kinds], dtype=bool)
         # dimensionless scale of each coordinate
         self.cscale = np.where(self.is_length, 1.0 / self.L, 1.0)
         self.rscale = np.array([1, 1, 1, 1 / self.L, 1 / self.L, 1 / self.L])
@@ -171,13 +171,13 @@ class Solver:
         adj = {i: [] for i in range(n)}
         followers = set()
         for c in m.couplings.values():
-            li, fi = m._index[c.leader], m._index[c.follower]
+            li, fi = m.index[c.leader], m.index[c.follower]
             if c.law is not None:
                 adj[li].append((fi, c.law, None, c.name))       # q_f = f(q_l)
                 adj[fi].append((li, None, None, c.name))        # not invertible
                 followers.add(fi)
                 continue
-            ul, uf = m._unit(li), m._unit(fi)
+            ul, uf = m.unit_scale(li), m.unit_scale(fi)
             a = uf * c.ratio / ul
             b = uf * c.offset
             adj[li].append((fi, a, b, c.name))            # q_f = a q_l + b
@@ -259,7 +259,7 @@ class Solver:
         owner = {}
         for li, loop in enumerate(m.loops):
             for jname, _ in loop.steps:
-                for i in range(m._slices[jname].start, m._slices[jname].stop):
+                for i in range(m.slices[jname].start, m.slices[jname].stop):
                     g = int(self.master[i])
                     if g in owner:
                         parent[find(li)] = find(owner[g])
@@ -278,7 +278,7 @@ class Solver:
                     if jname not in joints:
                         joints.append(jname)
             masters = sorted({int(self.master[i]) for jn in joints
-                              for i in range(m._slices[jn].start, m._slices[jn].stop)})
+                              for i in range(m.slices[jn].start, m.slices[jn].stop)})
             self.blocks.append(_Block(bi, loops, joints, masters))
             for g in masters:
                 self.block_of_master[g] = bi
@@ -300,13 +300,13 @@ class Solver:
             j = m.joints[jn]
             if j.type != "spherical":
                 continue
-            idx = range(m._slices[jn].start, m._slices[jn].stop)
+            idx = range(m.slices[jn].start, m.slices[jn].stop)
             if all(self.master[i] == i and len(self.members[i]) == 1 and i not in held_masters for i in idx):
                 rot.add(jn)
         for g in block.groups:
             if g in held_masters:
                 continue
-            if m._owner[m.coordinates[g]] in rot and len(self.members[g]) == 1:
+            if m.owner[m.coordinates[g]] in rot and len(self.members[g]) == 1:
                 continue
             cols.append(("m", g))
         for jn in block.joints:
@@ -356,7 +356,7 @@ class Solver:
             # the increment turns about world axes through the joint point: its rotation is
             # exp3(d) (the rotation twists' angular parts are the unit axes); the coordinates
             # read only the rotation of the joint's new displacement
-            sl = m._slices[jn]
+            sl = m.slices[jn]
             rn = kinematics.rotation_one(d) @ kinematics.joint_rotation_one(self._unit_screws(jn), q[sl])
             q[sl] = m.joints[jn].coordinates_from_transform(rn, near=q[sl])
 
@@ -487,24 +487,24 @@ class Solver:
             errs.extend(self._eval(b, q, [], set(), jac=False)[1])
         m = self.m
         for name, e in self.coupling_errors(q).items():
-            errs.append(e * self.qerr[m._index[m.couplings[name].follower]])
+            errs.append(e * self.qerr[m.index[m.couplings[name].follower]])
         return (max(errs) if errs else 0.0), errs
 
     def coupling_errors(self, q):
         m = self.m
         out = {}
         for c in m.couplings.values():
-            li, fi = m._index[c.leader], m._index[c.follower]
+            li, fi = m.index[c.leader], m.index[c.follower]
             if c.law is not None:
                 out[c.name] = float(abs(q[fi] - c.law.evaluate(q[li])[0]))
                 continue
-            a = m._unit(fi) * c.ratio / m._unit(li)
-            out[c.name] = float(abs(q[fi] - (a * q[li] + m._unit(fi) * c.offset)))
+            a = m.unit_scale(fi) * c.ratio / m.unit_scale(li)
+            out[c.name] = float(abs(q[fi] - (a * q[li] + m.unit_scale(fi) * c.offset)))
         return out
 
     def _loops_of(self, i):
         """Names of the loops whose walk passes the joint owning coordinate ``i``."""
-        jn = self.m._owner[self.m.coordinates[i]]
+        jn = self.m.owner[self.m.coordinates[i]]
         return [lp.name for lp in self.m.loops if any(j == jn for j, _ in lp.steps)]
 
     def home_state(self):
@@ -518,16 +518,16 @@ class Solver:
             if err <= TOLERANCE:
                 continue
             c = m.couplings[name]
-            fi = m._index[c.follower]
+            fi = m.index[c.follower]
             tol = ASSEMBLY_TOLERANCE * (self.L if self.is_length[fi] else 1.0)
-            unit = m.angle_unit if m._kind[fi] == "angle" else m.length_unit
+            unit = m.angle_unit if m.kinds[fi] == "angle" else m.length_unit
             loops = self._loops_of(fi)
             where = f"; it feeds the loop closed by joint {loops[0]!r}" if loops else ""
-            gap = err / m._unit(fi)
+            gap = err / m.unit_scale(fi)
             if err > tol:
                 raise AssemblyError(
                     f"coupling {name!r} does not hold at home: {c.follower} is off by {gap:.6g} {unit} "
-                    f"(assembly tolerance {tol / m._unit(fi):.3g} {unit}){where}",
+                    f"(assembly tolerance {tol / m.unit_scale(fi):.3g} {unit}){where}",
                     loop=loops[0] if loops else None, error=float(err), joint=c.follower)
             notes.append(f"home placement settled: coupling {name!r} was off by {gap:.3g} {unit}")
         self._derive(q, list(self.members))
@@ -601,7 +601,7 @@ class Solver:
         if idx is None:
             m = self.m
             idx = self._block_idx[b.index] = np.array(
-                [i for jn in b.joints for i in range(m._slices[jn].start, m._slices[jn].stop)], dtype=int)
+                [i for jn in b.joints for i in range(m.slices[jn].start, m.slices[jn].stop)], dtype=int)
         return idx
 
     def kept_drives(self, explicit):
@@ -615,7 +615,7 @@ class Solver:
         if hit is None:
             driven = set(m.driven)
             names = m.held_coordinates([m.coordinates[i] for i in explicit])
-            hit = [m._index[c] for c in names if c in driven and m._index[c] not in explicit]
+            hit = [m.index[c] for c in names if c in driven and m.index[c] not in explicit]
             _remember(self._kept, key, hit)
         return list(hit)
 
@@ -795,7 +795,7 @@ class Solver:
             if c[0] == "m":
                 d = max(d, abs(a[c[1]] - b[c[1]]) * self.cscale[c[1]])
         for jn in {c[1] for c in cols if c[0] == "s"}:
-            sl = self.m._slices[jn]
+            sl = self.m.slices[jn]
             prims = self._unit_screws(jn)
             rel = kinematics.joint_rotation_one(prims, a[sl]).T @ kinematics.joint_rotation_one(prims, b[sl])
             d = max(d, float(np.linalg.norm(spatial.log3(rel))))
@@ -822,8 +822,8 @@ class Solver:
             blame = m.coordinates[source.get(g, g)]
         where = ""
         if blame is not None:
-            i = m._index[blame]
-            unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+            i = m.index[blame]
+            unit = m.angle_unit if m.kinds[i] == "angle" else m.length_unit
             reached = self.member_rates(i, q[int(self.master[i])])[0]
             where = (f"; the held value of {blame!r} is likely out of reach "
                      f"(the loop stays closed only up to about {m.to_file(blame, reached):.6g} {unit})")
@@ -876,7 +876,7 @@ class Solver:
                 cols, _ = self._layout(b, held_m)
                 cols = [c for c in cols if c[0] == "m"] + [
                     ("m", i) for jn in b.joints if self.m.joints[jn].type == "spherical"
-                    for i in range(self.m._slices[jn].start, self.m._slices[jn].stop)
+                    for i in range(self.m.slices[jn].start, self.m.slices[jn].stop)
                     if i not in held_m and ("m", i) not in cols]
                 hit = _remember(self._tangent_cols, key, (cols, cols + [("m", gper)]))
             cols, allcols = hit
@@ -904,8 +904,8 @@ class Solver:
             m = self.m
             table = []
             for i, c in enumerate(m.coordinates):
-                j = m.joints[m._owner[c]]
-                lim = j.limits[i - m._slices[j.name].start]
+                j = m.joints[m.owner[c]]
+                lim = j.limits[i - m.slices[j.name].start]
                 if lim is not None:
                     table.append((i, lim[0], lim[1], TOLERANCE / self.qerr[i], c))
             self._limit_table = table
@@ -913,8 +913,8 @@ class Solver:
 
     def _limit_error(self, i, value, c, lo, hi, on_the_way):
         m = self.m
-        u = m._unit(i)
-        unit = m.angle_unit if m._kind[i] == "angle" else m.length_unit
+        u = m.unit_scale(i)
+        unit = m.angle_unit if m.kinds[i] == "angle" else m.length_unit
         from .errors import LimitError, Reason
         if on_the_way:
             why = Reason("limit", joint=c, value=float(value / u), bounds=(lo / u, hi / u), unit=unit,
@@ -967,13 +967,13 @@ class Solver:
             _, _, J = self._eval_members(b, q, full, rot)
             block = np.zeros((6 * nl, self.n))
             for ci, c in enumerate(full):
-                idx = c[1] if c[0] == "c" else m._slices[c[1]].start + c[2]
+                idx = c[1] if c[0] == "c" else m.slices[c[1]].start + c[2]
                 block[:, idx] = J[:, ci] / (self.cscale[idx] if c[0] == "c" else 1.0)
             rows.append(block * rs[:, None])
         for c in m.couplings.values():
             row = np.zeros(self.n)
-            li, fi = m._index[c.leader], m._index[c.follower]
-            a = m._unit(fi) * c.ratio / m._unit(li) if c.law is None else float(c.law.evaluate(q[li])[1])
+            li, fi = m.index[c.leader], m.index[c.follower]
+            a = m.unit_scale(fi) * c.ratio / m.unit_scale(li) if c.law is None else float(c.law.evaluate(q[li])[1])
             row[fi] = 1.0 / self.cscale[fi]
             row[li] = -a / self.cscale[li]
             row /= np.abs(row).max()

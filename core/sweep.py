@@ -169,17 +169,17 @@ def _run(mech, explicit, N, q0, release):
     # limits of every coordinate
     lim_bad = np.zeros(N, bool)
     for i, c in enumerate(mech.coordinates):
-        j = mech.joints[mech._owner[c]]
-        lim = j.limits[i - mech._slices[j.name].start]
+        j = mech.joints[mech.owner[c]]
+        lim = j.limits[i - mech.slices[j.name].start]
         if lim is None:
             continue
         slack = 1e-9 / s.qerr[i]  # radian, or a fraction of the mechanism's size
         bad = (Q[:, i] < lim[0] - slack) | (Q[:, i] > lim[1] + slack)
         for k in np.flatnonzero(bad & good & ~lim_bad):
-            u = mech._unit(i)
+            u = mech.unit_scale(i)
             reasons[int(k)] = Note(f"limit of joint {j.name}" + (f" ({c})" if c != j.name else ""),
                                    Reason("limit", joint=c, value=float(Q[k, i] / u),
-                                          bounds=(lim[0] / u, lim[1] / u), unit=mech._unit_name(i), held=False))
+                                          bounds=(lim[0] / u, lim[1] / u), unit=mech.unit_name(i), held=False))
         lim_bad |= bad
     conv = good & ~lim_bad
     # singular flags on the solved states
@@ -695,7 +695,7 @@ def _rot_diff(ev, A, Bq):
             out[:, ci] = d * s.cscale[c[1]]
         else:
             if c[1] not in rots:
-                sl = ev.m._slices[c[1]]
+                sl = ev.m.slices[c[1]]
                 ra = _joint_rotation(ev, c[1], A[:, sl])
                 rb = _joint_rotation(ev, c[1], Bq[:, sl])
                 rots[c[1]] = spatial.log3(rb @ np.swapaxes(ra, 1, 2))
@@ -884,7 +884,7 @@ def _start_q(mech, start):
 
 def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
     from .measures import evaluate
-    scale = np.array([mech._unit(i) for i in range(mech.solver.n)])
+    scale = np.array([mech.unit_scale(i) for i in range(mech.solver.n)])
     joints = {c: Q[:, i] / scale[i] for i, c in enumerate(mech.coordinates)}
     links = link_poses(mech, Q)
     meas, adv = evaluate(mech, Q, links, held_m, drive)
@@ -908,7 +908,7 @@ def link_poses(mech, Q):
 def _as_rows(mech, table, N=None):
     explicit = {}
     for name, vals in table.items():
-        i = mech._require(name)
+        i = mech.index_of(name)
         a = np.atleast_1d(np.asarray(vals, dtype=float))
         if a.ndim != 1:
             raise SpecError(f"values of {name!r} must be one-dimensional", source=mech.source)
@@ -921,7 +921,7 @@ def _as_rows(mech, table, N=None):
         if not np.all(np.isfinite(a)):
             k = int(np.flatnonzero(~np.isfinite(a))[0])
             raise SpecError(f"values of {name!r} must be finite (row {k} is {float(a[k])})", source=mech.source)
-        explicit[i] = a * mech._unit(i)
+        explicit[i] = a * mech.unit_scale(i)
     return explicit, (N or 0)
 
 
@@ -939,7 +939,7 @@ def sweep(mech, drive, values, held=None, *, start=None, speed=None, acceleratio
     values = np.atleast_1d(np.asarray(values, dtype=float))
     if values.ndim != 1 or len(values) == 0:
         raise JointwiseError("values must be a non-empty one-dimensional sequence")
-    mech._require(drive)
+    mech.index_of(drive)
     if speed is not None:  # check the timing before solving
         from .rates import drive_timing
         drive_timing(values, speed, acceleration)
@@ -1103,7 +1103,7 @@ def sweep_schedule(mech, schedule, samples=None, *, start=None, ease="linear", r
             raise JointwiseError("schedule must be a CSV path or a non-empty dict {coordinate: keys}")
         ats = []
         for name, keys in schedule.items():
-            mech._require(name)
+            mech.index_of(name)
             for key in keys:
                 try:
                     ats.append(float(key["at"] if isinstance(key, dict) else key[0]))
@@ -1120,7 +1120,7 @@ def sweep_schedule(mech, schedule, samples=None, *, start=None, ease="linear", r
             param = np.asarray(samples, dtype=float)
         table = {name: _keys_values(name, keys, param, ease) for name, keys in schedule.items()}
     for name in table:
-        mech._require(name)
+        mech.index_of(name)
     explicit, N = _as_rows(mech, table)
     q0 = _start_q(mech, start)
     Q, conv, sing, resid, reasons, held_m = _run(mech, explicit, N, q0, release=release)
@@ -1160,14 +1160,14 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
     it).  The file's drives are released, ``held`` holds others.
     """
     s = mech.solver
-    di = mech._require(drive)
-    unit = mech._unit(di)
-    is_angle = mech._kind[di] == "angle"
+    di = mech.index_of(drive)
+    unit = mech.unit_scale(di)
+    is_angle = mech.kinds[di] == "angle"
     heldv = {}
     for k, v in (held or {}).items():
         if k == drive:
             raise JointwiseError(f"{drive!r} is the drive; it cannot also be held")
-        heldv[mech._require(k)] = float(v) * mech._unit(mech._require(k))
+        heldv[mech.index_of(k)] = float(v) * mech.unit_scale(mech.index_of(k))
     mech.check_limits(heldv)
     q_home = s.home_state()  # home is settled with the file's own drives
     if heldv:
@@ -1176,8 +1176,8 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
     if step is None:
         step = 2.0 * (math.pi / 180) / unit if is_angle else mech.size / 50.0
     full = 2 * math.pi / unit if is_angle else None
-    j = mech.joints[mech._owner[drive]]
-    lim = j.limits[di - mech._slices[j.name].start]
+    j = mech.joints[mech.owner[drive]]
+    lim = j.limits[di - mech.slices[j.name].start]
     if max_travel is None:
         if is_angle:
             max_travel = (SEARCH_TURNS if max_turns is None else max_turns) * full
@@ -1196,7 +1196,7 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
         try:
             q, info = s.pose(h, qstart, release=True)
         except LimitError as exc:
-            jn = mech._owner.get(exc.joint, exc.joint) if exc.joint else "?"
+            jn = mech.owner.get(exc.joint, exc.joint) if exc.joint else "?"
             return None, f"limit of joint {jn}"
         except JointwiseError:
             return None, "dead point"

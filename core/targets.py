@@ -153,14 +153,14 @@ class _Layout:
         for jn, j in m.joints.items():
             if j.type != "spherical":
                 continue
-            idx = range(m._slices[jn].start, m._slices[jn].stop)
+            idx = range(m.slices[jn].start, m.slices[jn].stop)
             # a limited ball joint keeps its coordinates as columns, so limits hold on them
             if all(solver.master[i] == i and len(solver.members[i]) == 1 and i not in fixed
-                   and j.limits[i - m._slices[jn].start] is None for i in idx):
+                   and j.limits[i - m.slices[jn].start] is None for i in idx):
                 rot.add(jn)
         cols = []
         for g in sorted(solver.members):
-            if g in fixed or m._owner[m.coordinates[g]] in rot:
+            if g in fixed or m.owner[m.coordinates[g]] in rot:
                 continue
             cols.append(("m", g))
         for jn in m.joints:
@@ -180,7 +180,7 @@ class _Layout:
         self.laws = []  # (member, master, column): slope of a motion law at q
         for k, c in enumerate(cols):
             if c[0] == "s":
-                self.lin[m._slices[c[1]].start + c[2], k] = 1.0
+                self.lin[m.slices[c[1]].start + c[2], k] = 1.0
                 continue
             for i in solver.members[c[1]]:
                 if i in solver.law:
@@ -213,8 +213,8 @@ class _Shared:
         for g, members in s.members.items():
             lo, hi = -math.inf, math.inf
             for i in members:
-                j = mech.joints[mech._owner[mech.coordinates[i]]]
-                lim = j.limits[mech._local(i)]
+                j = mech.joints[mech.owner[mech.coordinates[i]]]
+                lim = j.limits[mech.local_index(i)]
                 if lim is None or i in s.law:  # a motion law's follower: checked after solving
                     continue
                 a, b = (lim[0] - s.beta[i]) / s.alpha[i], (lim[1] - s.beta[i]) / s.alpha[i]

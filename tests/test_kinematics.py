@@ -138,7 +138,7 @@ def test_link_columns_of_rotation_increments_match_the_solvers_step():
     cols = link_motion(m, q[None], None, "coupler", rot={"ball_a"}, links=m.link_poses(q))[1]
     walked = link_motion(m, q[None], None, "coupler", rot={"ball_a"})[1]
     assert np.allclose(walked, cols, atol=1e-12)
-    sl = m._slices["ball_a"]
+    sl = m.slices["ball_a"]
     for k in range(3):
         du = np.zeros(3)
         du[k] = h

@@ -146,7 +146,7 @@ def test_slider_crank_offset_changes_stroke():
 @pytest.mark.parametrize("beta", [15.0, 30.0, 40.0])
 def test_hooke_speed_ratio_extremes_and_one_turn(beta):
     m = load(M.hooke(beta))
-    i_in, i_out = m._index["input"], m._index["output"]
+    i_in, i_out = m.index["input"], m.index["output"]
     cb = math.cos(math.radians(beta))
     ratios, outs = [], []
     prev = None

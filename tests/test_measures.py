@@ -94,7 +94,7 @@ def test_rate_matches_solver_tangent():
     m = load(fourbar_toml(measures=meas))
     vals = np.linspace(60, 300, 9)
     sw = sweep(m, "crank", vals)
-    ic, ir = m._index["crank"], m._index["rocker"]
+    ic, ir = m.index["crank"], m.index["rocker"]
     for i in range(len(vals)):
         dq = m.solver.tangent(sw.q[i], [], ic)
         assert abs(sw.measures["ratio"][i] - dq[ir]) < 1e-10  # deg/deg = rad/rad

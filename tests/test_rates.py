@@ -290,7 +290,7 @@ def test_spatial_rssr_rocker_against_central_differences():
     from mechanisms import rssr
     m = jointwise.from_dict(rssr())
     d = m.driven[0]
-    v = np.linspace(0, 40, 21) + math.degrees(m.home[m._index[d]])
+    v = np.linspace(0, 40, 21) + math.degrees(m.home[m.index[d]])
     s = m.sweep(d, v, speed=10.0, acceleration=2.0)
     h = 0.05
     pos = {k: m.sweep(d, v + k * h).joints["rocker"] for k in (-2, -1, 1, 2)}

@@ -71,7 +71,7 @@ def scipy_baseline(mech, vals, count=200):
     from scipy.optimize import least_squares
     s = mech.solver
     b = s.blocks[0]
-    di = mech._index["crank"]
+    di = mech.index["crank"]
     ev = S._Evaluator(mech, b, {di})
     unk = [c[1] for c in ev.cols_coord]
     q = s.home_state()
