@@ -109,7 +109,7 @@ def evaluate(scene, mech, Q, links, ramp=None):
         if len(Q) == 1:
             values[name] = np.array([_rate_at(mech, Q[0], m.of, m.per, held)])
         else:
-            masters = {int(mech.solver.master[i]) for i in held}
+            masters = {int(mech.coupling_table.master[i]) for i in held}
             values.update(core_evaluate(_WithMeasures(mech, {name: m}), Q, links,
                                         held_masters=masters)[0])
     g = sc.ground_displacement(scene)

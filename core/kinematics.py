@@ -29,7 +29,7 @@ from . import spatial
 from .linalg import least_norm
 from .units import CHUNK
 
-__all__ = ["Evaluator", "derive", "tangent", "loop_bias", "loop_columns", "walk_terms", "at_site",
+__all__ = ["Evaluator", "tangent", "loop_bias", "loop_columns", "walk_terms", "at_site",
            "point_motion", "axis_motion", "link_motion", "joint_motion"]
 
 
@@ -327,6 +327,7 @@ class Evaluator:
 
     def __init__(self, mech, block, held_masters):
         s = mech.solver
+        ct = mech.coupling_table
         self.m, self.s, self.block = mech, s, block
         self.held = sorted(g for g in block.groups if g in held_masters)
         self.joints = list(block.joints)
@@ -337,7 +338,7 @@ class Evaluator:
             self.prims[jn] = [spatial.UnitScrew(pr.screw, h) for pr, h in zip(j.primitives, j.home)]
             if j.type == "spherical":
                 idx = range(mech.slices[jn].start, mech.slices[jn].stop)
-                if all(s.master[i] == i and len(s.members[i]) == 1 and i not in held_masters for i in idx):
+                if all(ct.master[i] == i and len(ct.members[i]) == 1 and i not in held_masters for i in idx):
                     self.rotj.add(jn)
         # unknown columns, Newton mode (free spherical joints by rotation increments)
         self.cols_rot = []
@@ -391,7 +392,7 @@ class Evaluator:
 
     def apply(self, Q, du, cols):
         """Add steps du (B, len(cols)) (internal units) to states Q (B, n), in place."""
-        m, s = self.m, self.s
+        m = self.m
         sph = {}
         masters = []
         for ci, c in enumerate(cols):
@@ -400,7 +401,7 @@ class Evaluator:
                 masters.append(c[1])
             else:
                 sph.setdefault(c[1], [None] * 3)[c[2]] = du[:, ci]
-        derive(s, Q, masters)
+        m.coupling_table.derive(Q, masters)
         for jn, parts in sph.items():
             j = m.joints[jn]
             sl = m.slices[jn]
@@ -470,14 +471,6 @@ def rotation_one(w):
                      [b * x * z - a * y, b * y * z + a * x, 1 - b * (x * x + y * y)]])
 
 
-def derive(s, Q, masters):
-    """Set every coupled member of ``masters`` from its master, in place (states Q (B, n))."""
-    for g in masters:
-        for i in s.members[g]:
-            if i != g:
-                Q[:, i] = s.member_rates(i, Q[:, g])[0] if i in s.law else s.alpha[i] * Q[:, g] + s.beta[i]
-
-
 def tangent(ev, Q):
     """dq/dheld (B, n_coordcols, n_held) in coordinate mode and the coord columns."""
     if Q.shape[0] > CHUNK:
@@ -517,9 +510,10 @@ def loop_plan(s, block, cols, rot, coupled=True):
     the factor gives the same column), or for a free spherical joint in ``rot`` its three
     rotation twists carried by the prefix before (forward) or after (reversed) the joint;
     ``W`` maps these sources to the columns (coupling ratios; motion-law slopes are added
-    at each evaluation).  ``s``: the solver (couplings: master, alpha, law).  With
+    at each evaluation).  ``s``: the solver (couplings: its model's coupling table).  With
     ``coupled=False`` couplings are not eliminated: column ``("m", i)`` is coordinate i."""
     m = s.m
+    ct = m.coupling_table
     colidx = {c: k for k, c in enumerate(cols)}
     screws, pidx, phome, psign = [], [], [], []
     loops_f = []           # per loop: factor indices (into the stacked exponentials)
@@ -544,14 +538,14 @@ def loop_plan(s, block, cols, rot, coupled=True):
                 if jn in rot:
                     continue
                 i = sl.start + k
-                g = int(s.master[i]) if coupled else i
+                g = int(ct.master[i]) if coupled else i
                 weights = {}
                 c = colidx.get(("m", g))
                 if c is not None:
-                    if coupled and i in s.law:
+                    if coupled and i in ct.law:
                         varying.append((len(src_loop), c, i, g))
                     else:
-                        weights[c] = s.alpha[i] if coupled else 1.0
+                        weights[c] = ct.alpha[i] if coupled else 1.0
                 src_loop.append(li)
                 src_pos.append(len(fl) - 1)
                 src_tw.append(j.primitives[k].screw)
@@ -662,7 +656,7 @@ def eval_one(s, plan, q, jac=True):
     if plan["varying"]:
         Wq = Wq.copy()
         for k, c, i, g in plan["varying"]:
-            Wq[k, c] += s.member_slope(i, q[g])
+            Wq[k, c] += s.m.coupling_table.member_slope(i, q[g])
     if nl == 1:
         return r, errs, tw.T @ Wq
     big = np.zeros((6 * nl, tw.shape[0]))
@@ -740,5 +734,5 @@ def eval_stack(s, plan, Q, jac=True):
         else:
             np.multiply(tw[k].T, a, out=J[:, li, :, c])
     for k, c, i, g in plan["varying"]:
-        J[:, plan["src_loop"][k], :, c] += (s.member_slope(i, Q[:, g])[None, :] * tw[k]).T
+        J[:, plan["src_loop"][k], :, c] += (s.m.coupling_table.member_slope(i, Q[:, g])[None, :] * tw[k]).T
     return r, errs, J.reshape(B, 6 * nl, plan["ncols"])

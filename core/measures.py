@@ -64,9 +64,8 @@ def evaluate(mech, Q, links, held_masters=None, drive=None):
     values, adv = {}, {}
     if not mech.measures:
         return values, adv
-    s = mech.solver
     if held_masters is None:
-        held_masters = {int(s.master[mech.index[c]]) for c in mech.driven}
+        held_masters = {int(mech.coupling_table.master[mech.index[c]]) for c in mech.driven}
     for name, m in mech.measures.items():
         if m.type == "point":
             values[name] = _world(links, m.a[0], m.a[1])
@@ -96,16 +95,16 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     ``per`` takes the place of the run's input: the held set is ``held_masters`` with the
     drive (when ``per`` is not held already) and ``of`` released and ``per`` held, so the
     rate is the speed ratio along the mechanism's motion, whichever coordinate drove it."""
-    s = mech.solver
+    s, ct = mech.solver, mech.coupling_table
     N = Q.shape[0]
     io, ip = mech.index_of(of), mech.index_of(per)
-    go, gp = int(s.master[io]), int(s.master[ip])
+    go, gp = int(ct.master[io]), int(ct.master[ip])
     conv = mech.unit_scale(ip) / mech.unit_scale(io)
     if go == gp:
-        return s.member_slope(io, Q[:, go]) / s.member_slope(ip, Q[:, go]) * np.ones(N) * conv
+        return ct.member_slope(io, Q[:, go]) / ct.member_slope(ip, Q[:, go]) * np.ones(N) * conv
     held = set(held_masters)
     if gp not in held and drive is not None:
-        held.discard(int(s.master[mech.index_of(drive)]))
+        held.discard(int(ct.master[mech.index_of(drive)]))
     held.discard(go)
     held.add(gp)
     bi = s.block_of_master.get(gp)
@@ -116,4 +115,4 @@ def rate(mech, Q, of, per, held_masters, drive=None):
     ci = [c[1] for c in ev.cols_coord].index(go)
     hi = ev.held.index(gp)
     dg = T[:, ci, hi]
-    return dg * s.member_slope(io, Q[:, go]) / s.member_slope(ip, Q[:, gp]) * conv
+    return dg * ct.member_slope(io, Q[:, go]) / ct.member_slope(ip, Q[:, gp]) * conv

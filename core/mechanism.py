@@ -174,19 +174,19 @@ class Mechanism(Model):
         animated ones not released (one per coupling group: the coupling places the others),
         and one coordinate (the group's leader) of every coupling group outside all loops
         (nothing else places it)."""
-        s = self.solver
+        s, ct = self.solver, self.coupling_table
         idx = [self.index_of(c) for c in given]
         given_set = {self.coordinates[i] for i in idx}
         drive_set = set(self.driven if drives is None else (self.coordinates[self.index_of(c)] for c in drives))
         anim = {self.coordinates[self.index_of(c)] for c in animated}
-        group = lambda i: s.block_of_master.get(int(s.master[i]))  # noqa: E731
+        group = lambda i: s.block_of_master.get(int(ct.master[i]))  # noqa: E731
         released = {group(i) for i in idx if self.coordinates[i] not in drive_set}
         released |= {group(self.index_of(c)) for c in inputs}
         released.discard(None)
-        held_m = {int(s.master[i]) for i in idx}
+        held_m = {int(ct.master[i]) for i in idx}
         out = set(given_set)
         for i, c in enumerate(self.coordinates):
-            g = int(s.master[i])
+            g = int(ct.master[i])
             if c in given_set or g in held_m:
                 continue
             block = s.block_of_master.get(g)

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import spatial
+from .coupling_table import CouplingTable
 from .errors import LimitError, Reason, SpecError
 from .units import ANGLE_UNITS, ASSEMBLY_TOLERANCE, COAXIAL_TOLERANCE, FORMAT
 
@@ -120,6 +121,9 @@ class Model:
         self._derived = {}
         self._build_tree()
         self.size = self._size()
+        #: the coupling groups (master, ratio and offset, motion law): built once here, asked
+        #: by the solver, sweeps, rates, measures and targets
+        self.coupling_table = CouplingTable(self)
 
     # -- structure -------------------------------------------------------------
     def _build_tree(self):

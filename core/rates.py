@@ -67,12 +67,12 @@ def drive_derivatives(mech, Q, held_masters, drive, order=2):
     index.  Returns ``[D1, D2]`` (``order=2``) or ``[D1, D2, D3]`` (``order=3``), each
     (N, n): ``d^k q / dx^k`` in internal units (x the drive's value, internal units).
     One walk of each loop per chunk of states gives the columns of every order."""
-    s = mech.solver
+    s, ct = mech.solver, mech.coupling_table
     Q = np.asarray(Q, dtype=float)
     N, n = Q.shape
     D = [np.zeros((N, n)) for _ in range(order)]
-    g = int(s.master[drive])
-    D[0][:, g] = 1.0 / (s.member_slope(drive, Q[:, g]) * np.ones(N))   # a linear member: 1 / alpha
+    g = int(ct.master[drive])
+    D[0][:, g] = 1.0 / (ct.member_slope(drive, Q[:, g]) * np.ones(N))   # a linear member: 1 / alpha
     bi = s.block_of_master.get(g)
     if bi is not None:
         b = s.blocks[bi]
@@ -83,13 +83,13 @@ def drive_derivatives(mech, Q, held_masters, drive, order=2):
                 part = _block_derivatives(mech, b, Q[sl], [d[sl] for d in D], g, unknown)
                 for d, v in zip(D, part):
                     d[sl] = v
-    _members(s, Q, D, [int(m) for m in s.members])   # members of every group follow their master
+    _members(mech, Q, D, [int(m) for m in ct.members])   # members of every group follow their master
     return D
 
 
 def _block_derivatives(mech, b, Q, D, g, unknown):
     """:func:`drive_derivatives` on one chunk of states for the drive's block ``b``."""
-    s = mech.solver
+    s, ct = mech.solver, mech.coupling_table
     B = Q.shape[0]
     D = [d.copy() for d in D]
     walks = kinematics.loop_columns(mech, b, Q)
@@ -100,10 +100,10 @@ def _block_derivatives(mech, b, Q, D, g, unknown):
     jh = np.zeros((B, 6 * len(b.loops)))
     for li, (cols, site) in enumerate(walks):
         for i, col in cols:
-            m = int(s.master[i])
+            m = int(ct.master[i])
             if m != g and m not in col_of:
                 continue
-            row = kinematics.at_site(col, site) * np.reshape(s.member_slope(i, Q[:, m]) * np.ones(B), (-1, 1))
+            row = kinematics.at_site(col, site) * np.reshape(ct.member_slope(i, Q[:, m]) * np.ones(B), (-1, 1))
             if m == g:
                 jh[:, 6 * li:6 * li + 6] += row
             else:
@@ -116,7 +116,7 @@ def _block_derivatives(mech, b, Q, D, g, unknown):
         u = least_norm(Js, rhs)[0][:, :, 0] * cs[None, :]
         for m, c in col_of.items():
             D[k][:, m] = u[:, c]
-        _members(s, Q, D[:k + 1], b.groups, only=k)
+        _members(mech, Q, D[:k + 1], b.groups, only=k)
 
     def rest(terms, extra):
         """Loop rows of ``terms`` (per loop, (B, 6)) plus ``sum_f c_f extra_f``."""
@@ -127,25 +127,26 @@ def _block_derivatives(mech, b, Q, D, g, unknown):
     solve(0.0, 0)
     if len(D) > 1:
         bias = [kinematics.walk_terms(cols, D[0])[1] for cols, _ in walks]
-        solve(rest(bias, _curvature(s, Q, D, b.groups, 1)), 1)
+        solve(rest(bias, _curvature(mech, Q, D, b.groups, 1)), 1)
     if len(D) > 2:
         jerk = [kinematics.walk_terms(cols, D[0], D[1])[2] for cols, _ in walks]
-        solve(rest(jerk, _curvature(s, Q, D, b.groups, 2)), 2)
+        solve(rest(jerk, _curvature(mech, Q, D, b.groups, 2)), 2)
     return D
 
 
-def _law_terms(s, i, qg, order):
+def _law_terms(mech, i, qg, order):
     """(f', f'', f''') of member ``i`` over master values ``qg``; f''' (order 3 only) by a
     central difference of the law's exact f''.  Where f'' jumps (a Geneva wheel's pin
     entering its slot, a constant-velocity rise starting) f''' is undefined: NaN there,
     found as the central differences at steps h and h/2 disagreeing (they agree to
     O(h^2) where f'' is smooth; across a jump J they differ by about J / 2h)."""
-    _, d1, d2 = s.member_rates(i, qg)
+    ct = mech.coupling_table
+    _, d1, d2 = ct.member_rates(i, qg)
     d3 = np.zeros_like(qg)
-    if order > 2 and i in s.law:
-        size = 1.0 / s.cscale[int(s.master[i])]          # 1 rad, or the mechanism's size
+    if order > 2 and i in ct.law:
+        size = 1.0 / mech.solver.cscale[int(ct.master[i])]   # 1 rad, or the mechanism's size
         h = 1e-5 * size
-        f2 = {k: s.member_rates(i, qg + k * h)[2] for k in (-1.0, -0.5, 0.5, 1.0)}
+        f2 = {k: ct.member_rates(i, qg + k * h)[2] for k in (-1.0, -0.5, 0.5, 1.0)}
         wide = (f2[1.0] - f2[-1.0]) / (2 * h)
         d3 = (f2[0.5] - f2[-0.5]) / h
         floor = 1e-4 * float(np.abs(d2).max(initial=0.0)) / size
@@ -154,29 +155,31 @@ def _law_terms(s, i, qg, order):
     return d1, d2, d3
 
 
-def _curvature(s, Q, D, masters, k):
+def _curvature(mech, Q, D, masters, k):
     """The part of the members' (k+1)-th derivatives that does not depend on their master's
     own (k+1)-th derivative (N, n): ``f'' g'^2`` (k=1) or ``3 f'' g' g'' + f''' g'^3`` (k=2)."""
+    ct = mech.coupling_table
     out = np.zeros_like(D[0])
     for g in masters:
-        for i in s.members[g]:
-            if i == g or i not in s.law:
+        for i in ct.members[g]:
+            if i == g or i not in ct.law:
                 continue
-            d1, d2, d3 = _law_terms(s, i, Q[:, g], k + 1)
+            d1, d2, d3 = _law_terms(mech, i, Q[:, g], k + 1)
             g1 = D[0][:, g]
             out[:, i] = d2 * g1 ** 2 if k == 1 else 3 * d2 * g1 * D[1][:, g] + d3 * g1 ** 3
     return out
 
 
-def _members(s, Q, D, masters, only=None):
+def _members(mech, Q, D, masters, only=None):
     """Set members' derivatives from their masters' (in place in the list ``D``; ``only``:
     just that order)."""
+    ct = mech.coupling_table
     orders = range(len(D)) if only is None else [only]
     for g in masters:
-        for i in s.members[g]:
+        for i in ct.members[g]:
             if i == g:
                 continue
-            d1, d2, d3 = _law_terms(s, i, Q[:, g], max(orders) + 1)
+            d1, d2, d3 = _law_terms(mech, i, Q[:, g], max(orders) + 1)
             g1 = D[0][:, g]
             for k in orders:
                 if k == 0:
@@ -261,19 +264,19 @@ def _axis(mech, Q, Qd, Qdd, where):
 def _rate_measure(mech, m, D, xd, xdd, held_masters, drive):
     """Rate and acceleration (file units per s, per s^2) of rate measure ``m`` =
     d(of)/d(per) along the sweep (see the module's notes)."""
-    s = mech.solver
+    s, ct = mech.solver, mech.coupling_table
     N = D[0].shape[0]
     io, ip = mech.index_of(m.of), mech.index_of(m.per)
-    go, gp = int(s.master[io]), int(s.master[ip])
+    go, gp = int(ct.master[io]), int(ct.master[ip])
     conv = mech.unit_scale(ip) / mech.unit_scale(io)
     if go != gp:
         bo = s.block_of_master.get(go)
         if bo is None or s.block_of_master.get(gp) != bo:      # the measure is 0 throughout
             return np.zeros(N), np.zeros(N)
-        others = set(held_masters) - {int(s.master[drive])}
+        others = set(held_masters) - {int(ct.master[drive])}
         if go in others or gp in others:                        # not the sweep's motion
             return np.full(N, np.nan), np.full(N, np.nan)
-    elif io not in s.law and ip not in s.law:                  # a constant ratio
+    elif io not in ct.law and ip not in ct.law:                  # a constant ratio
         return np.zeros(N), np.zeros(N)
     a1, a2, a3 = (d[:, io] for d in D)
     b1, b2, b3 = (d[:, ip] for d in D)

@@ -41,7 +41,7 @@ import math
 import numpy as np
 
 from . import kinematics, spatial
-from .errors import AssemblyError, SpecError
+from .errors import AssemblyError
 from .linalg import det_small, lstsq_small, lstsq_svd, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
@@ -111,10 +111,9 @@ class Solver:
         self.L = mech.size
         n = len(mech.coordinates)
         self.n = n
-        self._couplings()
         self._blocks()
         # Caches: each has a bound and a key that names everything its value depends on
-        # (the coupling table and the geometry are fixed for a solver's life).
+        # (the model's coupling table and the geometry are fixed for a solver's life).
         #   _plans    (block, unknown columns, rotation-increment joints, coupled) -> loop
         #             plan (kinematics.loop_plan); PLAN_MEMORY, oldest out
         #   _layouts  (block, held masters) -> (unknown columns, rotation joints); PLAN_MEMORY
@@ -155,99 +154,9 @@ class Solver:
         self.qerr = np.where(self.is_length, self.pos_weight, 1.0)
         self._limit_table = None  # built on first use by _limits (limits never change)
 
-    # -- couplings: affine groups ------------------------------------------------------
-    def _couplings(self):
-        """Group coupled coordinates: member ``i`` of master ``g`` follows
-        ``q_i = alpha_i q_g + beta_i``, or, behind a motion law ``f`` (``self.law[i] =
-        (f, a_in, b_in, a_out, b_out)``), ``q_i = a_out f(a_in q_g + b_in) + b_out``.
-        A motion law is followed from its leader only (it need not be invertible), and one
-        chain of couplings passes at most one motion law."""
-        m = self.m
-        n = len(m.coordinates)
-        self.master = np.arange(n)
-        self.alpha = np.ones(n)
-        self.beta = np.zeros(n)
-        self.law = {}
-        adj = {i: [] for i in range(n)}
-        followers = set()
-        for c in m.couplings.values():
-            li, fi = m.index[c.leader], m.index[c.follower]
-            if c.law is not None:
-                adj[li].append((fi, c.law, None, c.name))       # q_f = f(q_l)
-                adj[fi].append((li, None, None, c.name))        # not invertible
-                followers.add(fi)
-                continue
-            ul, uf = m.unit_scale(li), m.unit_scale(fi)
-            a = uf * c.ratio / ul
-            b = uf * c.offset
-            adj[li].append((fi, a, b, c.name))            # q_f = a q_l + b
-            adj[fi].append((li, 1 / a, -b / a, c.name))   # q_l = (q_f - b) / a
-        seen = set()
-        order = [i for i in range(n) if i not in followers] + sorted(followers)
-        for root in order:
-            if root in seen or not adj[root]:
-                continue
-            seen.add(root)
-            via = {root: None}
-            stack = [root]
-            while stack:
-                i = stack.pop()
-                for k, a, b, cname in adj[i]:
-                    if cname == via[i]:
-                        continue
-                    if k in seen:
-                        if a is None or not isinstance(a, float) or i in self.law or k in self.law:
-                            raise SpecError(f"coupling {cname!r} closes a loop of couplings through a motion "
-                                            f"law at {m.coordinates[k]!r}", source=m.source, key=f"couplings.{cname}")
-                        na, nb = a * self.alpha[i], a * self.beta[i] + b
-                        if abs(na - self.alpha[k]) > 1e-9 * max(1, abs(na)) or abs(nb - self.beta[k]) > 1e-9 * max(1, abs(nb)):
-                            raise SpecError(f"coupling {cname!r} contradicts the other couplings of "
-                                            f"{m.coordinates[k]!r} (they form a loop with another ratio)",
-                                            source=m.source, key=f"couplings.{cname}")
-                        continue
-                    if a is None:
-                        raise SpecError(f"coupling {cname!r}: {m.coordinates[k]!r} leads a motion law but is "
-                                        f"itself set through {m.coordinates[i]!r}; a motion law is followed from "
-                                        f"its leader only", source=m.source, key=f"couplings.{cname}")
-                    if isinstance(a, float):
-                        if i in self.law:
-                            f, ai, bi_, ao, bo = self.law[i]
-                            self.law[k] = (f, ai, bi_, a * ao, a * bo + b)
-                            self.alpha[k], self.beta[k] = np.nan, np.nan
-                        else:
-                            self.alpha[k], self.beta[k] = a * self.alpha[i], a * self.beta[i] + b
-                    else:
-                        if i in self.law:
-                            raise SpecError(f"coupling {cname!r}: two motion laws in one chain of couplings "
-                                            f"are not supported", source=m.source, key=f"couplings.{cname}")
-                        self.law[k] = (a, self.alpha[i], self.beta[i], 1.0, 0.0)
-                        self.alpha[k], self.beta[k] = np.nan, np.nan
-                    seen.add(k)
-                    via[k] = cname
-                    self.master[k] = root
-                    stack.append(k)
-        self.members = {}
-        for i in range(n):
-            self.members.setdefault(int(self.master[i]), []).append(i)
-
-    def member_rates(self, i, qg):
-        """``(q_i, dq_i/dq_g, d2q_i/dq_g2)`` of member ``i`` at master values ``qg`` (array)."""
-        qg = np.asarray(qg, dtype=float)
-        hit = self.law.get(i)
-        if hit is None:
-            return self.alpha[i] * qg + self.beta[i], np.full(qg.shape, self.alpha[i]), np.zeros(qg.shape)
-        f, ai, bi, ao, bo = hit
-        y, dy, ddy = f.evaluate(ai * qg + bi)
-        return ao * y + bo, ao * ai * dy, ao * ai * ai * ddy
-
-    def member_slope(self, i, qg):
-        """dq_i/dq_g of member ``i`` at master values ``qg`` (float or array)."""
-        if i not in self.law:
-            return self.alpha[i]
-        return self.member_rates(i, qg)[1]
-
     def _blocks(self):
         m = self.m
+        ct = m.coupling_table
         parent = list(range(len(m.loops)))
 
         def find(x):
@@ -260,7 +169,7 @@ class Solver:
         for li, loop in enumerate(m.loops):
             for jname, _ in loop.steps:
                 for i in range(m.slices[jname].start, m.slices[jname].stop):
-                    g = int(self.master[i])
+                    g = int(ct.master[i])
                     if g in owner:
                         parent[find(li)] = find(owner[g])
                     else:
@@ -277,7 +186,7 @@ class Solver:
                 for jname, _ in loop.steps:
                     if jname not in joints:
                         joints.append(jname)
-            masters = sorted({int(self.master[i]) for jn in joints
+            masters = sorted({int(ct.master[i]) for jn in joints
                               for i in range(m.slices[jn].start, m.slices[jn].stop)})
             self.blocks.append(_Block(bi, loops, joints, masters))
             for g in masters:
@@ -294,6 +203,7 @@ class Solver:
 
     def _layout_new(self, block, held_masters):
         m = self.m
+        ct = m.coupling_table
         cols = []
         rot = set()
         for jn in block.joints:
@@ -301,12 +211,12 @@ class Solver:
             if j.type != "spherical":
                 continue
             idx = range(m.slices[jn].start, m.slices[jn].stop)
-            if all(self.master[i] == i and len(self.members[i]) == 1 and i not in held_masters for i in idx):
+            if all(ct.master[i] == i and len(ct.members[i]) == 1 and i not in held_masters for i in idx):
                 rot.add(jn)
         for g in block.groups:
             if g in held_masters:
                 continue
-            if m.owner[m.coordinates[g]] in rot and len(self.members[g]) == 1:
+            if m.owner[m.coordinates[g]] in rot and len(ct.members[g]) == 1:
                 continue
             cols.append(("m", g))
         for jn in block.joints:
@@ -351,7 +261,7 @@ class Solver:
                 q[g] += d
             else:
                 sph.setdefault(c[1], np.zeros(3))[c[2]] = d
-        self._derive(q, [c[1] for c in cols if c[0] == "m"])
+        self.m.coupling_table.derive(q, [c[1] for c in cols if c[0] == "m"])
         for jn, d in sph.items():
             # the increment turns about world axes through the joint point: its rotation is
             # exp3(d) (the rotation twists' angular parts are the unit axes); the coordinates
@@ -359,15 +269,6 @@ class Solver:
             sl = m.slices[jn]
             rn = kinematics.rotation_one(d) @ kinematics.joint_rotation_one(self._unit_screws(jn), q[sl])
             q[sl] = m.joints[jn].coordinates_from_transform(rn, near=q[sl])
-
-    def _derive(self, q, masters):
-        for g in masters:
-            for i in self.members[g]:
-                if i != g:
-                    if i in self.law:
-                        q[i] = self.member_rates(i, q[g])[0]
-                    else:
-                        q[i] = self.alpha[i] * q[g] + self.beta[i]
 
     # -- Newton corrector ---------------------------------------------------------------
     def _newton(self, block, q, cols, rot, evaluated=None, nu=None):
@@ -486,21 +387,9 @@ class Solver:
         for b in self.blocks:
             errs.extend(self._eval(b, q, [], set(), jac=False)[1])
         m = self.m
-        for name, e in self.coupling_errors(q).items():
+        for name, e in self.m.coupling_table.errors(q).items():
             errs.append(e * self.qerr[m.index[m.couplings[name].follower]])
         return (max(errs) if errs else 0.0), errs
-
-    def coupling_errors(self, q):
-        m = self.m
-        out = {}
-        for c in m.couplings.values():
-            li, fi = m.index[c.leader], m.index[c.follower]
-            if c.law is not None:
-                out[c.name] = float(abs(q[fi] - c.law.evaluate(q[li])[0]))
-                continue
-            a = m.unit_scale(fi) * c.ratio / m.unit_scale(li)
-            out[c.name] = float(abs(q[fi] - (a * q[li] + m.unit_scale(fi) * c.offset)))
-        return out
 
     def _loops_of(self, i):
         """Names of the loops whose walk passes the joint owning coordinate ``i``."""
@@ -512,9 +401,10 @@ class Solver:
         if self._home_q is not None:
             return self._home_q.copy()
         m = self.m
+        ct = m.coupling_table
         q = m.home.copy()
         notes = [f"home placement settled: {n}" for n in m.settle_notes]
-        for name, err in self.coupling_errors(q).items():
+        for name, err in self.m.coupling_table.errors(q).items():
             if err <= TOLERANCE:
                 continue
             c = m.couplings[name]
@@ -530,7 +420,7 @@ class Solver:
                     f"(assembly tolerance {tol / m.unit_scale(fi):.3g} {unit}){where}",
                     loop=loops[0] if loops else None, error=float(err), joint=c.follower)
             notes.append(f"home placement settled: coupling {name!r} was off by {gap:.3g} {unit}")
-        self._derive(q, list(self.members))
+        ct.derive(q, list(ct.members))
         for b in self.blocks:
             cols, rot = self._layout(b, set())
             r, errs, _ = self._eval(b, q, cols, rot, jac=False)
@@ -545,7 +435,7 @@ class Solver:
                     f"loop closed by joint {loop!r} does not close at home: gap {pos:.3g} {m.length_unit}, "
                     f"{math.degrees(ang):.3g} deg (assembly tolerance {ASSEMBLY_TOLERANCE * self.L:.3g} "
                     f"{m.length_unit}, {math.degrees(ASSEMBLY_TOLERANCE):.3g} deg)", loop=loop, error=float(errs.max()))
-            drives = {int(self.master[i]) for i, c in enumerate(m.coordinates) if c in m.driven}
+            drives = {int(ct.master[i]) for i, c in enumerate(m.coordinates) if c in m.driven}
             held = set(drives) & set(b.groups)
             cols, rot = self._layout(b, held)
             ok, err, _, _ = self._newton(b, q, cols, rot)
@@ -567,14 +457,14 @@ class Solver:
         target = {}
         source = {}
         for i, v in explicit.items():
-            self._hold(target, source, i, v)
+            self.m.coupling_table.hold(target, source, i, v)
         for i in ([] if release else self.kept_drives(explicit)):
-            self._hold(target, source, i, q[i])
+            self.m.coupling_table.hold(target, source, i, q[i])
         # coordinates outside every loop: set directly
         for g, v in target.items():
             if g not in self.block_of_master:
                 q[g] = v
-                self._derive(q, [g])
+                self.m.coupling_table.derive(q, [g])
         singular = False
         worst = 0.0
         self._crossed = False
@@ -618,19 +508,6 @@ class Solver:
             hit = [m.index[c] for c in names if c in driven and m.index[c] not in explicit]
             _remember(self._kept, key, hit)
         return list(hit)
-
-    def _hold(self, target, source, i, v):
-        g = int(self.master[i])
-        if i in self.law:
-            raise AssemblyError(f"{self.m.coordinates[i]!r} follows a motion law and cannot be held; "
-                                f"hold its leader {self.m.coordinates[g]!r} instead", joint=self.m.coordinates[i])
-        gv = (v - self.beta[i]) / self.alpha[i]
-        if g in target and abs(target[g] - gv) > 1e-9 * max(1.0, abs(gv)):
-            other = source[g]
-            raise AssemblyError(f"held values of {self.m.coordinates[i]!r} and {self.m.coordinates[other]!r} "
-                                f"contradict their coupling", joint=self.m.coordinates[i], error=abs(target[g] - gv))
-        target[g] = gv
-        source.setdefault(g, i)
 
     def _solve_block(self, b, q, held_b, source):
         cols, rot = self._layout(b, set(held_b))
@@ -699,7 +576,7 @@ class Solver:
                 trial = q.copy()
                 for g in hlist:
                     trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
-                self._derive(trial, hlist)
+                self.m.coupling_table.derive(trial, hlist)
                 if cols:
                     self._apply(trial, cols, rot, rate * (t1 - t) * cs)
                 before = trial.copy()
@@ -782,7 +659,7 @@ class Solver:
             return False
         for g in hlist:
             trial[g] = held_b[g]
-        self._derive(trial, hlist)
+        self.m.coupling_table.derive(trial, hlist)
         cols, rot = self._layout(b, set(held_b))
         ok, _, _, _ = self._newton(b, trial, cols, rot)
         if ok:
@@ -812,6 +689,7 @@ class Solver:
 
     def _fail(self, b, q, held_b, source, err, errs, h0):
         m = self.m
+        ct = m.coupling_table
         self.last_closed = q.copy()  # the farthest closed state the continuation reached
         worst = int(np.argmax(errs)) if len(errs) else 0
         loop = b.loops[worst].name
@@ -824,7 +702,7 @@ class Solver:
         if blame is not None:
             i = m.index[blame]
             unit = m.angle_unit if m.kinds[i] == "angle" else m.length_unit
-            reached = self.member_rates(i, q[int(self.master[i])])[0]
+            reached = ct.member_rates(i, q[int(ct.master[i])])[0]
             where = (f"; the held value of {blame!r} is likely out of reach "
                      f"(the loop stays closed only up to about {m.to_file(blame, reached):.6g} {unit})")
         raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
@@ -857,13 +735,14 @@ class Solver:
         J_u du = -J_per), not by finite differences.  Coordinates outside the moving
         coordinate's loop block have rate 0, except coupled ones.
         """
-        gper = int(self.master[per])
-        held_m = {int(self.master[i]) for i in held} | {gper}
-        if per in self.law:
+        ct = self.m.coupling_table
+        gper = int(ct.master[per])
+        held_m = {int(ct.master[i]) for i in held} | {gper}
+        if per in ct.law:
             raise AssemblyError(f"{self.m.coordinates[per]!r} follows a motion law; rates are taken per its "
                                 f"leader {self.m.coordinates[gper]!r}", joint=self.m.coordinates[per])
         dq = np.zeros(self.n)
-        dq[gper] = 1.0 / self.alpha[per]
+        dq[gper] = 1.0 / ct.alpha[per]
         bi = self.block_of_master.get(gper)
         if bi is not None:
             b = self.blocks[bi]
@@ -890,9 +769,9 @@ class Solver:
                 for c, d in zip(cols, du):
                     dq[c[1]] = d
         for g in list(np.flatnonzero(dq)):
-            for i in self.members[int(g)]:
+            for i in ct.members[int(g)]:
                 if i != g:
-                    dq[i] = self.member_slope(i, q[g]) * dq[g]
+                    dq[i] = ct.member_slope(i, q[g]) * dq[g]
         return dq
 
     def _limits(self):
@@ -933,15 +812,17 @@ class Solver:
         table = self._limits()
         if not table:
             return
+        ct = self.m.coupling_table
         groups = {c[1] for c in cols if c[0] == "m"}
         for i, lo, hi, slack, c in table:
-            if int(self.master[i]) in groups and not lo - slack <= q[i] <= hi + slack:
+            if int(ct.master[i]) in groups and not lo - slack <= q[i] <= hi + slack:
                 self.last_closed = q.copy()
                 raise self._limit_error(i, lo if q[i] < lo else hi, c, lo, hi, on_the_way=True)
 
     def _check_passive_limits(self, q, held_groups):
+        ct = self.m.coupling_table
         for i, lo, hi, slack, c in self._limits():
-            if int(self.master[i]) not in held_groups and not lo - slack <= q[i] <= hi + slack:
+            if int(ct.master[i]) not in held_groups and not lo - slack <= q[i] <= hi + slack:
                 raise self._limit_error(i, q[i], c, lo, hi, on_the_way=False)
 
     # -- mobility ----------------------------------------------------------------------
@@ -952,6 +833,7 @@ class Solver:
         increments, which span the same three freedoms without a gimbal lock.
         """
         m = self.m
+        ct = m.coupling_table
         rows = []
         for b in self.blocks:
             cols, rot = self._layout(b, set())
@@ -959,7 +841,7 @@ class Solver:
             full = []
             for c in cols:
                 if c[0] == "m":
-                    full.extend(("c", i) for i in self.members[c[1]])
+                    full.extend(("c", i) for i in ct.members[c[1]])
                 else:
                     full.append(c)
             nl = len(b.loops)
@@ -970,12 +852,8 @@ class Solver:
                 idx = c[1] if c[0] == "c" else m.slices[c[1]].start + c[2]
                 block[:, idx] = J[:, ci] / (self.cscale[idx] if c[0] == "c" else 1.0)
             rows.append(block * rs[:, None])
-        for c in m.couplings.values():
-            row = np.zeros(self.n)
-            li, fi = m.index[c.leader], m.index[c.follower]
-            a = m.unit_scale(fi) * c.ratio / m.unit_scale(li) if c.law is None else float(c.law.evaluate(q[li])[1])
-            row[fi] = 1.0 / self.cscale[fi]
-            row[li] = -a / self.cscale[li]
+        for row in ct.rows(q):
+            row = row / self.cscale
             row /= np.abs(row).max()
             rows.append(row[None, :])
         return np.vstack(rows) if rows else np.zeros((0, self.n))

@@ -100,9 +100,14 @@ BATCH_ITER = 6
 # the batched evaluator lives in kinematics (``_Evaluator``: its old name here, which tests
 # and benchmarks use), the stacked linear algebra in linalg
 _Evaluator = kinematics.Evaluator
-_derive = kinematics.derive
 _tangent = kinematics.tangent
 _least_norm = linalg.least_norm
+
+
+def _derive(s, Q, masters):
+    """Set the coupled members of ``masters`` from them in states ``Q`` (the model's
+    coupling table; ``s`` the solver)."""
+    s.m.coupling_table.derive(Q, masters)
 
 
 # ---------------------------------------------------------------------------------------
@@ -122,28 +127,28 @@ class _Context:
 def _held_set(mech, explicit, release):
     """Masters held in a run, as Solver.pose would: explicit ones, plus (unless released)
     the file's drives outside blocks where a passive coordinate is given."""
-    s = mech.solver
-    held = {int(s.master[i]) for i in explicit}
+    s, ct = mech.solver, mech.coupling_table
+    held = {int(ct.master[i]) for i in explicit}
     if release:
         return held, []
     extra = s.kept_drives(explicit)
-    return held | {int(s.master[i]) for i in extra}, extra
+    return held | {int(ct.master[i]) for i in extra}, extra
 
 
 def _run(mech, explicit, N, q0, release):
     """Solve N steps with coordinates ``explicit`` {index: (N,) internal} held.
 
     Returns (Q (N, n), converged, singular, residual, reasons)."""
-    s = mech.solver
+    s, ct = mech.solver, mech.coupling_table
     held_m, extra = _held_set(mech, explicit, release)
     # targets per master, checking couplings for contradictions
     target = {}
     for i, v in list(explicit.items()) + [(i, np.full(N, q0[i])) for i in extra]:
-        g = int(s.master[i])
-        if i in s.law:
+        g = int(ct.master[i])
+        if i in ct.law:
             raise JointwiseError(f"{mech.coordinates[i]!r} follows a motion law and cannot be held; "
                                  f"hold its leader {mech.coordinates[g]!r} instead")
-        gv = (np.asarray(v, float) - s.beta[i]) / s.alpha[i]
+        gv = (np.asarray(v, float) - ct.beta[i]) / ct.alpha[i]
         if g in target and np.any(np.abs(target[g] - gv) > 1e-9 * np.maximum(1.0, np.abs(gv))):
             raise JointwiseError(f"held values of {mech.coordinates[i]!r} contradict a coupling "
                                  f"with another held coordinate")
@@ -289,7 +294,7 @@ def _newton(ev, Q, idx, iters=BATCH_ITER):
 def _distance(ev, A, Bq):
     """Largest dimensionless coordinate difference between state stacks (B,)."""
     sc = ev.s.cscale
-    idx = sorted({i for g in ev.block.groups for i in ev.s.members[g]})
+    idx = sorted({i for g in ev.block.groups for i in ev.m.coupling_table.members[g]})
     if not idx:
         return np.zeros(A.shape[0])
     d = A[:, idx] - Bq[:, idx]

@@ -148,6 +148,7 @@ class _Layout:
 
     def __init__(self, solver, fixed):
         m = solver.m
+        ct = m.coupling_table
         self.fixed = fixed
         rot = set()
         for jn, j in m.joints.items():
@@ -155,11 +156,11 @@ class _Layout:
                 continue
             idx = range(m.slices[jn].start, m.slices[jn].stop)
             # a limited ball joint keeps its coordinates as columns, so limits hold on them
-            if all(solver.master[i] == i and len(solver.members[i]) == 1 and i not in fixed
+            if all(ct.master[i] == i and len(ct.members[i]) == 1 and i not in fixed
                    and j.limits[i - m.slices[jn].start] is None for i in idx):
                 rot.add(jn)
         cols = []
-        for g in sorted(solver.members):
+        for g in sorted(ct.members):
             if g in fixed or m.owner[m.coordinates[g]] in rot:
                 continue
             cols.append(("m", g))
@@ -182,11 +183,11 @@ class _Layout:
             if c[0] == "s":
                 self.lin[m.slices[c[1]].start + c[2], k] = 1.0
                 continue
-            for i in solver.members[c[1]]:
-                if i in solver.law:
+            for i in ct.members[c[1]]:
+                if i in ct.law:
                     self.laws.append((i, c[1], k))
                 else:
-                    self.lin[i, k] = solver.alpha[i]
+                    self.lin[i, k] = ct.alpha[i]
 
     def rates(self, solver, q):
         """Coordinate rates per unit of each column at state ``q``, (n, ncols)."""
@@ -194,7 +195,7 @@ class _Layout:
             return self.lin
         out = self.lin.copy()
         for i, g, k in self.laws:
-            out[i, k] = float(solver.member_slope(i, q[g]))
+            out[i, k] = float(solver.m.coupling_table.member_slope(i, q[g]))
         return out
 
 
@@ -205,19 +206,19 @@ class _Shared:
     solve starting exactly there needs no evaluation before its first step)."""
 
     def __init__(self, mech):
-        s = mech.solver
+        ct = mech.coupling_table
         self.layouts = {}
         self.refs = {}
         self.last = None  # (q bytes, layout, corrector Jacobians, residual, link poses)
         self.bounds = {}
-        for g, members in s.members.items():
+        for g, members in ct.members.items():
             lo, hi = -math.inf, math.inf
             for i in members:
                 j = mech.joints[mech.owner[mech.coordinates[i]]]
                 lim = j.limits[mech.local_index(i)]
-                if lim is None or i in s.law:  # a motion law's follower: checked after solving
+                if lim is None or i in ct.law:  # a motion law's follower: checked after solving
                     continue
-                a, b = (lim[0] - s.beta[i]) / s.alpha[i], (lim[1] - s.beta[i]) / s.alpha[i]
+                a, b = (lim[0] - ct.beta[i]) / ct.alpha[i], (lim[1] - ct.beta[i]) / ct.alpha[i]
                 lo, hi = max(lo, min(a, b)), min(hi, max(a, b))
             if lo > -math.inf or hi < math.inf:
                 self.bounds[g] = (lo, hi)
@@ -249,7 +250,7 @@ class _Targets:
         self.s = mech.solver
         self.L = mech.size
         self.parsed = parsed
-        self.held = frozenset(int(self.s.master[i]) for i in held)
+        self.held = frozenset(int(mech.coupling_table.master[i]) for i in held)
         self.sh = _shared(mech)
         self.bounds = self.sh.bounds
         self._closed = None
@@ -429,7 +430,7 @@ class _Targets:
             lo, hi = self.bounds[g]
             if q[g] < lo or q[g] > hi:
                 q[g] = min(max(q[g], lo), hi)
-                self.s._derive(q, [g])
+                self.m.coupling_table.derive(q, [g])
                 out.add(g)
         return out
 

@@ -91,7 +91,7 @@ def test_held_coordinates_open_chain_and_couplings():
     names = g.coordinates
     # no loops: every coordinate group is placed by its value only, once per coupling group
     held = g.held_coordinates()
-    assert len(held) == len({int(g.solver.master[g.coordinates.index(c)]) for c in names})
+    assert len(held) == len({int(g.coupling_table.master[g.coordinates.index(c)]) for c in names})
     # a given coordinate takes its group's place
     held2 = g.held_coordinates([names[-1]])
     assert names[-1] in held2 and len(held2) == len(held)

@@ -24,8 +24,8 @@ def _closed(mech, drive, value):
 
 
 def _full_cols(mech, ev):
-    s = mech.solver
-    return [("m", i) for i in sorted({i for g in ev.block.groups for i in s.members[g]})]
+    t = mech.coupling_table
+    return [("m", i) for i in sorted({i for g in ev.block.groups for i in t.members[g]})]
 
 
 @pytest.mark.parametrize("build, drive, value", [

@@ -20,6 +20,7 @@ CORE_LAYERS = [
     {"units", "errors"},                   # constants; the exception family and Reason
     {"spatial", "outputs"},                # rigid-motion maths; whole-or-nothing file writes
     {"joints", "couplings", "results"},    # joint types, coupling laws; Pose, Sweep
+    {"coupling_table"},                    # the model's coupling groups (master, ratio, law)
     {"model"},                             # links, joints, tree, loops, units: no solving
     {"spec"},                              # files -> the model's parts (reading, checking)
     {"linalg"},                            # stacked least-norm steps, rank and branch tests
