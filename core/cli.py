@@ -395,7 +395,7 @@ def cmd_pose(mech, args):
         lines = [f"converged: {'yes' if pose.converged else 'no'}   residual: {pose.residual:.3g}   "
                  f"singular: {'yes' if pose.singular else 'no'}", "joints:"]
         for c, v in pose.joints.items():
-            unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
+            unit = mech.unit_name(mech.index_of(c))
             lines.append(f"  {c:<16} {v:+15.6f} {unit}")
         lines.append("links (displacement from home, world axes):")
         for name, mat in pose.links.items():

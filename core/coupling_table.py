@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import AssemblyError, SpecError
+from .errors import AssemblyError, Reason, SpecError
 
 __all__ = ["CouplingTable"]
 
@@ -42,6 +42,7 @@ class CouplingTable:
         m = model
         n = len(m.coordinates)
         self.coordinates = list(m.coordinates)
+        self._units = [(m.unit_scale(i), m.unit_name(i)) for i in range(n)]  # for messages
         self.master = np.arange(n)
         self.alpha = np.ones(n)
         self.beta = np.zeros(n)
@@ -150,14 +151,16 @@ class CouplingTable:
         ``target`` (master -> value), ``source`` remembers the first coordinate that set it.
         A motion law's follower cannot be held; two held values of one group must agree."""
         g = int(self.master[i])
+        name = self.coordinates[i]
         if i in self.law:
-            raise AssemblyError(f"{self.coordinates[i]!r} follows a motion law and cannot be held; "
-                                f"hold its leader {self.coordinates[g]!r} instead", joint=self.coordinates[i])
+            raise AssemblyError(reason=Reason("coupling", joint=name, other=self.coordinates[g]))
         gv = (v - self.beta[i]) / self.alpha[i]
         if g in target and abs(target[g] - gv) > 1e-9 * max(1.0, abs(gv)):
-            other = source[g]
-            raise AssemblyError(f"held values of {self.coordinates[i]!r} and {self.coordinates[other]!r} "
-                                f"contradict their coupling", joint=self.coordinates[i], error=abs(target[g] - gv))
+            scale, unit = self._units[i]
+            allowed = float(self.alpha[i] * target[g] + self.beta[i]) / scale
+            raise AssemblyError(reason=Reason("coupling", joint=name, other=self.coordinates[source[g]],
+                                              value=float(v) / scale, bounds=(allowed, allowed), unit=unit,
+                                              error=float(abs(target[g] - gv))))
         target[g] = gv
         source.setdefault(g, i)
 

@@ -40,19 +40,31 @@ class Reason:
 
     kind : one of :data:`KINDS`
         ``"unreachable"`` (the loops cannot close with the held values), ``"limit"``
-        (a coordinate outside its joint's limits), ``"singular"``, ``"coupling"``
-        (held values contradict a coupling, or a coupling does not hold at home),
+        (a coordinate outside its joint's limits), ``"singular"`` (a dead point: the
+        Jacobian loses rank; a range end), ``"coupling"`` (held values contradict a
+        coupling, a motion law's follower is held, or a coupling does not hold at home),
         ``"home"`` (home does not close), ``"span"`` (held value too far to follow).
     joint : the coordinate (or joint) concerned, if any.
     loop : the loop concerned (the name of the joint that closes it), if any.
-    value : the value asked (held) or found (solved), file units.
+    value : the value asked (held) or found (solved), file units; for ``"home"`` and a
+        coupling at home, the gap found.
     bounds : (lo, hi) in file units: the joint's limits for ``"limit"``; for
         ``"unreachable"`` the interval the continuation reached, as far as known
-        (``lo == hi`` when only the last closed value is known).
+        (``lo == hi`` when only the last closed value is known); for ``"singular"`` (a
+        range end) the reachable interval; for ``"span"`` the held values that can be
+        followed from the start; for contradicting held values the value the coupling
+        allows (``lo == hi``); for ``"home"`` and a coupling at home ``(0, tolerance)``.
     unit : unit text of ``value`` and ``bounds``.
     error : closest closure error reached (length unit or radian), if any.
     held : for ``"limit"``: True when the value was asked, False when the closed
-        placement put a solved coordinate there.
+        placement (or the path to it) put a solved coordinate there.
+    on_path : for ``"limit"``: the continuation met the limit on its way to the asked
+        values (``value`` is the limit met).
+    other : a second coordinate: the other held value a coupling contradicts, or the
+        leader to hold instead of a motion law's follower.
+    coupling : the coupling concerned (a coupling that does not hold at home).
+    angle : for ``"home"``: (angular gap, angular tolerance) in degrees beside the
+        positional gap ``value``.
     """
     kind: str
     joint: str | None = None
@@ -62,14 +74,22 @@ class Reason:
     unit: str | None = None
     error: float | None = None
     held: bool = True
+    on_path: bool = False
+    other: str | None = None
+    coupling: str | None = None
+    angle: tuple | None = None
 
     def message(self):
-        """The core's message text (file units), built from the fields."""
+        """The core's message text (file units), built from the fields: the one place
+        every failure of a solve is worded."""
         u = f" {self.unit}" if self.unit else ""
-        if self.kind == "limit":
+        if self.kind == "limit" and self.bounds is not None:
             lo, hi = self.bounds
             if self.held:
                 return f"{self.joint} = {self.value:g}{u} lies outside its limits [{lo:g}, {hi:g}]{u}"
+            if self.on_path:
+                return (f"infeasible: on the way there {self.joint} reaches its limit {self.value:g}{u} "
+                        f"(limits [{lo:g}, {hi:g}]{u})")
             return (f"infeasible: the closed placement puts {self.joint} at {self.value:.6g}{u}, "
                     f"outside its limits [{lo:g}, {hi:g}]{u}")
         if self.kind == "unreachable":
@@ -79,6 +99,30 @@ class Reason:
                 text += (f"; the held value of {self.joint!r} is likely out of reach (the loop stays "
                          f"closed only up to about {self.bounds[1]:.6g}{u})")
             return text
+        if self.kind == "coupling" and self.coupling is not None and self.value is not None:
+            where = f"; it feeds the loop closed by joint {self.loop!r}" if self.loop else ""
+            return (f"coupling {self.coupling!r} does not hold at home: {self.joint} is off by "
+                    f"{self.value:.6g}{u} (assembly tolerance {self.bounds[1]:.3g}{u}){where}")
+        if self.kind == "coupling" and self.other is not None and self.bounds is None:
+            return (f"{self.joint!r} follows a motion law and cannot be held; hold its leader "
+                    f"{self.other!r} instead")
+        if self.kind == "coupling" and self.other is not None:
+            return f"held values of {self.joint!r} and {self.other!r} contradict their coupling"
+        if self.kind == "home" and self.loop is not None:
+            if self.value is None:
+                return (f"loop closed by joint {self.loop!r} could not be settled at home "
+                        f"(closest error {self.error:.3g})")
+            ang, ang_tol = self.angle
+            return (f"loop closed by joint {self.loop!r} does not close at home: gap {self.value:.3g}{u}, "
+                    f"{ang:.3g} deg (assembly tolerance {self.bounds[1]:.3g}{u}, {ang_tol:.3g} deg)")
+        if self.kind == "span" and self.bounds is not None:
+            lo, hi = self.bounds
+            return (f"{self.joint}: the held value {self.value:g}{u} is too far from the start placement "
+                    f"to follow continuously (from there: [{lo:.6g}, {hi:.6g}]{u}); pose it from a nearer start")
+        if self.kind == "singular" and self.bounds is not None:
+            lo, hi = self.bounds
+            return (f"{self.joint} reaches a dead point at {self.value:.6g}{u} "
+                    f"(reachable from {lo:.6g} to {hi:.6g}{u})")
         parts = [self.kind]
         if self.joint:
             parts.append(f"joint {self.joint}")

@@ -46,7 +46,7 @@ def describe(mech, name):
         return mech.length_unit
     if m.type == "angle":
         return "deg"
-    u = lambda c: mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit  # noqa: E731
+    u = lambda c: mech.unit_name(mech.index_of(c))  # noqa: E731
     return f"{u(m.of)}/{u(m.per)}"
 
 

@@ -344,7 +344,7 @@ def plot_sweep(mech, sw, drive, path):
     from .measures import describe
 
     x = np.asarray(sw.values, float)
-    du = mech.angle_unit if mech.coordinate_kind(drive) == "angle" else mech.length_unit
+    du = mech.unit_name(mech.index_of(drive))
     rates = [n for n, m in mech.measures.items() if m.type == "rate"]
     others = [n for n in mech.measures if n not in rates]
     moving = sw.time is not None
@@ -364,7 +364,7 @@ def plot_sweep(mech, sw, drive, path):
     ax = axes[0]  # every panel: one unit on the left axis, the others on the right
     groups = {}
     for c in mech.coordinates:
-        unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
+        unit = mech.unit_name(mech.index_of(c))
         groups.setdefault(unit, []).append((c, sw.joints[c], "-"))
     _unit_axes(ax, x, groups, du, "coordinates")
     shade(ax)
@@ -418,7 +418,7 @@ def plot_sweep(mech, sw, drive, path):
                 (axes[k + 1], "accelerations", "measure_accelerations", "/s²", "acceleration", "acc")):
             groups = {}  # lines named as the CSV columns
             for c in mech.coordinates:
-                unit = mech.angle_unit if mech.coordinate_kind(c) == "angle" else mech.length_unit
+                unit = mech.unit_name(mech.index_of(c))
                 groups.setdefault(unit + per, []).append((f"{c}.{tag}", getattr(sw, key)[c], "-"))
             for n, v in getattr(sw, mkey).items():
                 if n in rates:
@@ -573,7 +573,7 @@ def sweep_command(mech, args, emit=None):
 
 def range_text(mech, res):
     drive = res["drive"]
-    unit = mech.angle_unit if mech.coordinate_kind(drive) == "angle" else mech.length_unit
+    unit = mech.unit_name(mech.index_of(drive))
     lines = []
     for (lo, hi), (wl, wh) in zip(res["intervals"], res["reasons"]):
         lines.append(f"{drive}: from {lo:.6f} to {hi:.6f} {unit}   (low end: {wl}; high end: {wh})")
@@ -590,8 +590,8 @@ def range_command(mech, args, emit):
         mech.index_of(name)
         held[name] = v
     res = reach(mech, args.drive, held)
-    if args.format == "json":
-        emit(json.dumps(res) + "\n", None)
+    if args.format == "json":  # the documented keys (status and stops are the Python API's)
+        emit(json.dumps({k: res[k] for k in ("drive", "intervals", "reasons")}) + "\n", None)
     else:
         emit(range_text(mech, res), None)
     return EXIT_OK

@@ -41,7 +41,7 @@ import math
 import numpy as np
 
 from . import kinematics, spatial
-from .errors import AssemblyError
+from .errors import AssemblyError, LimitError, Reason
 from .linalg import det_small, lstsq_small, lstsq_svd, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
@@ -410,15 +410,14 @@ class Solver:
             c = m.couplings[name]
             fi = m.index[c.follower]
             tol = ASSEMBLY_TOLERANCE * (self.L if self.is_length[fi] else 1.0)
-            unit = m.angle_unit if m.kinds[fi] == "angle" else m.length_unit
+            unit = m.unit_name(fi)
             loops = self._loops_of(fi)
-            where = f"; it feeds the loop closed by joint {loops[0]!r}" if loops else ""
             gap = err / m.unit_scale(fi)
             if err > tol:
-                raise AssemblyError(
-                    f"coupling {name!r} does not hold at home: {c.follower} is off by {gap:.6g} {unit} "
-                    f"(assembly tolerance {tol / m.unit_scale(fi):.3g} {unit}){where}",
-                    loop=loops[0] if loops else None, error=float(err), joint=c.follower)
+                raise AssemblyError(reason=Reason(
+                    "coupling", coupling=name, joint=c.follower, value=float(gap),
+                    bounds=(0.0, tol / m.unit_scale(fi)), unit=unit, loop=loops[0] if loops else None,
+                    error=float(err)))
             notes.append(f"home placement settled: coupling {name!r} was off by {gap:.3g} {unit}")
         ct.derive(q, list(ct.members))
         for b in self.blocks:
@@ -431,17 +430,16 @@ class Solver:
             ang, pos = np.abs(rw[:3]).max(), np.abs(rw[3:]).max()
             loop = b.loops[worst].name
             if ang > ASSEMBLY_TOLERANCE or pos > ASSEMBLY_TOLERANCE * self.L:
-                raise AssemblyError(
-                    f"loop closed by joint {loop!r} does not close at home: gap {pos:.3g} {m.length_unit}, "
-                    f"{math.degrees(ang):.3g} deg (assembly tolerance {ASSEMBLY_TOLERANCE * self.L:.3g} "
-                    f"{m.length_unit}, {math.degrees(ASSEMBLY_TOLERANCE):.3g} deg)", loop=loop, error=float(errs.max()))
+                raise AssemblyError(reason=Reason(
+                    "home", loop=loop, value=float(pos), bounds=(0.0, ASSEMBLY_TOLERANCE * self.L),
+                    unit=m.length_unit, angle=(math.degrees(ang), math.degrees(ASSEMBLY_TOLERANCE)),
+                    error=float(errs.max())))
             drives = {int(ct.master[i]) for i, c in enumerate(m.coordinates) if c in m.driven}
             held = set(drives) & set(b.groups)
             cols, rot = self._layout(b, held)
             ok, err, _, _ = self._newton(b, q, cols, rot)
             if not ok:
-                raise AssemblyError(f"loop closed by joint {loop!r} could not be settled at home "
-                                    f"(closest error {err:.3g})", loop=loop, error=float(err))
+                raise AssemblyError(reason=Reason("home", loop=loop, error=float(err)))
             notes.append(f"home placement settled: loop closed by joint {loop!r} was off by "
                          f"{pos:.3g} {m.length_unit} and {math.degrees(ang):.3g} deg")
         self._home_q = q
@@ -518,11 +516,7 @@ class Solver:
         dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in hlist])
         span = float(np.abs(dh).max()) if dh.size else 0.0
         if span > MAX_SPAN:
-            g = hlist[int(np.argmax(np.abs(dh)))]
-            c = self.m.coordinates[source.get(g, g)]
-            raise AssemblyError(f"{c}: the held value is {span:.3g} (radians or mechanism sizes) from the "
-                                f"start placement, too far to follow continuously; pose it from a nearer "
-                                f"start", joint=c, error=None)
+            raise self._too_far(hlist[int(np.argmax(np.abs(dh)))], held_b, h0, source)
         if span == 0.0:
             ok, err, errs, J = self._newton(b, q, cols, rot)
             if not ok:
@@ -694,19 +688,30 @@ class Solver:
         worst = int(np.argmax(errs)) if len(errs) else 0
         loop = b.loops[worst].name
         moving = [g for g in held_b if abs(held_b[g] - h0[g]) > 0]
-        blame = None
+        why = Reason("unreachable", loop=loop, error=float(err))
         if moving:
             g = max(moving, key=lambda g: abs(held_b[g] - h0[g]) * self.cscale[g])
-            blame = m.coordinates[source.get(g, g)]
-        where = ""
-        if blame is not None:
-            i = m.index[blame]
-            unit = m.angle_unit if m.kinds[i] == "angle" else m.length_unit
-            reached = ct.member_rates(i, q[int(ct.master[i])])[0]
-            where = (f"; the held value of {blame!r} is likely out of reach "
-                     f"(the loop stays closed only up to about {m.to_file(blame, reached):.6g} {unit})")
-        raise AssemblyError(f"cannot assemble: loop closed by joint {loop!r} stays open by {err:.3g} "
-                            f"(closest closure error reached){where}", loop=loop, error=float(err), joint=blame)
+            i = source.get(g, g)
+            u = m.unit_scale(i)
+            reached = float(ct.member_rates(i, q[g])[0]) / u
+            why = Reason("unreachable", joint=m.coordinates[i], loop=loop, error=float(err),
+                         value=float(ct.member_rates(i, held_b[g])[0]) / u, bounds=(reached, reached),
+                         unit=m.unit_name(i))
+        raise AssemblyError(reason=why)
+
+    def _too_far(self, g, held_b, h0, source):
+        """The failure of a held value more than ``MAX_SPAN`` from the start (master ``g``):
+        the value asked and those that can be followed from the start, in the held
+        coordinate's file units."""
+        m = self.m
+        ct = m.coupling_table
+        i = source.get(g, g)
+        u = m.unit_scale(i)
+        reach = MAX_SPAN / self.cscale[g]
+        ends = sorted(float(v) / u for v in ct.member_rates(i, np.array([h0[g] - reach, h0[g] + reach]))[0])
+        asked = float(ct.member_rates(i, held_b[g])[0]) / u
+        return AssemblyError(reason=Reason("span", joint=m.coordinates[i], value=asked, bounds=tuple(ends),
+                                           unit=m.unit_name(i)))
 
     def _singular(self, b, J, cols, rs, cs, info=None):
         """Near a dead point: the generic-rank singular value of the scaled J_u is tiny
@@ -793,15 +798,8 @@ class Solver:
     def _limit_error(self, i, value, c, lo, hi, on_the_way):
         m = self.m
         u = m.unit_scale(i)
-        unit = m.angle_unit if m.kinds[i] == "angle" else m.length_unit
-        from .errors import LimitError, Reason
-        if on_the_way:
-            why = Reason("limit", joint=c, value=float(value / u), bounds=(lo / u, hi / u), unit=unit,
-                         held=False)
-            return LimitError(f"infeasible: on the way there {c} reaches its limit {value / u:g} {unit} "
-                              f"(limits [{lo / u:g}, {hi / u:g}] {unit})", reason=why)
-        return LimitError(f"infeasible: the closed placement puts {c} at {value / u:.6g} {unit}, "
-                          f"outside its limits [{lo / u:g}, {hi / u:g}] {unit}", joint=c)
+        return LimitError(reason=Reason("limit", joint=c, value=float(value / u), bounds=(lo / u, hi / u),
+                                        unit=m.unit_name(i), held=False, on_path=on_the_way))
 
     def _stop_at_limit(self, q, cols):
         """Stop a continuation whose path has carried a solved coordinate of this block past

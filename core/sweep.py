@@ -1163,6 +1163,16 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
     both ends open), ``"no end found within N turns (search bound)"`` / ``"... within L
     <unit> (search bound)"`` (the search stopped at its bound: the drive goes on beyond
     it).  The file's drives are released, ``held`` holds others.
+
+    Why each end stops, structured (as :class:`jointwise.results.Pose` and ``Sweep`` say
+    it): every reason text carries a :class:`jointwise.errors.Reason` (``.reason``; None
+    where the drive goes on), and the result gains ``"status"`` (per interval ``[lo end,
+    hi end]``, of :data:`jointwise.results.STATUSES`: ``"singular"`` at a dead point,
+    ``"limit"`` at a limit, ``"converged"`` where nothing stops it) and ``"stops"`` (the
+    same Reasons: a dead point's ``joint`` is the drive, ``value`` the end, ``bounds`` the
+    interval; a limit's ``joint`` the limited coordinate, ``value`` its value at the end,
+    ``bounds`` its limits; file units).  A drive that cannot move raises
+    :class:`AssemblyError` whose reason has the locked value and both ends.
     """
     s = mech.solver
     di = mech.index_of(drive)
@@ -1191,22 +1201,25 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
         if lim is not None:  # a limited drive (a lead screw, say) is searched up to its limits
             max_travel = max(max_travel, (lim[1] - lim[0]) / unit)
     max_step = max(16 * step, 8 * full if is_angle else 8 * mech.size / unit)
+    # why an end stops, with the coordinate concerned (the Reason is completed at the end)
+    own_limit = Note(f"limit of joint {j.name}", Reason("limit", joint=drive))
+    dead = Note("dead point", Reason("singular", joint=drive))
 
     def solve(value, qstart):
         s.last_closed = None
         h = dict(heldv)
         h[di] = value * unit
         if lim is not None and not (lim[0] - 1e-12 <= value * unit <= lim[1] + 1e-12):
-            return None, f"limit of joint {j.name}"
+            return None, own_limit
         try:
             q, info = s.pose(h, qstart, release=True)
         except LimitError as exc:
             jn = mech.owner.get(exc.joint, exc.joint) if exc.joint else "?"
-            return None, f"limit of joint {jn}"
+            return None, Note(f"limit of joint {jn}", Reason("limit", joint=exc.joint))
         except JointwiseError:
-            return None, "dead point"
+            return None, dead
         if not info["converged"]:
-            return None, "dead point"
+            return None, dead
         return q, None
 
     def walk(direction):
@@ -1227,45 +1240,74 @@ def reach(mech, drive, held=None, *, tol=1e-6, step=None, max_turns=None, max_tr
                 if direction * (nv - edge) > 0:
                     nv = edge
                     if abs(nv - v) <= tol:
-                        return v, f"limit of joint {j.name}", False
+                        return v, own_limit, False, q
             qn, why = solve(nv, q)
             if qn is None:
-                end, why = _refine_end(solve, s, di, unit, v, nv, q, why, tol)
-                return end, why, False
+                end, why, q_end = _refine_end(solve, s, di, unit, v, nv, q, why, tol)
+                return end, why, False, q_end
             travelled += abs(nv - v)
             q, v = qn, nv
             if lim is not None and v == (lim[1] if direction > 0 else lim[0]) / unit:
-                return v, f"limit of joint {j.name}", False
+                return v, own_limit, False, q
             if at_turn:
                 if _same_placement(mech, q, q_home):
-                    return v, "turns fully", True
+                    return v, "turns fully", True, q
             if travelled >= max_travel:
-                u = mech.angle_unit if is_angle else mech.length_unit
+                u = mech.unit_name(di)
                 what = (f"{max_travel * unit / (2 * math.pi):g} turns" if is_angle
                         else f"{max_travel:g} {u}")
-                return v, f"no end found within {what} (search bound)", False
+                return v, f"no end found within {what} (search bound)", False, q
 
-    hi, why_hi, turns = walk(+1)
+    hi, why_hi, turns, q_hi = walk(+1)
+    if not turns:
+        lo, why_lo, turns, q_lo = walk(-1)
     if turns:
         half = math.pi / unit
-        return {"drive": drive, "intervals": [[home - half, home + half]],
-                "reasons": [["turns fully", "turns fully"]]}
-    lo, why_lo, turns = walk(-1)
-    if turns:
-        half = math.pi / unit
-        return {"drive": drive, "intervals": [[home - half, home + half]],
-                "reasons": [["turns fully", "turns fully"]]}
+        return _range_result(mech, drive, home - half, home + half, ("turns fully", None), ("turns fully", None))
     if hi - lo <= 10 * tol:
-        u = mech.angle_unit if is_angle else mech.length_unit
+        u = mech.unit_name(di)
         what = f" with {', '.join(f'{k} = {v:g}' for k, v in (held or {}).items())} held" if held else ""
+        ends = _range_result(mech, drive, lo, hi, (why_lo, q_lo), (why_hi, q_hi))["status"][0]
+        why = Reason("limit" if "limit" in ends else "singular", joint=drive, value=float(home),
+                     bounds=(float(lo), float(hi)), unit=u)
         raise AssemblyError(f"{drive} cannot move{what}: it is locked at {home:.6g} {u} "
-                            f"({why_lo} below, {why_hi} above)", joint=drive)
-    return {"drive": drive, "intervals": [[float(lo), float(hi)]], "reasons": [[why_lo, why_hi]]}
+                            f"({why_lo} below, {why_hi} above)", reason=why)
+    return _range_result(mech, drive, lo, hi, (why_lo, q_lo), (why_hi, q_hi))
+
+
+def _range_result(mech, drive, lo, hi, end_lo, end_hi):
+    """The result of :func:`reach` for one interval [lo, hi] (file units of the drive);
+    ``end_lo``, ``end_hi``: (why the end stops, the closed state there)."""
+    di = mech.index_of(drive)
+    lo, hi = float(lo), float(hi)
+    reasons, status, stops = [], [], []
+    for end, (why, q) in ((lo, end_lo), (hi, end_hi)):
+        partial = getattr(why, "reason", None)
+        if partial is None:  # nothing stops the drive there
+            r, st = None, "converged"
+        elif partial.kind == "limit" and partial.joint in mech.index:
+            i = mech.index_of(partial.joint)
+            u = mech.unit_scale(i)
+            limits = mech.joints[mech.owner[partial.joint]].limits[mech.local_index(i)]
+            value = end if i == di else float(q[i]) / u
+            r = Reason("limit", joint=partial.joint, value=value, bounds=(limits[0] / u, limits[1] / u),
+                       unit=mech.unit_name(i), held=False, on_path=True)  # met going on
+            st = "limit"
+        elif partial.kind == "limit":  # a limit met elsewhere (no coordinate named)
+            r, st = Reason("limit", held=False, on_path=True), "limit"
+        else:
+            r = Reason("singular", joint=drive, value=end, bounds=(lo, hi), unit=mech.unit_name(di))
+            st = "singular"
+        reasons.append(Note(str(why), r))
+        status.append(st)
+        stops.append(r)
+    return {"drive": drive, "intervals": [[lo, hi]], "reasons": [reasons], "status": [status],
+            "stops": [stops]}
 
 
 def _refine_end(solve, s, di, unit, good, bad, qg, why, tol):
     """Narrow [good, bad] (closed at ``good``, not at ``bad``) to ``tol``; returns (the
-    last closed value, why the drive stops beyond it).
+    last closed value, why the drive stops beyond it, the closed state there).
 
     A dead point: the failed solve's continuation stopped at the farthest closed state
     it could reach (``Solver.last_closed``), within rounding of the dead point, so the
@@ -1286,7 +1328,7 @@ def _refine_end(solve, s, di, unit, good, bad, qg, why, tol):
             bad, why = mid, w2
         else:
             good, qg = mid, qm
-    return good, why
+    return good, why, qg
 
 
 def _same_placement(mech, qa, qb):
