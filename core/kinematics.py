@@ -21,6 +21,7 @@ q_dot_leader^2``: the ``f''`` term joins the right-hand side beside :func:`loop_
 from __future__ import annotations
 
 import math
+import threading
 import weakref
 
 import numpy as np
@@ -664,75 +665,181 @@ def eval_one(s, plan, q, jac=True):
     return r, errs, big @ Wq
 
 
+#: eval_stack's work arrays (factor angles, exponentials, running products, source twists)
+#: live in one float buffer per thread, kept between calls so that a sweep's thousands of
+#: evaluations do not allocate (and fault in) fresh memory each time.  Bound: the largest
+#: evaluation of at most ``CHUNK`` states so far; a larger one gets a buffer of its own.
+_SCRATCH = threading.local()
+
+
+def _scratch(size, B):
+    """A float buffer of at least ``size`` entries for an evaluation of ``B`` states."""
+    if B > CHUNK:
+        return np.empty(size)
+    buf = getattr(_SCRATCH, "buf", None)
+    if buf is None or buf.size < size:
+        buf = _SCRATCH.buf = np.empty(size)
+    return buf
+
+
+def _soa_plan(plan):
+    """What :func:`eval_stack` reads besides the plan's arrays, made once per plan (kept in
+    it under "soa"): the factors in position order (position k of every loop side by side,
+    so one product gives a position's exponentials), the cut points met at each position,
+    and the Jacobian sources that feed a column, each with the nonzero entries of its
+    screw (sign included)."""
+    sp = plan.get("soa")
+    if sp is not None:
+        return sp
+    nl, kmax = plan["nl"], plan["kmax"]
+    fo = plan["fidx"].T.ravel()  # position k of loop li at k * nl + li
+    used = sorted({w[0] for w in plan["weights"]} | {v[0] for v in plan["varying"]})
+    slot = {k: n for n, k in enumerate(used)}
+    at = [[] for _ in range(kmax + 1)]
+    for n, k in enumerate(used):
+        sg = float(plan["src_sign"][k, 0])
+        tw = [sg * float(x) for x in plan["src_tw"][k]]
+        at[int(plan["src_pos"][k])].append((n, int(plan["src_loop"][k]),
+                                            [(j, tw[j]) for j in range(3) if tw[j] != 0.0],
+                                            [(j, tw[3 + j]) for j in range(3) if tw[3 + j] != 0.0]))
+    sp = plan["soa"] = {
+        "pidx": plan["pidx"][fo], "phome": plan["phome"][fo, None], "psign": plan["psign"][fo, None],
+        "p12": np.ascontiguousarray(plan["p12"][fo]), "nu": len(used), "at": at,
+        "cuts": [[(li, plan["points"][li].tolist()) for li in range(nl) if plan["cut_pos"][li] == k]
+                 for k in range(kmax + 1)],
+        "weights": [(slot[k], li, c, a, first) for k, li, c, a, first in plan["weights"]],
+        "varying": [(slot[k], int(plan["src_loop"][k]), c, i, g) for k, c, i, g in plan["varying"]],
+    }
+    return sp
+
+
+def _rows_times(out, rows, coefs, tmp):
+    """``out = sum_j rows[j] * c_j`` over the (j, c_j) in ``coefs`` (zeros when empty)."""
+    if not coefs:
+        out[...] = 0.0
+        return
+    j, c = coefs[0]
+    np.multiply(rows[j], c, out=out)
+    for j, c in coefs[1:]:
+        np.multiply(rows[j], c, out=tmp)
+        out += tmp
+
+
 def eval_stack(s, plan, Q, jac=True):
     """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
     Jacobian (B, 6 nl, ncols) (None without ``jac``).
 
     Stacks are held component-first (a transform as its 12 top entries, each a row over
     the loops and states), so every product is a few elementwise operations on long rows
-    instead of many tiny matrix products."""
+    instead of many tiny matrix products; the work arrays are views of one kept buffer
+    (:func:`_scratch`) written in place."""
     B = Q.shape[0]
     nl, kmax = plan["nl"], plan["kmax"]
-    th = ((Q[:, plan["pidx"]] - plan["phome"]) * plan["psign"]).T  # (P + 1, B)
-    coef = np.empty((th.shape[0], 3, B))
+    sp = _soa_plan(plan)
+    want = bool(jac and plan["ncols"] and sp["nu"])
+    nu = sp["nu"] if want else 0
+    F = nl * kmax
+    sizes = (F * B, 3 * F * B, 12 * nl * B, 12 * nl * B, 12 * nl * B, 12 * nl * B, 3 * nl * B,
+             6 * nu * B, 3 * nu * B)
+    buf = _scratch(sum(sizes), B)
+    views, at = [], 0
+    for size in sizes:
+        views.append(buf[at:at + size])
+        at += size
+    th = views[0].reshape(F, B)
+    coef = views[1].reshape(F, 3, B)
+    E = views[2].reshape(nl, 12, B)
+    A = views[3].reshape(3, 4, nl, B)
+    An = views[4].reshape(3, 4, nl, B)
+    tmp = views[5].reshape(3, 4, nl, B)
+    site = views[6].reshape(3, nl, B)
+    tw = views[7].reshape(nu, 6, B)
+    pp = views[8].reshape(nu, 3, B)
+    np.subtract(Q.T[sp["pidx"]], sp["phome"], out=th)
+    th *= sp["psign"]
     coef[:, 0] = th
-    coef[:, 1] = 1.0 - np.cos(th)
-    coef[:, 2] = th - np.sin(th)
-    E = np.moveaxis((plan["p12"] @ coef).reshape(-1, 3, 4, B), 0, 2)  # (3, 4, P + 1, B)
-    E[0, 0] += 1.0  # the identity of the exponential
-    E[1, 1] += 1.0
-    E[2, 2] += 1.0
-    A = np.zeros((3, 4, nl, B))
-    A[0, 0] = A[1, 1] = A[2, 2] = 1.0
-    site = np.empty((3, nl, B))
-    ns = len(plan["src_loop"])
-    want = jac and plan["ncols"] and ns
-    if want:
-        wr = np.empty((ns, 3, B))
-        vr = np.empty((ns, 3, B))
-        pp = np.empty((ns, 3, B))
-    cut_pos = plan["cut_pos"]
+    np.cos(th, out=coef[:, 1])
+    np.subtract(1.0, coef[:, 1], out=coef[:, 1])
+    np.sin(th, out=coef[:, 2])
+    np.subtract(th, coef[:, 2], out=coef[:, 2])
+    Ek = E.reshape(nl, 3, 4, B).transpose(1, 2, 0, 3)  # (3, 4, nl, B) view
+    p12, cuts, at_pos = sp["p12"], sp["cuts"], sp["at"]
+    tmp3 = tmp[0, :3, 0]  # (3, B) scratch for the source twists
     for k in range(kmax + 1):
-        for li in range(nl):
-            if cut_pos[li] == k:
-                pt = plan["points"][li]
-                site[:, li] = A[:, 0, li] * pt[0] + A[:, 1, li] * pt[1] + A[:, 2, li] * pt[2] + A[:, 3, li]
-        hit = plan["at_pos"][k] if want else None
-        if hit is not None:
-            sel, lps = hit
-            R = A[:, :3][:, :, lps]  # (3, 3, nk, B)
-            w = plan["src_tw"][sel, :3].T[:, :, None]  # (3, nk, 1)
-            v = plan["src_tw"][sel, 3:].T[:, :, None]
-            wr[sel] = (R[:, 0] * w[0] + R[:, 1] * w[1] + R[:, 2] * w[2]).transpose(1, 0, 2)
-            vr[sel] = (R[:, 0] * v[0] + R[:, 1] * v[1] + R[:, 2] * v[2]).transpose(1, 0, 2)
-            pp[sel] = A[:, 3][:, lps].transpose(1, 0, 2)
-        if k < kmax:
-            A = spatial.compose_soa(A, E[:, :, plan["fidx"][:, k]])
+        if k == 0:
+            A[...] = 0.0
+            A[0, 0] = A[1, 1] = A[2, 2] = 1.0
+        for li, pt in cuts[k]:
+            out = site[:, li]
+            np.multiply(A[:, 0, li], pt[0], out=out)
+            for j in (1, 2):
+                np.multiply(A[:, j, li], pt[j], out=tmp3)
+                out += tmp3
+            out += A[:, 3, li]
+        if want:
+            for n, li, wc, vc in at_pos[k]:
+                rows = A[:, :, li].transpose(1, 0, 2)  # rows[j]: column j of R (3, B); rows[3]: p
+                _rows_times(tw[n, :3], rows, wc, tmp3)
+                _rows_times(tw[n, 3:], rows, vc, tmp3)
+                pp[n] = rows[3]
+        if k == kmax:
+            break
+        np.matmul(p12[k * nl:(k + 1) * nl], coef[k * nl:(k + 1) * nl], out=E)
+        E[:, 0] += 1.0  # the identity of the exponential: entries (0, 0), (1, 1), (2, 2)
+        E[:, 5] += 1.0
+        E[:, 10] += 1.0
+        if k == 0:
+            A[...] = Ek
+            continue
+        np.multiply(A[:, 0, None], Ek[0], out=An)
+        np.multiply(A[:, 1, None], Ek[1], out=tmp)
+        An += tmp
+        np.multiply(A[:, 2, None], Ek[2], out=tmp)
+        An += tmp
+        An[:, 3] += A[:, 3]
+        A, An = An, A
     w, v = spatial.log_soa(A)  # (3, nl, B) each
     v[0] += w[1] * site[2] - w[2] * site[1]
     v[1] += w[2] * site[0] - w[0] * site[2]
     v[2] += w[0] * site[1] - w[1] * site[0]
-    r = np.concatenate([w, v]).reshape(6, nl, B).transpose(2, 1, 0).reshape(B, 6 * nl)
+    r = np.empty((B, nl, 6))
+    r[:, :, :3] = w.T
+    r[:, :, 3:] = v.T
+    r = r.reshape(B, 6 * nl)
     errs = np.maximum(np.abs(w).max(axis=0), np.abs(v).max(axis=0) * s.pos_weight).max(axis=0)
     if not jac:
         return r, errs, None
     if not want:
         return r, errs, np.zeros((B, 6 * nl, plan["ncols"]))
-    d = pp - site[:, plan["src_loop"]].transpose(1, 0, 2)  # (ns, 3, B)
-    tw = np.empty((ns, 6, B))
-    tw[:, :3] = wr
-    tw[:, 3] = vr[:, 0] + d[:, 1] * wr[:, 2] - d[:, 2] * wr[:, 1]
-    tw[:, 4] = vr[:, 1] + d[:, 2] * wr[:, 0] - d[:, 0] * wr[:, 2]
-    tw[:, 5] = vr[:, 2] + d[:, 0] * wr[:, 1] - d[:, 1] * wr[:, 0]
-    tw *= plan["src_sign"][:, :, None]
+    # columns moved to the cut point: (R w, R v + (p - site) x R w), sign included
+    src_loop = [0] * nu
+    for k in range(kmax + 1):
+        for n, li, _, _ in at_pos[k]:
+            src_loop[n] = li
+    for n in range(nu):
+        d = pp[n]
+        d -= site[:, src_loop[n]]
+        wr, lin = tw[n, :3], tw[n, 3:]
+        np.multiply(d[1], wr[2], out=tmp3[0])
+        lin[0] += tmp3[0]
+        np.multiply(d[2], wr[1], out=tmp3[0])
+        lin[0] -= tmp3[0]
+        np.multiply(d[2], wr[0], out=tmp3[0])
+        lin[1] += tmp3[0]
+        np.multiply(d[0], wr[2], out=tmp3[0])
+        lin[1] -= tmp3[0]
+        np.multiply(d[0], wr[1], out=tmp3[0])
+        lin[2] += tmp3[0]
+        np.multiply(d[1], wr[0], out=tmp3[0])
+        lin[2] -= tmp3[0]
     J = np.zeros((B, nl, 6, plan["ncols"]))
-    for k, li, c, a, first in plan["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
+    for n, li, c, a, first in sp["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
         if not first:
-            J[:, li, :, c] += a * tw[k].T
+            J[:, li, :, c] += a * tw[n].T
         elif a == 1.0:
-            J[:, li, :, c] = tw[k].T
+            J[:, li, :, c] = tw[n].T
         else:
-            np.multiply(tw[k].T, a, out=J[:, li, :, c])
-    for k, c, i, g in plan["varying"]:
-        J[:, plan["src_loop"][k], :, c] += (s.m.coupling_table.member_slope(i, Q[:, g])[None, :] * tw[k]).T
+            np.multiply(tw[n].T, a, out=J[:, li, :, c])
+    for n, li, c, i, g in sp["varying"]:
+        J[:, li, :, c] += (s.m.coupling_table.member_slope(i, Q[:, g])[None, :] * tw[n]).T
     return r, errs, J.reshape(B, 6 * nl, plan["ncols"])
