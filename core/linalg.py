@@ -264,6 +264,23 @@ def lstsq_svd(svd, b, rcond):
 #    jumped to the mirrored branch (four-bar open <-> crossed, slider above <-> below) or
 #    passed a singular point.
 #
+# 3. The chord test (sweeps; cheaper, the same conclusion).  Where the Jacobians J_a, J_b
+#    at both states are at hand (the orientation test needs them), the step can be
+#    certified with the chord (simplified Newton) map G(x) = x - J_a^+ F(x) at the
+#    predictor x0 instead of Newton's: by the contraction mapping theorem (Ortega &
+#    Rheinboldt, *Iterative Solution of Nonlinear Equations in Several Variables*, 1970,
+#    12.1 and 12.6; Deuflhard 2004, sec. 2.1 on the simplified Newton method), if
+#    kappa = sup |J_a^+ (J(y) - J_a)| <= 1/2 over the ball of radius 2 |d0| about x0
+#    (d0 = -J_a^+ F(x0)), G maps that ball into itself and has there exactly one fixed
+#    point, the chord limit from x0: a closed state within 2 |d0| of x0 is that limit.
+#    The points of the ball lie within |dh| + 2 |d0| of the previous state (dh the held
+#    step), and the Lipschitz constant of J_a^+ J is estimated from the two ends,
+#    |J_a^+ (J_b - J_a)| / |dh| (|dh| is at most the step's length), so kappa is estimated
+#    by |J_a^+ (J_b - J_a)|_F (|dh| + 2 |d0|) / |dh|; the sweep asks for 1/8 (a margin of
+#    four) and measures the distance by an upper bound.  An orientation change cannot
+#    pass: det(J_a^+ J_b) < 0 gives J_a^+ J_b a negative eigenvalue, so |J_a^+ J_b - I| > 1.
+#    Steps the chord test does not pass get the Newton test of point 1.
+#
 # A step failing either test is halved.  Where halving reaches the smallest step and the
 # orientation still changes, the path truly passes a singular point (a change point or
 # bifurcation): the step is taken and the state is flagged singular.

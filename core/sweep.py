@@ -77,7 +77,7 @@ from . import kinematics, linalg, spatial
 from .errors import AssemblyError, JointwiseError, LimitError, Reason, SpecError
 from .linalg import branch_step_certified, orientation_agrees, orientation_frame
 from .results import Note, Sweep
-from .units import CHUNK, ORIENT_RATIO, SINGULAR_RATIO, TOLERANCE
+from .units import CHUNK, NOISE_STEP, ORIENT_RATIO, SINGULAR_RATIO, TOLERANCE
 
 __all__ = ["Sweep", "sweep", "follow", "sweep_schedule", "reach", "read_schedule_csv",
            "ANCHOR_STEP", "REFINE_STEP"]
@@ -95,6 +95,10 @@ REFINE_STEP = 0.1
 FINE_STEP = 0.006
 #: Batched Newton iterations per level.
 BATCH_ITER = 6
+#: The chord test of a step (:func:`_chord_certified`) passes where the chord map's
+#: estimated contraction over the ball it needs is at most this; the argument needs
+#: below 1/2 (:mod:`jointwise.linalg`, "branch continuity", point 3): a margin of four.
+CHORD_CONTRACTION = 0.125
 
 
 # the batched evaluator lives in kinematics (``_Evaluator``: its old name here, which tests
@@ -234,10 +238,23 @@ def _idle_tangents(ev, Q, Hm, known, ok, Tall):
     cs = ev._cscale(cols)
     _, _, J = ev.eval(Q[good[1:-1]], cols, rotmode=False)
     Js = J * ev.rs[None, :, None] * cs[None, None, :]
-    _, sv, vt = np.linalg.svd(Js, full_matrices=True)
-    rank = (sv > 1e-8 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1)
+    if nu <= Js.shape[1]:
+        # rows whose Gram certificate proves full column rank have no idle freedom: the
+        # certificate is at most (s_min / s_max)^2, and above 1e-10 the solve's shift
+        # (1e-13) cannot have raised it from below the SVD's cut (1e-8)^2
+        keep = np.flatnonzero(linalg.chol_factor(linalg.tmul(Js, Js))[2] <= 1e-10)
+        if not len(keep):
+            return
+    else:
+        keep = np.arange(Js.shape[0])
+    _, sv, vt = np.linalg.svd(Js[keep], full_matrices=True)
+    rank = np.full(Js.shape[0], nu)
+    rank[keep] = (sv > 1e-8 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1)
     if not (rank < nu).any():
         return
+    vt_all = np.zeros((Js.shape[0], nu, nu))
+    vt_all[keep] = vt
+    vt = vt_all
     ci = [c[1] for c in cols]
     prev, mid, nxt = good[:-2], good[1:-1], good[2:]
     dh = (Hm[nxt, 0] - Hm[prev, 0])
@@ -723,9 +740,11 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
 
     Vectorised over pairs, with no SVD where the solved block has full rank:
     the orientation test det(U^T J_b V) > 0 equals det(J_a^T J_b) > 0 (or det(J_a J_b^T)
-    for a wide block), since J_a = U S V^T; the chord increments use the scaled Jacobian
-    at the predictor (least norm, normal equations).  ``Jsa``, ``Jsb``: scaled Jacobians
-    at the states, if already evaluated."""
+    for a wide block), since J_a = U S V^T.  There the step is first tried with the chord
+    test (:func:`_chord_certified`: the Jacobians at both states and one residual at the
+    predictor); pairs it does not pass get the Newton test at the predictor
+    (:func:`_newton_certified`).  ``Jsa``, ``Jsb``: scaled Jacobians at the states, if
+    already evaluated."""
     B = Qa.shape[0]
     cols = ev.cols_rot
     if not cols or B == 0:
@@ -735,20 +754,50 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
                                 None if Jsa is None else Jsa[k:k + CHUNK],
                                 None if Jsb is None else Jsb[k:k + CHUNK]) for k in range(0, B, CHUNK)]
         return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
-    s = ev.s
-    cs = ev._cscale(cols)
-    rs = ev.rs
     if Jsa is None:
         Jsa = _scaled_jacobian(ev, Qa)
     if Jsb is None:
         Jsb = _scaled_jacobian(ev, Qb)
     mrow, k = Jsa.shape[1:]
     rank = _block_rank(ev, Jsa)
-    # predictor: the previous state with the new held values; chord Newton increments
+    if rank == k:
+        G, M = linalg.tmul(Jsa, Jsa), linalg.tmul(Jsa, Jsb)
+    elif rank == mrow:
+        Jt = np.swapaxes(Jsa, 1, 2)
+        G, M = linalg.tmul(Jt, Jt), linalg.tmul(Jt, np.swapaxes(Jsb, 1, 2))
+    else:
+        frame = orientation_frame(Jsa, rank)
+        return _newton_certified(ev, Qa, Qb, rank, k), orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
+    # how well the orientation is defined: det(G) against |G|^g (the engine's certificate)
+    fac = linalg.chol_factor(G)
+    degenerate = fac[2] < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
+    same = (linalg.det_stack(M) > 0) | degenerate
+    ok = _chord_certified(ev, Qa, Qb, Jsa, Jsb, fac, M, rank == k) & ~degenerate
+    if not ok.all():
+        slow = np.flatnonzero(~ok)
+        ok[slow] = _newton_certified(ev, Qa[slow], Qb[slow], rank, k)
+    return ok, same, degenerate
+
+
+def _predictor(ev, Qa, Qb):
+    """The previous states ``Qa`` with the held values of ``Qb`` (and their coupled members)."""
     X0 = Qa.copy()
     if ev.held:
         X0[:, ev.held] = Qb[:, ev.held]
-        _derive(s, X0, ev.held)
+        _derive(ev.s, X0, ev.held)
+    return X0
+
+
+def _newton_certified(ev, Qa, Qb, rank, k):
+    """The Kantorovich-style test at the predictor (:func:`linalg.branch_step_certified`):
+    the Newton increment d0 there and the next chord increment d1, both with the Jacobian
+    at the predictor, against the distance from the predictor to ``Qb``."""
+    if Qa.shape[0] == 0:
+        return np.zeros(0, bool)
+    cols = ev.cols_rot
+    cs = ev._cscale(cols)
+    rs = ev.rs
+    X0 = _predictor(ev, Qa, Qb)
     r0, _, J0 = ev.eval(X0, cols)
     Js0 = J0 * rs[None, :, None] * cs[None, None, :]
     fac0 = linalg.least_norm_factor(Js0)  # one factorisation for both chord increments
@@ -760,20 +809,76 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
     diff = _rot_diff(ev, X0, Qb)
     if rank < k:  # idle freedoms (a coupler's spin) are not part of the branch: row-space part
         diff = linalg.least_norm_apply(fac0, (Js0 @ diff[:, :, None]))[:, :, 0]
-    ok = branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1),
-                               np.linalg.norm(diff, axis=1))
-    if rank == k:
-        G, M = linalg.tmul(Jsa, Jsa), linalg.tmul(Jsa, Jsb)
-    elif rank == mrow:
-        Jt = np.swapaxes(Jsa, 1, 2)
-        G, M = linalg.tmul(Jt, Jt), linalg.tmul(Jt, np.swapaxes(Jsb, 1, 2))
+    return branch_step_certified(np.linalg.norm(d0, axis=1), np.linalg.norm(d1, axis=1),
+                                 np.linalg.norm(diff, axis=1))
+
+
+def _chord_certified(ev, Qa, Qb, Jsa, Jsb, fac, M, tall):
+    """The chord test of the branch continuity notes (:mod:`jointwise.linalg`, point 3):
+    the chord increment ``d0 = -J_a^+ F(x0)`` at the predictor with the scaled Jacobian
+    ``J_a`` at ``Qa`` (``fac``: the Cholesky factors of its Gram matrix, ``M`` the product
+    with ``J_b`` that the orientation test uses), the contraction of the chord map
+    estimated from the two ends, ``kappa = |J_a^+ (J_b - J_a)|_F`` times ``(|dh| + 2 |d0|)
+    / |dh|`` (``dh`` the held step), at most ``CHORD_CONTRACTION``; and ``Qb`` within
+    ``2 |d0|`` of the predictor, measured by an upper bound of the distance (an angle
+    difference per primitive of a free ball joint)."""
+    B, mrow, k = Jsa.shape
+    rs = ev.rs
+    X0 = _predictor(ev, Qa, Qb)
+    r0 = ev.eval(X0)[0]
+    rhs = -(r0 * rs[None, :])[:, :, None]
+    if tall:
+        d0 = linalg.chol_apply(fac, linalg.tmul(Jsa, rhs))[:, :, 0]
+        P = linalg.chol_apply(fac, M)
+        P[:, np.arange(k), np.arange(k)] -= 1.0  # J_a^+ J_b - I = J_a^+ (J_b - J_a)
+        kappa = np.sqrt((P * P).sum(axis=(1, 2)))
     else:
-        frame = orientation_frame(Jsa, rank)
-        return ok, orientation_agrees(frame, Jsb), frame[2] < ORIENT_RATIO
-    # how well the orientation is defined: det(G) against |G|^g (the engine's certificate)
-    defined = linalg.chol_factor(G)[2]
-    degenerate = defined < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
-    return ok, (linalg.det_stack(M) > 0) | degenerate, degenerate
+        d0 = np.swapaxes(Jsa, 1, 2) @ linalg.chol_apply(fac, rhs)
+        d0 = d0[:, :, 0]
+        D = Jsb - Jsa
+        X = linalg.chol_apply(fac, D)  # |J_a^T X|_F^2 = sum X . (G X) = sum X . D
+        kappa = np.sqrt(np.maximum((X * D).sum(axis=(1, 2)), 0.0))
+    nd0 = np.sqrt((d0 * d0).sum(axis=1))
+    dh = _held_step(ev, Qa, Qb)
+    reach = (dh + 2.0 * nd0) / np.maximum(dh, 1e-300)
+    dist = _distance_bound(ev, Qa, Qb)
+    return (kappa * reach <= CHORD_CONTRACTION) & (dist <= 2.0 * nd0 + 1e4 * NOISE_STEP) \
+        & (nd0 > NOISE_STEP) & (dh > 0)
+
+
+def _held_step(ev, Qa, Qb):
+    """Dimensionless size of the held step between state stacks (B,)."""
+    if not ev.held:
+        return np.zeros(Qa.shape[0])
+    sc = ev.s.cscale[ev.held]
+    d = (Qb[:, ev.held] - Qa[:, ev.held]) * sc[None, :]
+    return np.sqrt((d * d).sum(axis=1))
+
+
+def _distance_bound(ev, Qa, Qb):
+    """An upper bound of ``|_rot_diff(ev, Qa, Qb)|`` (B,): coordinate differences as there;
+    a free ball joint's rotation difference ``|log(R_b R_a^T)|`` is at most the sum of its
+    primitives' angle differences (the rotation angle is a bi-invariant distance on
+    rotations, and the joint's rotation is the product of its primitives' rotations)."""
+    s = ev.s
+    acc = np.zeros(Qa.shape[0])
+    seen = set()
+    for c in ev.cols_rot:
+        if c[0] == "m":
+            d = Qb[:, c[1]] - Qa[:, c[1]]
+            if not s.is_length[c[1]]:
+                d = (d + np.pi) % (2 * np.pi) - np.pi
+            d = d * s.cscale[c[1]]
+            acc += d * d
+        elif c[1] not in seen:
+            seen.add(c[1])
+            sl = ev.m.slices[c[1]]
+            t = np.zeros(Qa.shape[0])
+            for i, pr in zip(range(sl.start, sl.stop), ev.prims[c[1]]):
+                if pr.rot:
+                    t += np.abs((Qb[:, i] - Qa[:, i] + np.pi) % (2 * np.pi) - np.pi)
+            acc += t * t
+    return np.sqrt(acc)
 
 
 def _scaled_jacobian(ev, Q):
