@@ -147,20 +147,27 @@ class CouplingTable:
                     q[..., i] = self.alpha[i] * q[..., g] + self.beta[i]
 
     def hold(self, target, source, i, v):
-        """Hold coordinate ``i`` at ``v`` (internal units): its master's value goes into
-        ``target`` (master -> value), ``source`` remembers the first coordinate that set it.
-        A motion law's follower cannot be held; two held values of one group must agree."""
+        """Hold coordinate ``i`` at ``v`` (internal units; a float, or an array of a sweep's
+        rows): its master's value goes into ``target`` (master -> value), ``source``
+        remembers the first coordinate that set it.  A motion law's follower cannot be held;
+        two held values of one group must agree (on every row; the Reason names the first
+        row that does not)."""
         g = int(self.master[i])
         name = self.coordinates[i]
         if i in self.law:
             raise AssemblyError(reason=Reason("coupling", joint=name, other=self.coordinates[g]))
         gv = (v - self.beta[i]) / self.alpha[i]
-        if g in target and abs(target[g] - gv) > 1e-9 * max(1.0, abs(gv)):
-            scale, unit = self._units[i]
-            allowed = float(self.alpha[i] * target[g] + self.beta[i]) / scale
-            raise AssemblyError(reason=Reason("coupling", joint=name, other=self.coordinates[source[g]],
-                                              value=float(v) / scale, bounds=(allowed, allowed), unit=unit,
-                                              error=float(abs(target[g] - gv))))
+        if g in target:
+            had, now, asked = np.broadcast_arrays(target[g], gv, v)
+            gap = np.abs(had - now)
+            bad = np.flatnonzero(gap > 1e-9 * np.maximum(1.0, np.abs(now)))
+            if bad.size:
+                k = np.unravel_index(bad[0], gap.shape)
+                scale, unit = self._units[i]
+                allowed = float(self.alpha[i] * had[k] + self.beta[i]) / scale
+                raise AssemblyError(reason=Reason("coupling", joint=name, other=self.coordinates[source[g]],
+                                                  value=float(asked[k]) / scale, bounds=(allowed, allowed),
+                                                  unit=unit, error=float(gap[k])))
         target[g] = gv
         source.setdefault(g, i)
 

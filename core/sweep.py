@@ -145,18 +145,15 @@ def _run(mech, explicit, N, q0, release):
     Returns (Q (N, n), converged, singular, residual, reasons)."""
     s, ct = mech.solver, mech.coupling_table
     held_m, extra = _held_set(mech, explicit, release)
-    # targets per master, checking couplings for contradictions
-    target = {}
-    for i, v in list(explicit.items()) + [(i, np.full(N, q0[i])) for i in extra]:
-        g = int(ct.master[i])
-        if i in ct.law:
-            raise JointwiseError(f"{mech.coordinates[i]!r} follows a motion law and cannot be held; "
-                                 f"hold its leader {mech.coordinates[g]!r} instead")
-        gv = (np.asarray(v, float) - ct.beta[i]) / ct.alpha[i]
-        if g in target and np.any(np.abs(target[g] - gv) > 1e-9 * np.maximum(1.0, np.abs(gv))):
-            raise JointwiseError(f"held values of {mech.coordinates[i]!r} contradict a coupling "
-                                 f"with another held coordinate")
-        target[g] = gv
+    # targets per master, checking couplings for contradictions (the coupling table's rule)
+    target, source = {}, {}
+    try:
+        for i, v in list(explicit.items()) + [(i, np.full(N, q0[i])) for i in extra]:
+            ct.hold(target, source, i, np.asarray(v, float))
+    except AssemblyError as exc:  # refused held values of a sweep: a usage error (exit 2), as always
+        err = JointwiseError(str(exc))
+        err.reason = exc.reason
+        raise err from None
     ctx = _Context(mech, held_m)
     Q = np.tile(q0, (N, 1))
     for g, v in target.items():

@@ -101,3 +101,22 @@ def test_the_table_is_built_once_with_the_model():
     m.pose({"a": 20.0})
     m.sweep("a", np.linspace(0, 90, 7))
     assert m.coupling_table is t
+
+
+def test_a_sweeps_held_rows_follow_the_same_rule():
+    """Sweeps hold through the table too: a contradiction names the first row that
+    disagrees (the gear mesh: wheel = -18/42 pinion); the CLI keeps exit 2 for a sweep."""
+    import mechanisms as M
+    from jointwise.errors import JointwiseError
+    g = jointwise.from_dict(M.gear_pair(18, 42))
+    t = g.coupling_table
+    w = -18 / 42 * 5.0  # agrees with the middle row only
+    with pytest.raises(JointwiseError, match="held values of 'wheel' and 'pinion' contradict their coupling") as exc:
+        g.sweep("pinion", [0.0, 5.0, 10.0], held={"wheel": w})
+    r = exc.value.reason
+    assert (r.kind, r.joint, r.other) == ("coupling", "wheel", "pinion")
+    assert r.value == pytest.approx(w) and r.bounds == (0.0, 0.0)  # row 0: pinion 0 allows wheel 0
+    target, source = {}, {}
+    t.hold(target, source, g.index["pinion"], np.radians([0.0, 5.0]))
+    t.hold(target, source, g.index["wheel"], np.radians([0.0, -18 / 42 * 5.0]))  # agrees on every row
+    assert np.allclose(target[g.index["pinion"]], np.radians([0.0, 5.0]))
