@@ -600,27 +600,69 @@ def loop_plan(s, block, cols, rot, coupled=True):
         "src_sign": np.array(src_sign)[:, None], "W": W, "weights": weights, "varying": varying,
         "scatter": ((6 * src_loop[:, None] + np.arange(6)[None, :]).ravel(), np.repeat(np.arange(ns), 6)),
         "ncols": len(cols),
+        "one": _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, np.array(src_sign), W),
     }
+
+
+#: (d, 1) x (w_r, v_r) outer products -> the twist (w, v + d x w) of a Jacobian source:
+#: row ``(i, j, part)`` of the flattened (4, 3, 2) outer product feeds column ``part * 3 + j``
+#: when ``i`` = 3 (the 1: ``w`` and ``v`` themselves) and ``3 + k`` with the Levi-Civita
+#: sign ``e_kij`` otherwise (``(d x w)_k = e_kij d_i w_j``).
+_TWIST_OF_OUTER = np.zeros((4, 3, 2, 6))
+for _j in range(3):
+    _TWIST_OF_OUTER[3, _j, 0, _j] = 1.0
+    _TWIST_OF_OUTER[3, _j, 1, 3 + _j] = 1.0
+    _TWIST_OF_OUTER[(_j + 1) % 3, (_j + 2) % 3, 0, 3 + _j] = 1.0
+    _TWIST_OF_OUTER[(_j + 2) % 3, (_j + 1) % 3, 0, 3 + _j] = -1.0
+_TWIST_OF_OUTER = _TWIST_OF_OUTER.reshape(24, 6)
+
+
+def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W):
+    """What :func:`eval_one` reads: the factors in product slots (loop, position), padding
+    slots the zero screw; each slot's powers with the identity after them, so that one product
+    of the rows ``(t, 1 - cos t, t - sin t, 1)`` with them gives the slot's exponential; per
+    Jacobian source ``Y`` with ``P Y = (R w, R v, p)`` for a prefix ``P = (R, p)``; and the
+    source-to-column weights with the walking signs folded in."""
+    f = fidx.ravel()
+    P = powers.shape[0]
+    p16 = np.concatenate([powers.reshape(P, 3, 16),
+                          np.broadcast_to(_EYE4.reshape(1, 1, 16), (P, 1, 16))], axis=1)[f]
+    ns = tw.shape[0]
+    Y = np.zeros((ns, 4, 3))
+    Y[:, :3, 0] = tw[:, :3]
+    Y[:, :3, 1] = tw[:, 3:]
+    Y[:, 3, 2] = 1.0
+    pidx = np.array(pidx + [0], dtype=int)[f]
+    return {"pidx": pidx, "phome": np.array(phome + [0.0])[f], "psign": np.array(psign + [0.0])[f],
+            "p16": p16, "Y": Y, "sW": sign[:, None] * W, "sign": sign}
 
 
 def eval_one(s, plan, q, jac=True):
     """Residual (6 nl), per-loop errors (nl) and Jacobian (6 nl, ncols) at one state ``q``.
 
     Residual rows per loop: ``(w, v + w x site)`` of ``log`` of the loop product, at the
-    cut joint's point; errors scale-free (radians; positions times ``s.pos_weight``)."""
+    cut joint's point; errors scale-free (radians; positions times ``s.pos_weight``).
+    Jacobian column of a source (a factor's screw ``S = (w, v)`` after the prefix ``P = (R,
+    p)`` of its loop's product): ``(R w, R v + (p - site) x R w)``, the adjoint ``Ad(P) S``
+    moved to the cut point; all sources in one product ``P Y`` and one contraction of the
+    outer products ``(p - site, 1) (R w, R v)`` (:data:`_TWIST_OF_OUTER`)."""
+    one = plan["one"]
     nl = plan["nl"]
     kmax = plan["kmax"]
-    th = (q[plan["pidx"]] - plan["phome"]) * plan["psign"]
+    th = (q[one["pidx"]] - one["phome"]) * one["psign"]
     # exp([S] t) = I + t [S] + (1 - cos t) [S]^2 + (t - sin t) [S]^3 (spatial.exp_unit) as one
-    # product of the coefficient rows with the stacked powers
-    coef = plan["coef"]
+    # product of the coefficient rows with the stacked powers (the identity among them)
+    coef = np.empty((th.shape[0], 1, 4))
     coef[:, 0, 0] = th
     coef[:, 0, 1] = 1.0 - np.cos(th)
     coef[:, 0, 2] = th - np.sin(th)
-    ex = ((coef @ plan["p16"]).reshape(-1, 4, 4) + _EYE4)[plan["fidx"]]  # (nl, kmax, 4, 4)
+    coef[:, 0, 3] = 1.0
+    ex = (coef @ one["p16"]).reshape(nl, kmax, 4, 4)
     pre = np.empty((kmax + 1, nl, 4, 4))
     pre[0] = _EYE4
-    for k in range(kmax):
+    if kmax:
+        pre[1] = ex[:, 0]
+    for k in range(1, kmax):
         np.matmul(pre[k], ex[:, k], out=pre[k + 1])
     lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
     if lw is not None:  # one loop near closure: plain floats
@@ -632,7 +674,7 @@ def eval_one(s, plan, q, jac=True):
         v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
         r = np.array([w0, w1, w2, v0, v1, v2])
         errs = np.array([max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * s.pos_weight)])
-        site = np.array([[s0, s1, s2]])
+        site4 = np.array([s0, s1, s2, 0.0])
     else:
         site = pre[plan["cut"]] @ plan["points"][:, :, None]  # (nl, 4, 1)
         site = site[:, :3, 0]
@@ -640,29 +682,27 @@ def eval_one(s, plan, q, jac=True):
         v = v + spatial.cross(w, site)
         r = np.concatenate([w, v], axis=1).ravel()
         errs = np.maximum(np.abs(w).max(axis=1), np.abs(v).max(axis=1) * s.pos_weight)  # scale-free
+        site4 = np.zeros((nl, 4))
+        site4[:, :3] = site
     if not jac:
         return r, errs, None
     ncol = plan["ncols"]
-    if not ncol or not len(plan["src_loop"]):
+    ns = len(plan["src_loop"])
+    if not ncol or not ns:
         return r, errs, np.zeros((6 * nl, ncol))
-    P = pre[plan["src_pos"], plan["src_loop"]]  # (ns, 4, 4)
-    wv = P[:, :3, :3] @ plan["src_wv"]  # (ns, 3, 2): R w, R v
-    wr = wv[:, :, 0]
-    d = P[:, :3, 3] - (site if nl == 1 else site[plan["src_loop"]])
-    tw = np.empty((len(wr), 6))
-    tw[:, :3] = wr
-    tw[:, 3:] = wv[:, :, 1] + d[:, _I1] * wr[:, _I2] - d[:, _I2] * wr[:, _I1]
-    tw *= plan["src_sign"]
-    Wq = plan["W"]
+    A = pre[plan["src_pos"], plan["src_loop"]] @ one["Y"]  # (ns, 4, 3): R w, R v, (p, 1)
+    d = A[:, :, 2] - (site4 if nl == 1 else site4[plan["src_loop"]])  # (p - site, 1)
+    tw = (d[:, :, None, None] * A[:, None, :3, :2]).reshape(ns, 24) @ _TWIST_OF_OUTER  # (ns, 6)
+    sW = one["sW"]
     if plan["varying"]:
-        Wq = Wq.copy()
+        sW = sW.copy()
         for k, c, i, g in plan["varying"]:
-            Wq[k, c] += s.m.coupling_table.member_slope(i, q[g])
+            sW[k, c] += one["sign"][k] * s.m.coupling_table.member_slope(i, q[g])
     if nl == 1:
-        return r, errs, tw.T @ Wq
-    big = np.zeros((6 * nl, tw.shape[0]))
+        return r, errs, tw.T @ sW
+    big = np.zeros((6 * nl, ns))
     big[plan["scatter"]] = tw.ravel()
-    return r, errs, big @ Wq
+    return r, errs, big @ sW
 
 
 #: eval_stack's work arrays (factor angles, exponentials, running products, source twists)
