@@ -600,7 +600,8 @@ def loop_plan(s, block, cols, rot, coupled=True):
         "src_sign": np.array(src_sign)[:, None], "W": W, "weights": weights, "varying": varying,
         "scatter": ((6 * src_loop[:, None] + np.arange(6)[None, :]).ravel(), np.repeat(np.arange(ns), 6)),
         "ncols": len(cols),
-        "one": _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, np.array(src_sign), W),
+        "one": _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, np.array(src_sign), W,
+                               src_loop, src_pos),
     }
 
 
@@ -616,8 +617,19 @@ for _j in range(3):
     _TWIST_OF_OUTER[(_j + 2) % 3, (_j + 1) % 3, 0, 3 + _j] = -1.0
 _TWIST_OF_OUTER = _TWIST_OF_OUTER.reshape(24, 6)
 
+#: x (6) outer y (6) -> the Lie bracket ``[x, y] = (w1 x w2, w1 x v2 + v1 x w2)``
+#: (:func:`spatial.ad`) as one contraction: entry ``(a, b)`` feeds ``out + k`` with the sign
+#: of the cross product ``(u x z)_k = u_{k+1} z_{k+2} - u_{k+2} z_{k+1}``.
+_BRACKET_OF_OUTER = np.zeros((6, 6, 6))
+for _k in range(3):
+    _i, _j = (_k + 1) % 3, (_k + 2) % 3
+    for _a, _b, _out in ((0, 0, 0), (0, 3, 3), (3, 0, 3)):
+        _BRACKET_OF_OUTER[_a + _i, _b + _j, _out + _k] += 1.0
+        _BRACKET_OF_OUTER[_a + _j, _b + _i, _out + _k] -= 1.0
+_BRACKET_OF_OUTER = _BRACKET_OF_OUTER.reshape(36, 6)
 
-def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W):
+
+def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W, src_loop, src_pos):
     """What :func:`eval_one` reads: the factors in product slots (loop, position), padding
     slots the zero screw; each slot's powers with the identity after them, so that one product
     of the rows ``(t, 1 - cos t, t - sin t, 1)`` with them gives the slot's exponential; per
@@ -633,11 +645,39 @@ def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W):
     Y[:, :3, 1] = tw[:, 3:]
     Y[:, 3, 2] = 1.0
     pidx = np.array(pidx + [0], dtype=int)[f]
+    same = src_loop[:, None] == src_loop[None, :]
     return {"pidx": pidx, "phome": np.array(phome + [0.0])[f], "psign": np.array(psign + [0.0])[f],
-            "p16": p16, "Y": Y, "sW": sign[:, None] * W, "sign": sign}
+            "p16": p16, "Y": Y, "sW": sign[:, None] * W, "sign": sign,
+            # one loop whose sources are its factors in order: their prefixes are pre[:ns, 0]
+            "in_order": nl == 1 and np.array_equal(src_pos, np.arange(ns)),
+            # source a's twist left of source b (same loop, earlier in the product)
+            "before": (same & (src_pos[None, :] < src_pos[:, None])).astype(float),
+            "loop_sum": (src_loop[None, :] == np.arange(nl)[:, None]).astype(float)}
 
 
-def eval_one(s, plan, q, jac=True):
+def bias_one(plan, sources, rates):
+    """The acceleration term ``J_dot q_dot`` of every loop at one closed state, (6 nl,) in
+    the residual's rows (at the cut points): :func:`loop_bias` from the Jacobian sources of
+    :func:`eval_one` (``sources=True``) at that state, without evaluating anything again.
+
+    ``rates``: the rate of every column of the plan (internal units).  Each source moves
+    at ``c_k = x_k (sW_k . rates)`` and ``J_dot q_dot = sum_k [V_<k, c_k]``, ``V_<k`` the
+    sum of the sources left of ``k`` in its loop's product (Lynch & Park, *Modern
+    Robotics*, 2017, sec. 5.1.1; the brackets commute with the move to the cut point,
+    ``Ad [x, y] = [Ad x, Ad y]``).  Valid for plans of plain coordinate columns: no
+    rotation increments (their rates are not coordinate rates) and no motion laws (their
+    ``f''`` term is the caller's, see :func:`loop_bias`)."""
+    tw, sW = sources
+    one = plan["one"]
+    c = tw * (sW @ rates)[:, None]  # (ns, 6)
+    left = one["before"] @ c
+    if plan["nl"] == 1:  # sum over the sources of left_k outer c_k: one product
+        return (left.T @ c).reshape(36) @ _BRACKET_OF_OUTER
+    outer = (one["loop_sum"][:, :, None] * left[None]).transpose(0, 2, 1) @ c  # (nl, 6, 6)
+    return (outer.reshape(-1, 36) @ _BRACKET_OF_OUTER).ravel()
+
+
+def eval_one(s, plan, q, jac=True, sources=False):
     """Residual (6 nl), per-loop errors (nl) and Jacobian (6 nl, ncols) at one state ``q``.
 
     Residual rows per loop: ``(w, v + w x site)`` of ``log`` of the loop product, at the
@@ -667,7 +707,7 @@ def eval_one(s, plan, q, jac=True):
     lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
     if lw is not None:  # one loop near closure: plain floats
         x, y, z, _ = plan["points"][0].tolist()
-        c0, c1, c2, _ = pre[plan["cut"]][0].tolist()
+        c0, c1, c2, _ = pre[plan["cut_pos"][0], 0].tolist()
         s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
                       c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
         w0, w1, w2, v0, v1, v2 = lw
@@ -690,7 +730,8 @@ def eval_one(s, plan, q, jac=True):
     ns = len(plan["src_loop"])
     if not ncol or not ns:
         return r, errs, np.zeros((6 * nl, ncol))
-    A = pre[plan["src_pos"], plan["src_loop"]] @ one["Y"]  # (ns, 4, 3): R w, R v, (p, 1)
+    P = pre[:ns, 0] if one["in_order"] else pre[plan["src_pos"], plan["src_loop"]]  # (ns, 4, 4)
+    A = P @ one["Y"]  # (ns, 4, 3): R w, R v, (p, 1)
     d = A[:, :, 2] - (site4 if nl == 1 else site4[plan["src_loop"]])  # (p - site, 1)
     tw = (d[:, :, None, None] * A[:, None, :3, :2]).reshape(ns, 24) @ _TWIST_OF_OUTER  # (ns, 6)
     sW = one["sW"]
@@ -699,10 +740,12 @@ def eval_one(s, plan, q, jac=True):
         for k, c, i, g in plan["varying"]:
             sW[k, c] += one["sign"][k] * s.m.coupling_table.member_slope(i, q[g])
     if nl == 1:
-        return r, errs, tw.T @ sW
-    big = np.zeros((6 * nl, ns))
-    big[plan["scatter"]] = tw.ravel()
-    return r, errs, big @ sW
+        J = tw.T @ sW
+    else:
+        big = np.zeros((6 * nl, ns))
+        big[plan["scatter"]] = tw.ravel()
+        J = big @ sW
+    return (r, errs, J, (tw, sW)) if sources else (r, errs, J)
 
 
 #: eval_stack's work arrays (factor angles, exponentials, running products, source twists)

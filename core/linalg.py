@@ -15,7 +15,8 @@ import numpy as np
 from .units import CONTRACTION, NOISE_STEP, NORMAL_CERT, ORIENT_RATIO
 
 __all__ = ["chol_factor", "chol_apply", "chol_solve", "least_norm", "least_norm_factor", "least_norm_apply",
-           "tmul", "det_stack", "det_small", "lstsq_small", "lstsq_svd", "orientation_frame",
+           "tmul", "det_stack", "det_small", "det_rows", "lstsq_small", "normal_factor",
+           "normal_solve", "lstsq_svd", "orientation_frame",
            "orientation_agrees", "branch_step_certified"]
 
 
@@ -176,8 +177,9 @@ def lstsq_small(a, b, rcond):
     Where the certificate ``det(G) / |G|_F^k >= NORMAL_CERT`` (``G = a^T a``) proves
     ``s_min / s_max >= 1e-3 > rcond`` the SVD would cut no singular value, so the least-
     squares solution is that of the normal equations, solved here in plain floats for one
-    or two columns (the common four-bar and slider blocks) or by ``np.linalg.solve``;
-    otherwise (wide, rank-deficient or ill-conditioned ``a``) the SVD solve itself."""
+    to three columns (the common four-bar and slider blocks, :func:`normal_factor`) or by
+    ``np.linalg.solve``; otherwise (wide, rank-deficient or ill-conditioned ``a``) the SVD
+    solve itself."""
     m, k = a.shape
     if 0 < m < k and rcond < 1e-3:  # wide: least norm a^T (a a^T)^-1 b, certified the same way
         g = a @ a.T
@@ -185,26 +187,10 @@ def lstsq_small(a, b, rcond):
         if fro > 0 and det_small(g / fro) >= NORMAL_CERT:
             return a.T @ np.linalg.solve(g, b)
     if 0 < k <= m and rcond < 1e-3:
-        if k == 1:
-            g = float(a[:, 0] @ a[:, 0])
-            if g > 0:
-                return np.array([float(a[:, 0] @ b) / g])
-        elif k == 2:
-            (g00, g01), (_, g11) = (a.T @ a).tolist()
-            det = g00 * g11 - g01 * g01
-            if det >= NORMAL_CERT * (g00 * g00 + 2 * g01 * g01 + g11 * g11):
-                h0, h1 = (b @ a).tolist()
-                return np.array([(g11 * h0 - g01 * h1) / det, (g00 * h1 - g01 * h0) / det])
-        elif k == 3:
-            (g00, g01, g02), (_, g11, g12), (_, _, g22) = (a.T @ a).tolist()
-            c00, c01, c02 = g11 * g22 - g12 * g12, g02 * g12 - g01 * g22, g01 * g12 - g02 * g11
-            det = g00 * c00 + g01 * c01 + g02 * c02
-            fro = math.sqrt(g00 * g00 + g11 * g11 + g22 * g22 + 2 * (g01 * g01 + g02 * g02 + g12 * g12))
-            if det >= NORMAL_CERT * fro * fro * fro:
-                c11, c12, c22 = g00 * g22 - g02 * g02, g01 * g02 - g00 * g12, g00 * g11 - g01 * g01
-                h0, h1, h2 = (b @ a).tolist()
-                return np.array([c00 * h0 + c01 * h1 + c02 * h2, c01 * h0 + c11 * h1 + c12 * h2,
-                                 c02 * h0 + c12 * h1 + c22 * h2]) / det
+        if k <= 3:
+            fac = normal_factor(a)
+            if fac is not None:
+                return normal_solve(fac, a, b)
         else:
             g = a.T @ a
             fro = math.sqrt(float((g * g).sum()))
@@ -213,18 +199,65 @@ def lstsq_small(a, b, rcond):
     return np.linalg.lstsq(a, b, rcond=rcond)[0]
 
 
-def det_small(m):
-    """Determinant of one square matrix; plain floats up to 3 x 3."""
-    k = m.shape[0]
+def normal_factor(a, g=None):
+    """The normal equations of one tall matrix ``a`` (m, k), 1 <= k <= 3, solved once for
+    many right-hand sides: ``(k, adjugate rows of G, det G)``, ``G = a^T a`` (``g`` if the
+    caller has it), where ``det(G) >= NORMAL_CERT |G|_F^k`` (:func:`lstsq_small`'s
+    certificate; for one column ``G > 0``), else None."""
+    k = a.shape[1]
     if k == 1:
-        return float(m[0, 0])
+        g00 = float(a[:, 0] @ a[:, 0])
+        return (1, None, g00) if g00 > 0 else None
+    if g is None:
+        g = a.T @ a
     if k == 2:
-        (a, b), (c, d) = m.tolist()
-        return a * d - b * c
-    if k == 3:
-        (a, b, c), (d, e, f), (g, h, i) = m.tolist()
-        return a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
+        (g00, g01), (_, g11) = g.tolist()
+        det = g00 * g11 - g01 * g01
+        if det >= NORMAL_CERT * (g00 * g00 + 2 * g01 * g01 + g11 * g11):
+            return 2, (g00, g01, g11), det
+        return None
+    (g00, g01, g02), (_, g11, g12), (_, _, g22) = g.tolist()
+    c00, c01, c02 = g11 * g22 - g12 * g12, g02 * g12 - g01 * g22, g01 * g12 - g02 * g11
+    det = g00 * c00 + g01 * c01 + g02 * c02
+    fro = math.sqrt(g00 * g00 + g11 * g11 + g22 * g22 + 2 * (g01 * g01 + g02 * g02 + g12 * g12))
+    if det >= NORMAL_CERT * fro * fro * fro:
+        c11, c12, c22 = g00 * g22 - g02 * g02, g01 * g02 - g00 * g12, g00 * g11 - g01 * g01
+        return 3, (c00, c01, c02, c11, c12, c22), det
+    return None
+
+
+def normal_solve(fac, a, b):
+    """The least-squares solution of ``a x = b`` from ``a``'s :func:`normal_factor`."""
+    k, c, det = fac
+    if k == 1:
+        return np.array([float(a[:, 0] @ b) / det])
+    if k == 2:
+        g00, g01, g11 = c
+        h0, h1 = (b @ a).tolist()
+        return np.array([(g11 * h0 - g01 * h1) / det, (g00 * h1 - g01 * h0) / det])
+    c00, c01, c02, c11, c12, c22 = c
+    h0, h1, h2 = (b @ a).tolist()
+    return np.array([c00 * h0 + c01 * h1 + c02 * h2, c01 * h0 + c11 * h1 + c12 * h2,
+                     c02 * h0 + c12 * h1 + c22 * h2]) / det
+
+
+def det_small(m):
+    """Determinant of one square matrix; plain floats up to 3 x 3 (:func:`det_rows`)."""
+    if 0 < m.shape[0] <= 3:
+        return det_rows(m.tolist())
     return float(np.linalg.det(m))
+
+
+def det_rows(rows):
+    """Determinant of a 1 x 1 to 3 x 3 matrix given as nested lists of floats."""
+    k = len(rows)
+    if k == 1:
+        return float(rows[0][0])
+    if k == 2:
+        (a, b), (c, d) = rows
+        return a * d - b * c
+    (a, b, c), (d, e, f), (g, h, i) = rows
+    return a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
 
 
 def lstsq_svd(svd, b, rcond):

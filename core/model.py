@@ -115,7 +115,8 @@ class Model:
             for c in j.coordinates:
                 self.owner[c] = j.name
         self.home = np.concatenate([j.home for j in self.joints.values()]) if self.joints else np.zeros(0)
-        self._powers = None
+        self._powers = None  # the primitives' screw powers (_screw_powers; geometry)
+        self._powers_one = None  # the same with the identity in front, and the tree walk (_link_poses_one)
         #: values worked out from the structure alone (mobility at home, ...): kept until
         #: the structure changes (:meth:`_structure_changed`)
         self._derived = {}
@@ -194,6 +195,7 @@ class Model:
     def _structure_changed(self):
         """Forget everything worked out from the joints' geometry."""
         self._powers = None
+        self._powers_one = None
         self._derived.clear()
 
     def _set_geometry(self, geometry):
@@ -334,17 +336,23 @@ class Model:
         return dict(zip(self.coordinates, (q / scale).tolist()))
 
     # -- posing ------------------------------------------------------------------
+    def _screw_powers(self):
+        """Powers of every primitive's screw (:func:`spatial.screw_powers`), (P, 3, 4, 4), one
+        primitive per coordinate; kept until the geometry changes."""
+        if self._powers is None:
+            screws = [p.screw for j in self.joints.values() for p in j.primitives]
+            self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
+        return self._powers
+
     def joint_transforms(self, q):
         """Displacement of each joint's child relative to its parent, for internal ``q``.
 
         ``q`` of shape (n,) gives 4x4 matrices; a stack (B, n) gives (B, 4, 4) stacks, all
         primitive exponentials in one vectorised call."""
         q = np.asarray(q, dtype=float)
-        if self._powers is None:
-            screws = [p.screw for j in self.joints.values() for p in j.primitives]
-            self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
+        powers = self._screw_powers()
         eye = np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))
-        ex = spatial.exp_unit(self._powers, q - self.home) if q.shape[-1] else None
+        ex = spatial.exp_unit(powers, q - self.home) if q.shape[-1] else None
         out = {}
         for name, sl in self.slices.items():
             if sl.stop == sl.start:
@@ -360,10 +368,12 @@ class Model:
         """Displacements from home of every link for internal coordinates ``q`` (n,) or a
         stack of them (B, n)."""
         q = np.asarray(q, dtype=float)
-        if q.ndim == 2 and q.shape[0] > 8 and q.shape[1]:
+        if q.ndim == 1:
+            return self._link_poses_one(q)
+        if q.shape[0] > 8 and q.shape[1]:
             return self._link_poses_stack(q)
         es = self.joint_transforms(q)
-        out = {self.ground: np.eye(4) if q.ndim == 1 else np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
+        out = {self.ground: np.broadcast_to(np.eye(4), q.shape[:-1] + (4, 4))}
         for link in self.order[1:]:
             jname, sign = self.tree_parent[link]
             j = self.joints[jname]
@@ -373,21 +383,61 @@ class Model:
                 out[link] = out[j.child] @ spatial.inverse(es[jname])
         return {name: np.array(out[name]) for name in self.links}
 
+    def _link_poses_one(self, q):
+        """:meth:`link_poses` of one state: every primitive's exponential as one product of
+        the rows ``(1, t, 1 - cos t, t - sin t)`` with the powers ``(I, [S], [S]^2, [S]^3)``
+        (:func:`spatial.exp_unit`, same terms in the same order), then one product per
+        link down the tree (a link on ground takes its joint's displacement itself)."""
+        walk = self._powers_one
+        if walk is None:
+            powers = self._screw_powers()
+            P = powers.shape[0]
+            p16 = np.concatenate([np.broadcast_to(np.eye(4).reshape(1, 1, 16), (P, 1, 16)),
+                                  powers.reshape(P, 3, 16)], axis=1)
+            steps = []  # per link below ground: (link, link it hangs from or None for ground,
+            #            its joint's primitives, walked forwards)
+            for link in self.order[1:]:
+                jname, sign = self.tree_parent[link]
+                j = self.joints[jname]
+                sl = self.slices[jname]
+                up = j.parent if sign > 0 else j.child
+                steps.append((link, None if up == self.ground else up, range(sl.start, sl.stop), sign > 0))
+            walk = self._powers_one = (p16, steps)
+        p16, steps = walk
+        out = {self.ground: np.eye(4)}
+        if len(q):
+            th = q - self.home
+            coef = np.empty((len(th), 1, 4))
+            coef[:, 0, 0] = 1.0
+            coef[:, 0, 1] = th
+            coef[:, 0, 2] = 1 - np.cos(th)
+            coef[:, 0, 3] = th - np.sin(th)
+            ex = (coef @ p16).reshape(-1, 4, 4)
+        for link, up, prims, forward in steps:
+            if not prims:
+                e = np.eye(4)
+            else:
+                e = ex[prims[0]]
+                for k in prims[1:]:
+                    e = e @ ex[k]
+            if not forward:
+                e = spatial.inverse(e)
+            out[link] = e.copy() if up is None and forward else (e if up is None else out[up] @ e)
+        return {name: out[name] for name in self.links}
+
     def _link_poses_stack(self, q):
         """:meth:`link_poses` of a stack (B, n), computed component-first (each entry of
         the transforms a row over the stack: elementwise products instead of many tiny
         4x4 ones): one product of the coefficient rows with the stacked powers gives every
         primitive's exponential (:func:`spatial.exp_unit`), then the joints and the tree."""
-        if self._powers is None:
-            screws = [p.screw for j in self.joints.values() for p in j.primitives]
-            self._powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))
+        powers = self._screw_powers()
         B = q.shape[0]
         th = (q - self.home).T  # (n, B)
         coef = np.empty((th.shape[0], 3, B))
         coef[:, 0] = th
         coef[:, 1] = 1.0 - np.cos(th)
         coef[:, 2] = th - np.sin(th)
-        p12 = np.ascontiguousarray(self._powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1))
+        p12 = np.ascontiguousarray(powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1))
         E = np.moveaxis((p12 @ coef).reshape(-1, 3, 4, B), 0, 2)  # (3, 4, n, B)
         E[0, 0] += 1.0
         E[1, 1] += 1.0

@@ -42,7 +42,7 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, LimitError, Reason
-from .linalg import det_small, lstsq_small, lstsq_svd, orientation_agrees
+from .linalg import det_rows, det_small, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
                     MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
@@ -75,6 +75,28 @@ class _Block:
         self.groups = groups        # master indices whose group touches these loops
 
 
+class _Step:
+    """What a continuation step of one block with one set of held masters reads, worked out
+    once: unknown columns ``cols`` (``rot``: joints moved by rotation increments), ``allcols``
+    (unknown then held), their scales, the loop plan of ``allcols``; ``plain`` where every
+    unknown column is a coordinate (``gidx`` their masters, ``gscale`` those masters' scales,
+    ``derived`` the masters with coupled members); ``curved`` where the second-order
+    predictor applies (plain, no motion law in the plan: :func:`kinematics.bias_one`)."""
+
+    def __init__(self, s, b, cols, rot, allcols):
+        self.cols, self.rot, self.allcols = cols, rot, allcols
+        self.nu = len(cols)
+        self.cs = s._col_scale(cols)
+        self.rs = s._row_scale(len(b.loops))
+        self.rcs = self.rs[:, None] * self.cs[None, :]  # scales the solved Jacobian: J * rcs
+        self.plan = s._plan(b, allcols, rot)
+        self.plain = not rot and all(c[0] == "m" for c in cols)
+        self.gidx = np.array([c[1] for c in cols], dtype=int) if self.plain else None
+        self.gscale = s.cscale[self.gidx] if self.plain else None
+        self.derived = [c[1] for c in cols if c[0] == "m" and len(s.m.coupling_table.members[c[1]]) > 1]
+        self.curved = self.plain and not self.plan["varying"] and bool(cols)
+
+
 #: A closed state's scaled solved Jacobian counts as proven regular where ``det(G) / |G|_F^g``
 #: (``G`` its Gram matrix on the smaller side) reaches this: then ``s_min / s_max >=
 #: SINGULAR_RATIO`` (the certificate bounds ``(s_min / s_max)^2`` from below), so it has full
@@ -83,16 +105,35 @@ FULL_CERT = max(NORMAL_CERT, SINGULAR_RATIO ** 2)
 
 
 def _state_info(js):
-    """How a closed state's scaled solved Jacobian ``js`` (m, k) is read: ``("full", js)``
-    where the certificate proves it regular (see ``FULL_CERT``), else ``("svd", (u, s, vt))``
-    its thin SVD."""
+    """How a closed state's scaled solved Jacobian ``js`` (m, k) is read: ``("full", js, fac)``
+    where the certificate proves it regular (see ``FULL_CERT``; ``fac`` its normal equations
+    solved once, :func:`jointwise.linalg.normal_factor`, for up to three columns, else None),
+    else ``("svd", (u, s, vt))`` its thin SVD.  :func:`_solve_at` solves with it."""
     m, k = js.shape
     if k and m:
         g = js.T @ js if k <= m else js @ js.T
-        fro = math.sqrt(float((g * g).sum()))
-        if fro > 0 and det_small(g / fro) >= FULL_CERT:
-            return "full", js
+        if len(g) <= 3:  # plain floats: det_small of g / |g|_F
+            rows = g.tolist()
+            fro = math.sqrt(sum(x * x for row in rows for x in row))
+            if fro > 0 and det_rows([[x / fro for x in row] for row in rows]) >= FULL_CERT:
+                return "full", js, (normal_factor(js, g) if k <= m else None)
+        else:
+            fro = math.sqrt(float((g * g).sum()))
+            if fro > 0 and det_small(g / fro) >= FULL_CERT:
+                return "full", js, None
     return "svd", np.linalg.svd(js, full_matrices=False)
+
+
+def _absmax(v):
+    """Largest magnitude in a short 1-D array (0.0 if empty), as a float."""
+    return max(map(abs, v.tolist()), default=0.0)
+
+
+def _solve_at(info, rhs):
+    """``lstsq(js, rhs, rcond=1e-6)`` for the scaled Jacobian read by :func:`_state_info`."""
+    if info[0] == "full":
+        return normal_solve(info[2], info[1], rhs) if info[2] is not None else lstsq_small(info[1], rhs, 1e-6)
+    return lstsq_svd(info[1], rhs, 1e-6)
 
 
 def _agrees(frame, js):
@@ -117,10 +158,11 @@ class Solver:
         #   _plans    (block, unknown columns, rotation-increment joints, coupled) -> loop
         #             plan (kinematics.loop_plan); PLAN_MEMORY, oldest out
         #   _layouts  (block, held masters) -> (unknown columns, rotation joints); PLAN_MEMORY
-        #   _allcols  (block, held masters in order) -> unknown + held columns; PLAN_MEMORY
+        #   _steps    (block, held masters in order) -> _Step (columns, scales, plan); PLAN_MEMORY
         #   _kept     (given coordinates, drive flags) -> drives kept held; PLAN_MEMORY
         #   _tangent_cols (block, held masters, moving master) -> column lists; PLAN_MEMORY
-        #   _lastJ    (block, state bytes) -> Jacobian of a closed state; JACOBIAN_MEMORY
+        #   _lastJ    (block, state bytes) -> Jacobian, _state_info and Jacobian sources of a
+        #             closed state; JACOBIAN_MEMORY
         #   _row_scales  loop count -> row scale; _rot_twists  joint -> twists (structure)
         #   _generic_rank (purpose, block, columns) -> largest rank seen (one per layout)
         #   _settled  block -> (its coordinates' bytes and held values as a pose left them,
@@ -133,7 +175,7 @@ class Solver:
         self._row_scales = {}
         self._layouts = {}
         self._lastJ = {}
-        self._allcols = {}
+        self._steps = {}
         self._tangent_cols = {}
         self._settled = {}
         self._block_idx = {}
@@ -328,36 +370,41 @@ class Solver:
         q[:] = best[1]
         return False, best[0], best[2], best[3]
 
-    def _correct(self, block, q, cols, rot, nu):
-        """Continuation corrector: undamped Newton from the predictor ``q`` (in place).
+    def _correct(self, block, q, st, nu):
+        """Continuation corrector: undamped Newton from the predictor ``q`` (in place), over
+        the columns of step record ``st`` (:class:`_Step`; the first ``nu`` unknown).
 
         Unlike :meth:`_newton` it never damps nor wanders: it fails as soon as an
         increment is not at most ``CORRECTOR_RATIO`` of the one before (the predictor lies
         outside the convergence region of the nearest solution, see the branch notes
         above), so a failed step costs a few evaluations.  Returns ``(ok, err, loop_errs,
-        J)`` with ``J`` over all ``cols`` at the final state.
+        J, sources)`` with ``J`` over all columns at the final state and ``sources`` its
+        Jacobian sources (:func:`jointwise.kinematics.eval_one`).
         """
-        rs = self._row_scale(len(block.loops))
-        cs = self._col_scale(cols[:nu])
-        r, errs, J = self._eval(block, q, cols, rot)
+        plan, rs, cs = st.plan, st.rs, st.cs
+        r, errs, J, src = kinematics.eval_one(self, plan, q, True, True)
         prev = None
         for _ in range(CORRECTOR_ITER):
-            err = float(errs.max())
+            err = max(errs.tolist())
             if err <= TOLERANCE:
-                return True, err, errs, J
+                return True, err, errs, J, src
             if not nu:
                 break
-            du = lstsq_small(J[:, :nu] * rs[:, None] * cs[None, :], -r * rs, 1e-10)
-            size = float(np.linalg.norm(du))
+            du = lstsq_small(J[:, :nu] * st.rcs, -r * rs, 1e-10)
+            size = math.sqrt(float(du @ du))
             if prev is None and size > 0.5:
                 break  # the predictor is far from closure: the sub-step is too long
             if prev is not None and size > CONTRACT_FLOOR and size > CORRECTOR_RATIO * prev:
                 break  # no contraction: outside the corrector's convergence region
             prev = size
-            self._apply(q, cols[:nu], rot, du * cs)
-            r, errs, J = self._eval(block, q, cols, rot)
-        err = float(errs.max())
-        return err <= TOLERANCE, err, errs, J
+            if st.plain:
+                q[st.gidx] += du * cs
+                self.m.coupling_table.derive(q, st.derived)
+            else:
+                self._apply(q, st.cols, st.rot, du * cs)
+            r, errs, J, src = kinematics.eval_one(self, plan, q, True, True)
+        err = max(errs.tolist())
+        return err <= TOLERANCE, err, errs, J, src
 
     def _orientation(self, b, info, cols):
         """Orientation frame (see :func:`jointwise.linalg.orientation_frame`) of a solved block's
@@ -507,28 +554,35 @@ class Solver:
             _remember(self._kept, key, hit)
         return list(hit)
 
+    def _step_of(self, b, hlist):
+        """What a continuation step of block ``b`` with held masters ``hlist`` (in order) reads
+        (:class:`_Step`); key: block and held masters in order (they decide the columns too);
+        at most ``PLAN_MEMORY`` kept, oldest out."""
+        key = (b.index, tuple(hlist))
+        st = self._steps.get(key)
+        if st is None:
+            cols, rot = self._layout(b, set(hlist))
+            allcols = cols + [("m", g) for g in hlist]
+            st = _remember(self._steps, key, _Step(self, b, cols, rot, allcols))
+        return st
+
     def _solve_block(self, b, q, held_b, source):
-        cols, rot = self._layout(b, set(held_b))
-        cs = self._col_scale(cols)
-        rs = self._row_scale(len(b.loops))
         hlist = list(held_b)
-        h0 = {g: q[g] for g in hlist}
-        dh = np.array([(held_b[g] - h0[g]) * self.cscale[g] for g in hlist])
-        span = float(np.abs(dh).max()) if dh.size else 0.0
+        st = self._step_of(b, hlist)
+        cols, rot, cs, rs, nu, allcols = st.cols, st.rot, st.cs, st.rs, st.nu, st.allcols
+        h0 = [float(q[g]) for g in hlist]
+        dfull = [held_b[g] - v for g, v in zip(hlist, h0)]  # held change per unit t
+        dh = [abs(d) * self.cscale[g] for g, d in zip(hlist, dfull)]
+        span = max(dh) if dh else 0.0
         if span > MAX_SPAN:
-            raise self._too_far(hlist[int(np.argmax(np.abs(dh)))], held_b, h0, source)
+            raise self._too_far(hlist[dh.index(span)], held_b, dict(zip(hlist, h0)), source)
         if span == 0.0:
             ok, err, errs, J = self._newton(b, q, cols, rot)
             if not ok:
-                self._fail(b, q, held_b, source, err, errs, h0)
+                self._fail(b, q, held_b, source, err, errs, dict(zip(hlist, h0)))
             return err, self._singular(b, J, cols, rs, cs)
-        nu = len(cols)
-        akey = (b.index, tuple(hlist))  # the held masters decide cols as well
-        allcols = self._allcols.get(akey)
-        if allcols is None:
-            allcols = _remember(self._allcols, akey, cols + [("m", g) for g in hlist])
         q0 = q.copy()
-        dfull = np.array([held_b[g] - h0[g] for g in hlist])  # held change per unit t
+        dfull = np.array(dfull)
         held_rate = span  # dimensionless held motion per unit t
         t = 0.0
         limit = MAX_STEP
@@ -537,23 +591,29 @@ class Solver:
         frame = None
         crossed = False
         svd_here = None
+        src_here = None
         while t < 1.0:
             if J_here is None:
                 key = (b.index, q.tobytes())
                 cached = self._lastJ.pop(key, None)
                 if cached is not None and cached[0] is allcols:
-                    J_here, svd_here = cached[1], cached[2]
+                    J_here, svd_here, src_here = cached[1], cached[2], cached[3]
                     self._lastJ[key] = cached  # most recently used last
                 else:
-                    J_here = self._eval(b, q, allcols, rot)[2]
+                    _, _, J_here, src_here = kinematics.eval_one(self, st.plan, q, True, True)
             # tangent: d(unknown)/dt = -pinv(J_u) J_h d(held)/dt  (dimensionless columns)
+            accel = None
             if cols:
                 if svd_here is None:
                     svd_here = _state_info(J_here[:, :nu] * rs[:, None] * cs[None, :])
-                rhs = -(J_here[:, nu:] @ dfull) * rs
-                rate = (lstsq_small(svd_here[1], rhs, 1e-6) if svd_here[0] == "full"
-                        else lstsq_svd(svd_here[1], rhs, 1e-6))
-                rmax = float(np.abs(rate).max()) if rate.size else 0.0
+                rate = _solve_at(svd_here, -(J_here[:, nu:] @ dfull) * rs)
+                rmax = _absmax(rate)
+                if st.curved and rmax > 0:
+                    # second-order term: J_u u'' = -J_dot q' (kinematics.bias_one), exact at a closed
+                    # state; it moves the corrector's start only (the tests below read the
+                    # first-order prediction)
+                    bias = kinematics.bias_one(st.plan, src_here, np.concatenate([rate * cs, dfull]))
+                    accel = _solve_at(svd_here, -bias * rs)
             else:
                 rate, rmax = np.zeros(0), 0.0
             if cols and frame is None:
@@ -567,18 +627,34 @@ class Solver:
             dt_first = dt
             while True:
                 t1 = 1.0 if dt >= remaining else t + dt
+                h = t1 - t
                 trial = q.copy()
-                for g in hlist:
-                    trial[g] = h0[g] + t1 * (held_b[g] - h0[g])
+                for g, v, d in zip(hlist, h0, dfull):
+                    trial[g] = v + t1 * d
                 self.m.coupling_table.derive(trial, hlist)
-                if cols:
-                    self._apply(trial, cols, rot, rate * (t1 - t) * cs)
-                before = trial.copy()
-                ok, err, errs, Jall = self._correct(b, trial, allcols, rot, nu)
+                if st.plain:
+                    # unknown masters only: the first-order prediction, and the start of the
+                    # corrector with the second-order term where it stays small beside it
+                    first = trial[st.gidx] + rate * h * cs
+                    start_u = first
+                    if accel is not None:
+                        bend = accel * (0.5 * h * h)
+                        if _absmax(bend) <= 0.25 * rmax * h:
+                            start_u = first + bend * cs
+                    trial[st.gidx] = start_u
+                    self.m.coupling_table.derive(trial, st.derived)
+                    ok, err, errs, Jall, src = self._correct(b, trial, st, nu)
+                    moved = _absmax((trial[st.gidx] - first) * st.gscale) if ok else 0.0
+                else:
+                    if cols:
+                        self._apply(trial, cols, rot, rate * h * cs)
+                    before = trial.copy()
+                    ok, err, errs, Jall, src = self._correct(b, trial, st, nu)
+                    moved = self._dist(before, trial, cols) if ok else 0.0
                 J = Jall[:, :nu]
-                moved = self._dist(before, trial, cols) if ok else 0.0
-                if ok and moved <= 0.5 * rmax * (t1 - t) + JUMP_SLACK:
-                    if frame is None or _agrees(frame, J * rs[:, None] * cs[None, :]):
+                Jsc = J * st.rcs
+                if ok and moved <= 0.5 * rmax * h + JUMP_SLACK:
+                    if frame is None or _agrees(frame, Jsc):
                         break
                     if dt * max(held_rate, 1e-12) < 1e-7:
                         crossed = self._crossed = True  # the path passes a singular point: flag it
@@ -588,13 +664,14 @@ class Solver:
                     if self._solve_overheld(b, q0, held_b, source):
                         q[:] = q0
                         return 0.0, False
-                    self._fail(b, q, held_b, source, err, errs, h0)
+                    self._fail(b, q, held_b, source, err, errs, dict(zip(hlist, h0)))
             q[:] = trial
             if t1 < 1.0:
                 self._stop_at_limit(q, cols)
             pred = rmax * (t1 - t)
             t = t1
             J_here = Jall
+            src_here = src
             svd_here = None
             frame = None
             # step control: grow while the corrector stays small against the prediction
@@ -607,13 +684,14 @@ class Solver:
             elif moved < 0.1 * pred:
                 limit = min(1.5 * limit, MAX_MOTION)
         if cols and J is not None and J.size:
-            svd_here = _state_info(J * rs[:, None] * cs[None, :])
+            svd_here = _state_info(Jsc)
         if J_here is not None:
             if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
                 self._lastJ.pop(next(iter(self._lastJ)))
-            # key: block and the closed state's bytes; value: its column layout, Jacobian
-            # and how its scaled solved part reads (_state_info: tangent and orientation next time)
-            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here, svd_here)
+            # key: block and the closed state's bytes; value: its column layout, Jacobian, how
+            # its scaled solved part reads (_state_info: tangent and orientation next time) and
+            # its Jacobian sources (kinematics.bias_one: the second-order term next time)
+            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here, svd_here, src_here)
         return err, crossed or self._singular(b, J, cols, rs, cs, svd_here)
 
     def _solve_overheld(self, b, q, held_b, source):
