@@ -67,6 +67,8 @@ def loop_columns(mech, block, Q):
     m = mech
     Q = np.asarray(Q, dtype=float)
     B = Q.shape[0]
+    if B > SMALL_STACK:
+        return walk_columns(m.solver, _walk_plan(m.solver, block), Q)
     joints = {jn for lp in block.loops for jn, _ in lp.steps}
     data = {jn: joint_motion(m, jn, Q) for jn in joints}
     out = []
@@ -85,6 +87,21 @@ def loop_columns(mech, block, Q):
                 cols.extend((start + k, tw[:, k]) for k in order)
         out.append((cols, site))
     return out
+
+
+_WALK_PLANS = weakref.WeakKeyDictionary()  # solver -> {block index: loop plan without columns}
+
+
+def _walk_plan(s, block):
+    """The loop plan :func:`walk_columns` reads for ``block`` (no columns, no couplings),
+    kept per solver and block (at most one per block)."""
+    plans = _WALK_PLANS.get(s)
+    if plans is None:
+        plans = _WALK_PLANS[s] = {}
+    plan = plans.get(block.index)
+    if plan is None:
+        plan = plans[block.index] = loop_plan(s, block, [], set(), coupled=False)
+    return plan
 
 
 def walk_terms(cols, Qd, Qdd=None):
@@ -765,18 +782,20 @@ def _scratch(size, B):
     return buf
 
 
-def _soa_plan(plan):
+def _soa_plan(plan, every=False):
     """What :func:`eval_stack` reads besides the plan's arrays, made once per plan (kept in
     it under "soa"): the factors in position order (position k of every loop side by side,
     so one product gives a position's exponentials), the cut points met at each position,
-    and the Jacobian sources that feed a column, each with the nonzero entries of its
-    screw (sign included)."""
-    sp = plan.get("soa")
+    and the Jacobian sources that feed a column (``every``: all of them, kept under
+    "soa_every"), each with the nonzero entries of its screw (sign included)."""
+    key = "soa_every" if every else "soa"
+    sp = plan.get(key)
     if sp is not None:
         return sp
     nl, kmax = plan["nl"], plan["kmax"]
     fo = plan["fidx"].T.ravel()  # position k of loop li at k * nl + li
-    used = sorted({w[0] for w in plan["weights"]} | {v[0] for v in plan["varying"]})
+    used = (list(range(len(plan["src_loop"]))) if every else
+            sorted({w[0] for w in plan["weights"]} | {v[0] for v in plan["varying"]}))
     slot = {k: n for n, k in enumerate(used)}
     at = [[] for _ in range(kmax + 1)]
     for n, k in enumerate(used):
@@ -785,9 +804,10 @@ def _soa_plan(plan):
         at[int(plan["src_pos"][k])].append((n, int(plan["src_loop"][k]),
                                             [(j, tw[j]) for j in range(3) if tw[j] != 0.0],
                                             [(j, tw[3 + j]) for j in range(3) if tw[3 + j] != 0.0]))
-    sp = plan["soa"] = {
+    sp = plan[key] = {
         "pidx": plan["pidx"][fo], "phome": plan["phome"][fo, None], "psign": plan["psign"][fo, None],
         "p12": np.ascontiguousarray(plan["p12"][fo]), "nu": len(used), "at": at,
+        "loop_of": [int(plan["src_loop"][k]) for k in used],
         "cuts": [[(li, plan["points"][li].tolist()) for li in range(nl) if plan["cut_pos"][li] == k]
                  for k in range(kmax + 1)],
         "weights": [(slot[k], li, c, a, first) for k, li, c, a, first in plan["weights"]],
@@ -808,18 +828,17 @@ def _rows_times(out, rows, coefs, tmp):
         out += tmp
 
 
-def eval_stack(s, plan, Q, jac=True):
-    """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
-    Jacobian (B, 6 nl, ncols) (None without ``jac``).
+def _walk(plan, sp, Q, want):
+    """The running products of ``plan``'s loops over states ``Q`` (B, n), component-first.
 
-    Stacks are held component-first (a transform as its 12 top entries, each a row over
-    the loops and states), so every product is a few elementwise operations on long rows
-    instead of many tiny matrix products; the work arrays are views of one kept buffer
-    (:func:`_scratch`) written in place."""
+    Returns ``(A, site, tw, pp, tmp3)``: the loop products (3, 4, nl, B), the cut points
+    (3, nl, B), per source of ``sp`` (:func:`_soa_plan`; none unless ``want``) its
+    column's rotation part ``R w`` and ``R v`` (nu, 6, B) and the prefix's translation
+    ``p`` (nu, 3, B), with ``R, p`` the prefix product at the source, sign included; and
+    a (3, B) scratch row block.  All are views of the thread's work buffer (:func:`_scratch`):
+    valid until the next walk."""
     B = Q.shape[0]
     nl, kmax = plan["nl"], plan["kmax"]
-    sp = _soa_plan(plan)
-    want = bool(jac and plan["ncols"] and sp["nu"])
     nu = sp["nu"] if want else 0
     F = nl * kmax
     sizes = (F * B, 3 * F * B, 12 * nl * B, 12 * nl * B, 12 * nl * B, 12 * nl * B, 3 * nl * B,
@@ -881,6 +900,54 @@ def eval_stack(s, plan, Q, jac=True):
         An += tmp
         An[:, 3] += A[:, 3]
         A, An = An, A
+    return A, site, tw, pp, tmp3
+
+
+def _moment(tw, d, tmp):
+    """``tw[3:] += d x tw[:3]`` for one column (6, B) and points ``d`` (3, B), in place."""
+    wr, lin = tw[:3], tw[3:]
+    np.multiply(d[1], wr[2], out=tmp)
+    lin[0] += tmp
+    np.multiply(d[2], wr[1], out=tmp)
+    lin[0] -= tmp
+    np.multiply(d[2], wr[0], out=tmp)
+    lin[1] += tmp
+    np.multiply(d[0], wr[2], out=tmp)
+    lin[1] -= tmp
+    np.multiply(d[0], wr[1], out=tmp)
+    lin[2] += tmp
+    np.multiply(d[1], wr[0], out=tmp)
+    lin[2] -= tmp
+
+
+def walk_columns(s, plan, Q):
+    """:func:`loop_columns` from a loop plan built without couplings and with no columns
+    (``loop_plan(s, block, [], set(), coupled=False)``), component-first over states ``Q``
+    (B, n): every primitive's column ``sign Ad(prefix) S`` in product order, and the cut
+    points."""
+    sp = _soa_plan(plan, every=True)
+    _, site, tw, pp, tmp3 = _walk(plan, sp, Q, True)
+    out = [([], np.ascontiguousarray(site[:, li].T)) for li in range(plan["nl"])]
+    for k in range(plan["kmax"] + 1):
+        for n, li, _, _ in sp["at"][k]:
+            _moment(tw[n], pp[n], tmp3[0])  # (R w, R v + p x R w)
+            out[li][0].append((int(plan["pidx"][plan["fidx"][li, k]]), np.ascontiguousarray(tw[n].T)))
+    return out
+
+
+def eval_stack(s, plan, Q, jac=True):
+    """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
+    Jacobian (B, 6 nl, ncols) (None without ``jac``).
+
+    Stacks are held component-first (a transform as its 12 top entries, each a row over
+    the loops and states), so every product is a few elementwise operations on long rows
+    instead of many tiny matrix products; the work arrays are views of one kept buffer
+    (:func:`_walk`) written in place."""
+    B = Q.shape[0]
+    nl = plan["nl"]
+    sp = _soa_plan(plan)
+    want = bool(jac and plan["ncols"] and sp["nu"])
+    A, site, tw, pp, tmp3 = _walk(plan, sp, Q, want)
     w, v = spatial.log_soa(A)  # (3, nl, B) each
     v[0] += w[1] * site[2] - w[2] * site[1]
     v[1] += w[2] * site[0] - w[0] * site[2]
@@ -895,26 +962,10 @@ def eval_stack(s, plan, Q, jac=True):
     if not want:
         return r, errs, np.zeros((B, 6 * nl, plan["ncols"]))
     # columns moved to the cut point: (R w, R v + (p - site) x R w), sign included
-    src_loop = [0] * nu
-    for k in range(kmax + 1):
-        for n, li, _, _ in at_pos[k]:
-            src_loop[n] = li
-    for n in range(nu):
+    for n, li in enumerate(sp["loop_of"]):
         d = pp[n]
-        d -= site[:, src_loop[n]]
-        wr, lin = tw[n, :3], tw[n, 3:]
-        np.multiply(d[1], wr[2], out=tmp3[0])
-        lin[0] += tmp3[0]
-        np.multiply(d[2], wr[1], out=tmp3[0])
-        lin[0] -= tmp3[0]
-        np.multiply(d[2], wr[0], out=tmp3[0])
-        lin[1] += tmp3[0]
-        np.multiply(d[0], wr[2], out=tmp3[0])
-        lin[1] -= tmp3[0]
-        np.multiply(d[0], wr[1], out=tmp3[0])
-        lin[2] += tmp3[0]
-        np.multiply(d[1], wr[0], out=tmp3[0])
-        lin[2] -= tmp3[0]
+        d -= site[:, li]
+        _moment(tw[n], d, tmp3[0])
     J = np.zeros((B, nl, 6, plan["ncols"]))
     for n, li, c, a, first in sp["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
         if not first:

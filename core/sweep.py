@@ -322,14 +322,20 @@ def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
     u = (path[idx] - path[a]) / np.maximum(path[b] - path[a], 1e-300)
     u = np.where(path[b] > path[a], u, (idx - a) / np.maximum(b - a, 1))
     dH = Hm[b] - Hm[a]  # (K, nh)
-    h00 = 2 * u ** 3 - 3 * u ** 2 + 1
-    h10 = u ** 3 - 2 * u ** 2 + u
-    h01 = -2 * u ** 3 + 3 * u ** 2
-    h11 = u ** 3 - u ** 2
+    u2 = u * u
+    u3 = u2 * u
+    h00 = 2 * u3 - 3 * u2 + 1
+    h10 = u3 - 2 * u2 + u
+    h01 = -2 * u3 + 3 * u2
+    h11 = u3 - u2
     ci = [c[1] for c in ev.cols_coord]
-    ma = np.einsum("kch,kh->kc", Ta, dH)
-    mb = np.einsum("kch,kh->kc", Tb, dH)
-    qa, qb = Q[a][:, ci], Q[b][:, ci]
+    if dH.shape[1] == 1:
+        ma = Ta[:, :, 0] * dH
+        mb = Tb[:, :, 0] * dH
+    else:
+        ma = np.einsum("kch,kh->kc", Ta, dH)
+        mb = np.einsum("kch,kh->kc", Tb, dH)
+    qa, qb = Q[a[:, None], ci], Q[b[:, None], ci]
     ang = ~ev.s.is_length[ci]
     # the turn of qb nearest to what the tangents predict (qa + (ma + mb) / 2): anchors many
     # turns apart (a screw's nut) keep their turns; close anchors take the same turn
