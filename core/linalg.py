@@ -14,8 +14,8 @@ import numpy as np
 
 from .units import CONTRACTION, NOISE_STEP, NORMAL_CERT, ORIENT_RATIO
 
-__all__ = ["chol_factor", "chol_apply", "chol_solve", "least_norm", "least_norm_factor", "least_norm_apply",
-           "tmul", "det_stack", "det_small", "det_rows", "lstsq_small", "normal_factor",
+__all__ = ["chol_factor", "chol_apply", "chol_quad", "chol_solve", "least_norm", "least_norm_factor",
+           "least_norm_apply", "tmul", "det_stack", "det_small", "det_rows", "lstsq_small", "normal_factor",
            "normal_solve", "lstsq_svd", "orientation_frame",
            "orientation_agrees", "branch_step_certified"]
 
@@ -94,6 +94,25 @@ def chol_apply(factor, b):
             acc = acc - L[j][i] * x[j]
         x[i] = acc / L[i][i]
     return np.moveaxis(np.stack(x), -1, 0) if g else np.zeros_like(b)
+
+
+def chol_quad(factor, b):
+    """``sum_c b_c^T G^-1 b_c`` over the columns of ``b`` (B, g, k) with the factors of
+    :func:`chol_factor`, (B,): ``|y|^2 scale`` with ``y`` the forward substitution of each
+    column (no back substitution, one column at a time: no stacked temporaries)."""
+    L, scale, _ = factor
+    B, g, k = b.shape
+    out = np.zeros(B)
+    stacked = isinstance(L, np.ndarray)
+    for c in range(k):
+        y = []
+        for i in range(g):
+            acc = b[:, i, c] / scale
+            for j in range(i):
+                acc = acc - (L[:, i, j] if stacked else L[i][j]) * y[j]
+            y.append(acc / (L[:, i, i] if stacked else L[i][i]))
+            out += y[i] * y[i]
+    return out * scale
 
 
 def chol_solve(G, b):

@@ -235,29 +235,38 @@ def _idle_tangents(ev, Q, Hm, known, ok, Tall):
     cs = ev._cscale(cols)
     _, _, J = ev.eval(Q[good[1:-1]], cols, rotmode=False)
     Js = J * ev.rs[None, :, None] * cs[None, None, :]
-    if nu <= Js.shape[1]:
-        # rows whose Gram certificate proves full column rank have no idle freedom: the
-        # certificate is at most (s_min / s_max)^2, and above 1e-10 the solve's shift
-        # (1e-13) cannot have raised it from below the SVD's cut (1e-8)^2
-        keep = np.flatnonzero(linalg.chol_factor(linalg.tmul(Js, Js))[2] <= 1e-10)
-        if not len(keep):
-            return
-    else:
-        keep = np.arange(Js.shape[0])
-    _, sv, vt = np.linalg.svd(Js[keep], full_matrices=True)
-    rank = np.full(Js.shape[0], nu)
-    rank[keep] = (sv > 1e-8 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1)
+    mrow = Js.shape[1]
+    # rows whose Gram certificate proves full rank need no SVD: the certificate is at most
+    # (s_min / s_max)^2, and above 1e-10 the solve's shift (1e-13) cannot have raised it
+    # from below the SVD's cut (1e-8)^2.  Full column rank: no idle freedom.  Full row
+    # rank: the idle part of x is x - J^T (J J^T)^-1 J x (the projection on the null space).
+    tall = nu <= mrow
+    fac = linalg.least_norm_factor(Js)
+    full = fac[2][2] > 1e-10
+    keep = np.flatnonzero(~full)
+    if tall and not len(keep):
+        return
+    rank = np.full(Js.shape[0], nu if tall else mrow)
+    if len(keep):
+        _, sv, vt = np.linalg.svd(Js[keep], full_matrices=True)
+        rank[keep] = (sv > 1e-8 * np.maximum(sv[:, :1], 1e-300)).sum(axis=1)
     if not (rank < nu).any():
         return
-    vt_all = np.zeros((Js.shape[0], nu, nu))
-    vt_all[keep] = vt
-    vt = vt_all
     ci = [c[1] for c in cols]
     prev, mid, nxt = good[:-2], good[1:-1], good[2:]
     dh = (Hm[nxt, 0] - Hm[prev, 0])
     use = np.abs(dh) > 0
     sec = (Q[nxt][:, ci] - Q[prev][:, ci]) / np.where(use, dh, 1.0)[:, None] / cs[None, :]
     T = Tall[mid][:, :, 0] / cs[None, :]
+    if not tall and full.any():
+        x = np.where((full & use)[:, None], sec - T, 0.0)
+        Jx = np.einsum("bmk,bk->bm", Js, x)[:, :, None]
+        T += x - linalg.least_norm_apply(fac, Jx)[:, :, 0]
+        rank[full] = nu  # done
+    if len(keep):
+        vt_all = np.zeros((Js.shape[0], nu, nu))
+        vt_all[keep] = vt
+        vt = vt_all
     for r in np.unique(rank[rank < nu]):
         k = np.flatnonzero((rank == r) & use)
         if not len(k):
@@ -838,9 +847,8 @@ def _chord_certified(ev, Qa, Qb, Jsa, Jsb, fac, M, tall):
     else:
         d0 = np.swapaxes(Jsa, 1, 2) @ linalg.chol_apply(fac, rhs)
         d0 = d0[:, :, 0]
-        D = Jsb - Jsa
-        X = linalg.chol_apply(fac, D)  # |J_a^T X|_F^2 = sum X . (G X) = sum X . D
-        kappa = np.sqrt(np.maximum((X * D).sum(axis=(1, 2)), 0.0))
+        # |J_a^T G^-1 D|_F^2 = sum_c D_c^T G^-1 D_c  (G = J_a J_a^T, D = J_b - J_a)
+        kappa = np.sqrt(np.maximum(linalg.chol_quad(fac, Jsb - Jsa), 0.0))
     nd0 = np.sqrt((d0 * d0).sum(axis=1))
     dh = _held_step(ev, Qa, Qb)
     reach = (dh + 2.0 * nd0) / np.maximum(dh, 1e-300)
