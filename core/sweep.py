@@ -95,6 +95,9 @@ REFINE_STEP = 0.1
 FINE_STEP = 0.006
 #: Batched Newton iterations per level.
 BATCH_ITER = 6
+#: The last level keeps its closed seeds' Jacobians for the branch proof when they take at
+#: most this many entries (32 MiB); longer or larger sweeps evaluate them again there.
+KEEP_JACOBIANS = 1 << 22
 #: The chord test of a step (:func:`_chord_certified`) passes where the chord map's
 #: estimated contraction over the ball it needs is at most this; the argument needs
 #: below 1/2 (:mod:`jointwise.linalg`, "branch continuity", point 3): a margin of four.
@@ -482,6 +485,7 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
 
     # -- 2. refinement levels, then every sample -------------------------------------------
     known = anchors.copy()
+    kept = None  # (row -> position or -1, scaled Jacobians): closed seeds of the last level
     levels = [st for st in (REFINE_STEP, FINE_STEP) if st < ANCHOR_STEP] + [0.0]
     last_level = known
     for stepsize in levels:
@@ -510,11 +514,17 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             _hermite(ev, Q, Hm, path, aa, bb, sel, Tall[aa], Tall[bb])
         spacing = np.maximum(path[bb] - path[aa], 1e-12)
         if stepsize == 0.0:
-            # every sample: the Hermite seed is usually closed already; verify, then correct
-            _, e, _ = ev.eval(Q[sel])
+            # every sample: the Hermite seed is usually closed already; verify, then correct.
+            # The Jacobians of the closed seeds are kept for the branch proof (their rows do
+            # not change again) when they fit in KEEP_JACOBIANS entries
+            keep = bool(ev.cols_rot) and N * 6 * ev.nl * len(ev.cols_rot) <= KEEP_JACOBIANS
+            _, e, J = ev.eval(Q[sel], ev.cols_rot if keep else None)
             err[sel] = e
             fine = e <= TOLERANCE
             ok[sel[fine]] = True
+            if keep:
+                kept = (np.full(N, -1), _scale_jacobian(ev, J[fine]))
+                kept[0][sel[fine]] = np.arange(int(fine.sum()))
             sel, spacing = sel[~fine], spacing[~fine]
             if not len(sel):
                 continue
@@ -537,7 +547,7 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
     if len(todo):
         _fixup(ev, Q, ok, err, reasons, todo, pose_one, q0)
     # -- 4. every step between closed rows proven to stay on the branch ---------------
-    ev.crossed, ev.restart = _prove_branch(ev, Q, ok, err, reasons, pose_one)
+    ev.crossed, ev.restart = _prove_branch(ev, Q, ok, err, reasons, pose_one, kept)
     return ok, err, reasons
 
 
@@ -893,9 +903,13 @@ def _distance_bound(ev, Qa, Qb):
 
 
 def _scaled_jacobian(ev, Q):
-    cols = ev.cols_rot
-    _, _, J = ev.eval(Q, cols)
-    return J * ev.rs[None, :, None] * ev._cscale(cols)[None, None, :]
+    return _scale_jacobian(ev, ev.eval(Q, ev.cols_rot)[2])
+
+
+def _scale_jacobian(ev, J):
+    """The dimensionless Jacobian of the rotation-increment columns (rows by the residual
+    scale, length columns by the mechanism size)."""
+    return J * ev.rs[None, :, None] * ev._cscale(ev.cols_rot)[None, None, :]
 
 
 def _block_rank(ev, Js):
@@ -912,7 +926,7 @@ def _block_rank(ev, Js):
     return rank
 
 
-def _prove_branch(ev, Q, ok, err, reasons, pose_one):
+def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
     """Check every step between neighbouring closed rows; re-solve unproven ones.
 
     A row whose step from the last closed row is not certified by :func:`_certify_pairs`
@@ -920,7 +934,8 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one):
     certified sub-steps.  Where the re-solved state differs, the following rows are checked
     against it in turn.  Returns the rows where the continuation passed a singular point
     (to be flagged singular) and the row after which the batched rows must be solved
-    again (None when every step is proven)."""
+    again (None when every step is proven).  ``kept``: scaled Jacobians already evaluated
+    at some rows (row -> position or -1, stack)."""
     N = Q.shape[0]
     crossed = np.zeros(N, bool)
     if N < 2 or not ev.cols_rot:
@@ -932,7 +947,15 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one):
     for k0 in range(0, len(idx), CHUNK):  # the Jacobian of each row evaluated once
         sel = idx[k0:k0 + CHUNK]
         rows = np.union1d(sel - 1, sel)
-        Js = _scaled_jacobian(ev, Q[rows])
+        if kept is None:
+            Js = _scaled_jacobian(ev, Q[rows])
+        else:
+            at = kept[0][rows]
+            have = at >= 0
+            Js = np.empty((len(rows),) + kept[1].shape[1:])
+            Js[have] = kept[1][at[have]]
+            if not have.all():
+                Js[~have] = _scaled_jacobian(ev, Q[rows[~have]])
         pa, pb = np.searchsorted(rows, sel - 1), np.searchsorted(rows, sel)
         cert[sel], orient[sel], degenerate[sel] = _certify_pairs(ev, Q[sel - 1], Q[sel], Js[pa], Js[pb])
     # Rows whose step from the row before is certified need nothing more: their flag is
