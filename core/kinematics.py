@@ -395,11 +395,21 @@ class Evaluator:
     def eval(self, Q, cols=None, rotmode=True):
         """Residual (B, 6 nl), per-step largest loop error (B,), and J (B, 6 nl, len(cols))."""
         B = Q.shape[0]
-        if B > CHUNK:  # bound the memory of the stacked transforms
-            parts = [self.eval(Q[k:k + CHUNK], cols, rotmode) for k in range(0, B, CHUNK)]
-            J = None if cols is None else np.concatenate([p[2] for p in parts])
-            return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]), J
         plan = self.s._plan(self.block, cols or [], self.rotj if rotmode else set())
+        if B > CHUNK:  # bound the memory of the stacked transforms: chunks written in place
+            m = 6 * self.nl
+            r, errs = np.empty((B, m)), np.empty(B)
+            J = None if cols is None else np.empty((B, m, len(cols)))
+            for k in range(0, B, CHUNK):
+                sl = slice(k, min(B, k + CHUNK))
+                if sl.stop - sl.start > SMALL_STACK:
+                    eval_stack(self.s, plan, Q[sl], cols is not None, (r[sl], errs[sl], None if J is None else J[sl]))
+                else:
+                    part = self.eval(Q[sl], cols, rotmode)
+                    r[sl], errs[sl] = part[0], part[1]
+                    if J is not None:
+                        J[sl] = part[2]
+            return r, errs, J
         if B > SMALL_STACK or B == 0:
             return eval_stack(self.s, plan, Q, cols is not None)
         # a few states: one at a time (the stacked form's fixed cost is larger)
@@ -935,9 +945,10 @@ def walk_columns(s, plan, Q):
     return out
 
 
-def eval_stack(s, plan, Q, jac=True):
+def eval_stack(s, plan, Q, jac=True, out=None):
     """:func:`eval_one` over states ``Q`` (B, n): residual (B, 6 nl), errors (B,) and
-    Jacobian (B, 6 nl, ncols) (None without ``jac``).
+    Jacobian (B, 6 nl, ncols) (None without ``jac``); ``out``: arrays of those shapes to
+    write them in (C-contiguous), returned.
 
     Stacks are held component-first (a transform as its 12 top entries, each a row over
     the loops and states), so every product is a few elementwise operations on long rows
@@ -952,21 +963,28 @@ def eval_stack(s, plan, Q, jac=True):
     v[0] += w[1] * site[2] - w[2] * site[1]
     v[1] += w[2] * site[0] - w[0] * site[2]
     v[2] += w[0] * site[1] - w[1] * site[0]
-    r = np.empty((B, nl, 6))
+    r = np.empty((B, nl, 6)) if out is None else out[0].reshape(B, nl, 6)
     r[:, :, :3] = w.T
     r[:, :, 3:] = v.T
     r = r.reshape(B, 6 * nl)
     errs = np.maximum(np.abs(w).max(axis=0), np.abs(v).max(axis=0) * s.pos_weight).max(axis=0)
+    if out is not None:
+        out[1][...] = errs
+        errs = out[1]
     if not jac:
         return r, errs, None
+    if out is None:
+        J = np.zeros((B, nl, 6, plan["ncols"]))
+    else:
+        J = out[2].reshape(B, nl, 6, plan["ncols"])
+        J[...] = 0.0
     if not want:
-        return r, errs, np.zeros((B, 6 * nl, plan["ncols"]))
+        return r, errs, J.reshape(B, 6 * nl, plan["ncols"])
     # columns moved to the cut point: (R w, R v + (p - site) x R w), sign included
     for n, li in enumerate(sp["loop_of"]):
         d = pp[n]
         d -= site[:, li]
         _moment(tw[n], d, tmp3[0])
-    J = np.zeros((B, nl, 6, plan["ncols"]))
     for n, li, c, a, first in sp["weights"]:  # elementwise: no large BLAS call (threads on a busy machine)
         if not first:
             J[:, li, :, c] += a * tw[n].T

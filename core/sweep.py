@@ -280,10 +280,14 @@ def _idle_tangents(ev, Q, Hm, known, ok, Tall):
     Tall[mid, :, 0] = T * cs[None, :]
 
 
-def _newton(ev, Q, idx, iters=BATCH_ITER):
-    """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx."""
+def _newton(ev, Q, idx, iters=BATCH_ITER, first=None):
+    """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx.
+    ``first``: the evaluation ``(r, e, J)`` of those rows (rotation-increment columns), if
+    already made."""
     if len(idx) > CHUNK:
-        return np.concatenate([_newton(ev, Q, idx[k:k + CHUNK], iters) for k in range(0, len(idx), CHUNK)])
+        return np.concatenate([_newton(ev, Q, idx[k:k + CHUNK], iters,
+                                       None if first is None else tuple(x[k:k + CHUNK] for x in first))
+                               for k in range(0, len(idx), CHUNK)])
     cols = ev.cols_rot
     cs = ev._cscale(cols)
     active = np.arange(len(idx))
@@ -292,7 +296,9 @@ def _newton(ev, Q, idx, iters=BATCH_ITER):
         rows = idx[active]
         sub = Q[rows]
         last = it == iters
-        if it == 0 or last:
+        if it == 0 and first is not None:
+            r, e, J = first
+        elif it == 0 or last:
             r, e, J = ev.eval(sub, None if last else cols)
         else:  # residuals first: rows that closed need no Jacobian
             r, e, _ = ev.eval(sub)
@@ -513,23 +519,28 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
         if ev.cols_coord:
             _hermite(ev, Q, Hm, path, aa, bb, sel, Tall[aa], Tall[bb])
         spacing = np.maximum(path[bb] - path[aa], 1e-12)
+        first = None
         if stepsize == 0.0:
             # every sample: the Hermite seed is usually closed already; verify, then correct.
             # The Jacobians of the closed seeds are kept for the branch proof (their rows do
             # not change again) when they fit in KEEP_JACOBIANS entries
             keep = bool(ev.cols_rot) and N * 6 * ev.nl * len(ev.cols_rot) <= KEEP_JACOBIANS
-            _, e, J = ev.eval(Q[sel], ev.cols_rot if keep else None)
+            r, e, J = ev.eval(Q[sel], ev.cols_rot if keep else None)
             err[sel] = e
             fine = e <= TOLERANCE
             ok[sel[fine]] = True
             if keep:
-                kept = (np.full(N, -1), _scale_jacobian(ev, J[fine]))
+                Jf = J[fine]
+                Jf *= ev.rs[None, :, None]
+                Jf *= ev._cscale(ev.cols_rot)[None, None, :]  # as _scale_jacobian, in place
+                kept = (np.full(N, -1), Jf)
                 kept[0][sel[fine]] = np.arange(int(fine.sum()))
+                first = (r[~fine], e[~fine], J[~fine])  # the corrector's first evaluation
             sel, spacing = sel[~fine], spacing[~fine]
             if not len(sel):
                 continue
         before = Q[sel].copy()
-        e = _newton(ev, Q, sel)
+        e = _newton(ev, Q, sel, first=first)
         moved = _distance(ev, before, Q[sel])
         good = (e <= TOLERANCE) & (moved <= np.maximum(0.1 * spacing, 1e-6))
         ok[sel[good]] = True
