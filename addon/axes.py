@@ -15,9 +15,10 @@ import bpy
 import numpy as np
 from bpy.props import FloatProperty
 
-from . import convert, fit
+from . import convert, fit, posing
 from . import scene as sc
 from .convert import SceneError
+from .reporting import Base
 
 __all__ = ["CLASSES", "active_joint", "place_frame", "format_length"]
 
@@ -91,18 +92,17 @@ def _selection(obj):
     return "vertices", np.array([tuple(v.co) for v in verts]).reshape(-1, 3) @ lin.T + t
 
 
-class JOINTWISE_OT_axis_from_selection(bpy.types.Operator):
+class JOINTWISE_OT_axis_from_selection(Base, bpy.types.Operator):
     """Set the active joint's axis and point from the selected rim of a hole or shaft
     (vertices or edges) or the selected side faces of a cylinder, by a least-squares fit"""
     bl_idname = "jointwise.axis_from_selection"
     bl_label = "Fit Axis to Selection"
-    bl_options = {'REGISTER', 'UNDO'}
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         obj = context.edit_object
         if obj is None or obj.type != 'MESH' or context.mode != 'EDIT_MESH':
-            return self._fail("enter Edit Mode of a mesh and select the rim of a hole or shaft, "
+            return self.fail("enter Edit Mode of a mesh and select the rim of a hole or shaft, "
                               "or the side faces of a cylinder")
         try:
             item = active_joint(scene)
@@ -124,7 +124,7 @@ class JOINTWISE_OT_axis_from_selection(bpy.types.Operator):
                 result = fit.axis_from_ring(data, hint=hint_world)
                 source = f"{result.count} vertices"
         except (fit.FitError, SceneError) as exc:
-            return self._fail(f"axis from selection: {exc}")
+            return self.fail(f"axis from selection: {exc}")
         inv_d = convert.inverse(d)
         frame_world = np.eye(4)
         frame_world[:3, :3] = convert.orientation(result.axis, d[:3, :3] @ old[:3, 0])
@@ -140,42 +140,43 @@ class JOINTWISE_OT_axis_from_selection(bpy.types.Operator):
         msg = (f"joint {item.joint}: axis fitted to {source} (radius {format_length(scene, result.radius)}), "
                f"fit residual {format_length(scene, result.residual)} root mean square; "
                f"axis turned {turned:.3g}° and moved {format_length(scene, shift)}")
-        scene.jointwise.message = msg
-        self.report({'INFO'}, msg)
-        return {'FINISHED'}
+        return self.done(msg, scene)
 
-    def _fail(self, message):
-        self.report({'ERROR'}, message)
-        return {'CANCELLED'}
+def tilts_text(tilts, tolerance_deg):
+    """Tidy Axes refused: the tilts beyond the tolerance, from the core's ``Tilt`` fields
+    (joint, reference, loop, relation, tilt), in the extension's words."""
+    parts = []
+    for t in tilts:
+        what = "parallel with" if t.relation == "parallel" else "perpendicular to"
+        parts.append(f"joint {t.joint}: axis tilted {t.degrees:.3g}° out of {what} the axis of joint "
+                     f"{t.reference} (loop closed by {t.loop}), beyond the tolerance of {tolerance_deg:.3g}°")
+    return "; ".join(parts) + "; nothing changed (raise the angle tolerance, or fix the model)"
 
 
-class JOINTWISE_OT_axes_tidy(bpy.types.Operator):
+class JOINTWISE_OT_axes_tidy(Base, bpy.types.Operator):
     """Make loop axes that are nearly but not exactly parallel exactly parallel (slides
     exactly perpendicular or parallel to them), within the angle tolerance; a loop whose
     axes are a little out of parallel locks"""
     bl_idname = "jointwise.axes_tidy"
     bl_label = "Tidy Axes"
-    bl_options = {'REGISTER', 'UNDO'}
 
     tolerance: FloatProperty(name="Angle Tolerance", subtype='ANGLE', unit='ROTATION',
                              default=math.radians(2.0), min=0.0, max=math.radians(45.0),
                              description="Largest tilt to correct; a larger one is refused")
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         try:
             from jointwise import tidy
             mech = sc.mechanism_from_scene(scene)
             tilts = tidy.plan(mech, math.degrees(self.tolerance))
         except tidy.TiltError as exc:
-            return self._fail(f"{exc}".replace("raise --angle-tolerance", "raise the angle tolerance"))
+            return self.fail(tilts_text(exc.tilts, math.degrees(self.tolerance)))
         except (SceneError, ValueError) as exc:
-            return self._fail(str(exc))
+            return self.fail(posing.error_text(scene, exc))
         if not tilts:
             msg = "axes tidy: every loop axis is already exact"
-            scene.jointwise.message = msg
-            self.report({'INFO'}, msg)
-            return {'FINISHED'}
+            return self.done(msg, scene)
         firsts = sc.first_items(scene.jointwise)
         moved = []
         for t in tilts:
@@ -186,13 +187,6 @@ class JOINTWISE_OT_axes_tidy(bpy.types.Operator):
             place_frame(scene, item, new)
             moved.append(f"{t.joint} turned {t.degrees:.3g}°")
         msg = f"axes tidy: {', '.join(moved)} (now exact with {', '.join(sorted({t.reference for t in tilts}))})"
-        scene.jointwise.message = msg
-        self.report({'INFO'}, msg)
-        return {'FINISHED'}
-
-    def _fail(self, message):
-        self.report({'ERROR'}, message)
-        return {'CANCELLED'}
-
+        return self.done(msg, scene)
 
 CLASSES = (JOINTWISE_OT_axis_from_selection, JOINTWISE_OT_axes_tidy)

@@ -22,7 +22,7 @@ import numpy as np
 from bpy.props import FloatProperty, StringProperty
 
 from . import scene as sc
-from .operators import _Base, _errors
+from .reporting import Base, errors
 from .trace import curve_object
 
 TAG = "jointwise_cam"
@@ -80,7 +80,7 @@ def write_curve(scene, coupling, link, local, bevel):
     return obj
 
 
-class JOINTWISE_OT_cam_profile(_Base, bpy.types.Operator):
+class JOINTWISE_OT_cam_profile(Base, bpy.types.Operator):
     """Draw the plate cam of a motion-law coupling (translating roller follower) as a curve turning with the leader"""
     bl_idname = "jointwise.cam_profile"
     bl_label = "Cam Profile"
@@ -108,12 +108,11 @@ class JOINTWISE_OT_cam_profile(_Base, bpy.types.Operator):
             mech = sc.mechanism_from_scene(scene)
             size = float(getattr(mech, "size", 1.0))
             obj = write_curve(scene, self.coupling, link, local, 0.004 * size)
-        except _errors() as exc:
-            return self.fail(f"cannot draw the cam of {self.coupling!r}: {exc}")
+        except errors() as exc:
+            return self.fail_on(context, f"cannot draw the cam of {self.coupling!r}", exc)
         for w in warns:
             self.report({'WARNING'}, w)
-        self.report({'INFO'}, f"cam of {self.coupling!r} drawn as {obj.name!r} on {obj.parent.name!r}")
-        return {'FINISHED'}
+        return self.done(f"cam of {self.coupling!r} drawn as {obj.name!r} on {obj.parent.name!r}")
 
 
 CLASSES = (JOINTWISE_OT_cam_profile,)

@@ -61,7 +61,7 @@ from . import bake as bk
 from . import properties
 from . import proximity as px
 from . import scene as sc
-from .operators import _Base, _errors
+from .reporting import Base, errors
 
 MARKER_PREFIX = "contact "
 CSV_HEADER = ("object_a", "object_b", "min_gap", "min_frame", "contact_frames",
@@ -716,7 +716,7 @@ SETTINGS = {
 
 # -- operators and panel -------------------------------------------------------------------------
 
-class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
+class JOINTWISE_OT_clearance(Base, bpy.types.Operator):
     """Solve the motion over a frame range (no keys written) and check every pair of link
     meshes for overlap and smallest distance"""
     bl_idname = "jointwise.clearance"
@@ -784,8 +784,8 @@ class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
                 check.run(progress=lambda d, t: wm.progress_update(d / max(t, 1)))
             finally:
                 wm.progress_end()
-        except _errors() as exc:
-            return self.fail(f"clearance check failed: {exc}")
+        except errors() as exc:
+            return self.fail_on(context, "clearance check failed", exc)
         return self._finish(context, check)
 
     def invoke(self, context, event):
@@ -794,8 +794,8 @@ class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
         try:
             self._job_check = self._check(context)
             self._job = self._job_check.steps()
-        except _errors() as exc:
-            return self.fail(f"clearance check failed: {exc}")
+        except errors() as exc:
+            return self.fail_on(context, "clearance check failed", exc)
         wm = context.window_manager
         wm.progress_begin(0, 1)
         self._timer = wm.event_timer_add(0.01, window=context.window)
@@ -833,17 +833,18 @@ class JOINTWISE_OT_clearance(_Base, bpy.types.Operator):
             return self._finish(context, check)
         except Exception as exc:  # noqa: BLE001 - reported, nothing written
             self._end(context)
-            if not isinstance(exc, _errors()):
+            if not isinstance(exc, errors()):
                 import traceback
                 traceback.print_exc()
-            return self.fail(f"clearance check failed: {exc}")
+                return self.fail(f"clearance check failed: {exc}")
+            return self.fail_on(context, "clearance check failed", exc)
         return {'RUNNING_MODAL'}
 
     def cancel(self, context):
         self._end(context)
 
 
-class JOINTWISE_OT_clearance_show(_Base, bpy.types.Operator):
+class JOINTWISE_OT_clearance_show(Base, bpy.types.Operator):
     """Go to the frame of this pair's smallest gap and select the two objects"""
     bl_idname = "jointwise.clearance_show"
     bl_label = "Show Pair"
@@ -858,7 +859,7 @@ class JOINTWISE_OT_clearance_show(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_clearance_clear(_Base, bpy.types.Operator):
+class JOINTWISE_OT_clearance_clear(Base, bpy.types.Operator):
     """Remove the clearance results and their timeline markers"""
     bl_idname = "jointwise.clearance_clear"
     bl_label = "Clear Clearance Results"

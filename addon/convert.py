@@ -14,7 +14,6 @@ Conventions
 from __future__ import annotations
 
 import math
-import re
 
 import numpy as np
 
@@ -149,47 +148,51 @@ def format_value(v, kind, length=("BU", 1.0), digits=4):
 
 # -- messages --------------------------------------------------------------------------
 
-_NUM = r"(-?\d+(?:\.\d+)?(?:e[-+]?\d+)?)"
-_RAD_RANGE = re.compile(r"\[" + _NUM + r", " + _NUM + r"\] rad\b")
-_RAD = re.compile(_NUM + r" rad\b")
-_M_RANGE = re.compile(r"\[" + _NUM + r", " + _NUM + r"\] m\b")
-_M = re.compile(_NUM + r" m\b")
-
-
-def message_core_to_host(msg, length=("BU", 1.0)):
-    """The core's message for the UI: angles in degrees, lengths in the display unit
-    ``length`` = (label, factor) (the scene mechanism is built in radians and scene
-    units, so the core quotes radians, and scene units labelled "m")."""
-    msg = _RAD_RANGE.sub(lambda m: f"[{math.degrees(float(m.group(1))):.5g}, "
-                                   f"{math.degrees(float(m.group(2))):.5g}] deg", msg)
-    msg = _RAD.sub(lambda m: f"{math.degrees(float(m.group(1))):.5g} deg", msg)
-    label, k = length
-    msg = _M_RANGE.sub(lambda m: f"[{float(m.group(1)) * k:.6g}, {float(m.group(2)) * k:.6g}] {label}", msg)
-    return _M.sub(lambda m: f"{float(m.group(1)) * k:.6g} {label}", msg)
-
-
-def reason_text(reason, value_text):
+def reason_text(reason, value_text, limits=None):
     """The extension's own words for a core failure, built from its structured reason
     (``jointwise.errors.Reason``: kind, joint, loop, value, bounds) instead of rewriting the
     core's text. ``value_text(name, v)`` formats a value of coordinate ``name`` in display
-    units (the scene mechanism's radians or scene units). None for a reason without the
-    fields its kind needs (the caller falls back to the core's text)."""
+    units (the scene mechanism's radians or scene units); ``limits(name)`` gives the
+    coordinate's (lo, hi) limits in the same units, or None, for a limit reason that names
+    the coordinate but not its bounds. None for a reason without the fields its kind needs
+    (the caller shows the core's text as written: such texts carry no unit numbers)."""
     if reason is None:
         return None
     j, v, b = reason.joint, reason.value, reason.bounds
-    if reason.kind == "limit" and j is not None and v is not None and b is not None:
+    if reason.kind == "limit" and j is not None:
+        if b is None and limits is not None:
+            b = limits(j)
+        if b is None:
+            return None
         span = f"[{value_text(j, b[0])}, {value_text(j, b[1])}]"
+        if v is None:
+            return f"the closed placement puts {j} outside its limits {span}"
         if getattr(reason, "held", True):
             return f"{j} = {value_text(j, v)} lies outside its limits {span}"
+        if any(abs(v - x) <= 1e-9 * max(1.0, abs(x)) for x in b):  # stopped at the limit
+            return f"on the way there {j} reaches its limit {value_text(j, v)} (limits {span})"
         return f"the closed placement puts {j} at {value_text(j, v)}, outside its limits {span}"
-    if reason.kind == "unreachable" and (reason.loop or j):
-        text = f"the loop closed by joint {reason.loop!r} cannot close" if reason.loop else "the loops cannot close"
+    if reason.kind == "unreachable" and reason.loop:
+        text = f"the loop closed by joint {reason.loop!r} cannot close"
         if j is not None and b is not None:
             text += f"; {j} keeps it closed only up to about {value_text(j, b[1])}"
         elif j is not None:
             text += f" with {j} there"
         return text
     return None
+
+
+FILE_UNITS = "numbers as in the file, in its own units"
+
+
+def spec_text(exc, units=FILE_UNITS):
+    """A file problem (``jointwise.SpecError``: file name, key path, the file's own numbers)
+    as the core wrote it, saying in which units its numbers are when it quotes any
+    (``units``: the file's own, or for the scene's mechanism its radians and scene units)."""
+    msg = str(exc)
+    prefix = ": ".join(p for p in (getattr(exc, "source", None), getattr(exc, "key", None)) if p)
+    said = msg[len(prefix):] if prefix and msg.startswith(prefix) else msg
+    return f"{msg} ({units})" if any(ch.isdigit() for ch in said) else msg
 
 
 def describe_error(exc):

@@ -20,6 +20,7 @@ import numpy as np
 from . import animation, convert, properties
 from . import scene as sc
 from .convert import SceneError
+from .reporting import Base
 
 __all__ = ["change_joint", "CLASSES"]
 
@@ -140,11 +141,10 @@ def joint_changed(item, context, prop):
                 _busy[0] -= 1
 
 
-class JOINTWISE_OT_joint_edit(bpy.types.Operator):
+class JOINTWISE_OT_joint_edit(Base, bpy.types.Operator):
     """Change the active joint's type, parent link or child link"""
     bl_idname = "jointwise.joint_edit"
     bl_label = "Edit Joint"
-    bl_options = {'REGISTER', 'UNDO'}
 
     joint: bpy.props.StringProperty(name="Joint", default="", description="Joint to change (default: the active one)")
     type: bpy.props.EnumProperty(name="Type", items=properties.JOINT_TYPES, default="revolute",
@@ -165,7 +165,7 @@ class JOINTWISE_OT_joint_edit(bpy.types.Operator):
         self.layout.prop_search(self, "parent", jw, "links")
         self.layout.prop_search(self, "child", jw, "links")
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         joint = self.joint or (jw.joints[jw.joint_index].joint if 0 <= jw.joint_index < len(jw.joints) else "")
@@ -173,13 +173,10 @@ class JOINTWISE_OT_joint_edit(bpy.types.Operator):
             change_joint(scene, joint, type=self.type if self.properties.is_property_set("type") else None,
                          parent=self.parent or None, child=self.child or None)
         except SceneError as exc:
-            self.report({'ERROR'}, str(exc))
-            return {'CANCELLED'}
+            return self.fail(str(exc))
         first = next(it for it in jw.joints if it.joint == joint)
         msg = f"joint {joint}: {first.type}, {first.parent} -> {first.child}"
-        jw.message = msg
-        self.report({'INFO'}, msg)
-        return {'FINISHED'}
+        return self.done(msg, scene)
 
 
 def register():

@@ -31,6 +31,7 @@ from bpy.props import EnumProperty, FloatVectorProperty, StringProperty
 from . import animation, convert, posing
 from . import scene as sc
 from .convert import SceneError
+from .reporting import Base
 
 __all__ = ["refresh", "bake_channels", "clear_keys", "import_from", "export_entries",
            "format_measure", "CLASSES"]
@@ -167,7 +168,8 @@ def refresh(scene, mech, pose):
     try:
         out, problems = evaluate(scene, mech, np.asarray(q, dtype=float)[None], links)
     except (SceneError, sc.core().JointwiseError, ValueError, np.linalg.LinAlgError) as exc:
-        out, problems = {}, {m.name: str(exc) for m in jw.measures}
+        why = posing.error_text(scene, exc)
+        out, problems = {}, {m.name: why for m in jw.measures}
     _show(jw, out, problems)
 
 
@@ -427,6 +429,21 @@ def _link_items(self, context):
     return [(l.name, l.name, "") for l in context.scene.jointwise.links] or [("", "(no links)", "")]
 
 
+def draw_fields(layout, owner, jw, places=True):
+    """The fields that define a measure, for the Measures panel (``owner``: the active list
+    item) and the Add Measure dialog (the operator): its kind, then ``of`` and ``per`` for a
+    rate, else link a (and b), each with its point or direction when ``places``."""
+    layout.prop(owner, "kind")
+    if owner.kind == 'RATE':
+        layout.prop_search(owner, "of", jw, "joints")
+        layout.prop_search(owner, "per", jw, "joints")
+        return
+    for which in ("a", "b") if owner.kind != 'POINT' else ("a",):
+        layout.prop_search(owner, f"link_{which}", jw, "links")
+        if places:
+            layout.prop(owner, f"axis_{which}" if owner.kind == 'ANGLE' else f"at_{which}")
+
+
 def _link_of_object(jw, obj):
     for l in jw.links:
         if obj is not None and l.object == obj:
@@ -434,13 +451,12 @@ def _link_of_object(jw, obj):
     return jw.ground
 
 
-class JOINTWISE_OT_measure_add(bpy.types.Operator):
+class JOINTWISE_OT_measure_add(Base, bpy.types.Operator):
     """Add a measure. Defaults: the active object's link carries point a at the 3D cursor
     (or its local X direction for an angle); the other selected object's link carries
     point b at its origin; a rate is of the active joint per the first drive"""
     bl_idname = "jointwise.measure_add"
     bl_label = "Add Measure"
-    bl_options = {'REGISTER', 'UNDO'}
 
     name: StringProperty(name="Name", default="", description="Name of the measure (unique)")
     kind: EnumProperty(name="Kind", items=(
@@ -469,20 +485,13 @@ class JOINTWISE_OT_measure_add(bpy.types.Operator):
         jw = context.scene.jointwise
         lay = self.layout
         lay.prop(self, "name")
-        lay.prop(self, "kind")
-        if self.kind == 'RATE':
-            lay.prop_search(self, "of", jw, "joints")
-            lay.prop_search(self, "per", jw, "joints")
-        else:
-            lay.prop_search(self, "link_a", jw, "links")
-            if self.kind != 'POINT':
-                lay.prop_search(self, "link_b", jw, "links")
+        draw_fields(lay, self, jw, places=False)  # places default to the cursor and origins
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         if not jw.links:
-            return self._fail("the scene has no mechanism: import one or add joints first")
+            return self.fail("the scene has no mechanism: import one or add joints first")
         active = context.active_object
         others = [o for o in context.selected_objects if o != active]
         a = self.link_a or _link_of_object(jw, active)
@@ -528,7 +537,7 @@ class JOINTWISE_OT_measure_add(bpy.types.Operator):
                     raise SceneError("'of' and 'per' must be different coordinates")
                 it_def.update(of=of, per=per)
         except SceneError as exc:
-            return self._fail(f"cannot add measure {name!r}: {exc}")
+            return self.fail(f"cannot add measure {name!r}: {exc}")
         it = jw.measures.add()
         it.name, it.kind, it.link_a, it.link_b = name, self.kind, a, b
         for k, v in it_def.items():
@@ -537,14 +546,8 @@ class JOINTWISE_OT_measure_add(bpy.types.Operator):
         try:
             refresh_from_scene(scene)
         except (SceneError, sc.core().JointwiseError) as exc:
-            it.problem = str(exc)
-        self.report({'INFO'}, f"added measure {name!r}: {format_measure(scene, it)}")
-        return {'FINISHED'}
-
-    def _fail(self, message):
-        self.report({'ERROR'}, message)
-        return {'CANCELLED'}
-
+            it.problem = posing.error_text(scene, exc)
+        return self.done(f"added measure {name!r}: {format_measure(scene, it)}")
 
 def _home_point(scene, link, world):
     d = sc.scene_displacement(scene, link)
@@ -557,28 +560,25 @@ def _home_direction(scene, link, world):
     return [float(x) for x in v / np.linalg.norm(v)]
 
 
-class JOINTWISE_OT_measure_remove(bpy.types.Operator):
+class JOINTWISE_OT_measure_remove(Base, bpy.types.Operator):
     """Remove the active measure (and its baked F-curves)"""
     bl_idname = "jointwise.measure_remove"
     bl_label = "Remove Measure"
-    bl_options = {'REGISTER', 'UNDO'}
 
     name: StringProperty(name="Name", default="", description="Measure to remove (default: the active one)")
 
-    def execute(self, context):
+    def run(self, context):
         scene = context.scene
         jw = scene.jointwise
         name = self.name or (jw.measures[jw.measure_index].name
                              if 0 <= jw.measure_index < len(jw.measures) else "")
         i = jw.measures.find(name)
         if i < 0:
-            self.report({'ERROR'}, f"no measure named {name!r}")
-            return {'CANCELLED'}
+            return self.fail(f"no measure named {name!r}")
         clear_keys(scene, [name])
         jw.measures.remove(i)
         jw.measure_index = min(jw.measure_index, len(jw.measures) - 1)
-        self.report({'INFO'}, f"removed measure {name!r}")
-        return {'FINISHED'}
+        return self.done(f"removed measure {name!r}")
 
 
 CLASSES = (JOINTWISE_OT_measure_add, JOINTWISE_OT_measure_remove)

@@ -13,16 +13,9 @@ from . import animation, convert, drag, files, measures, posing, properties, tra
 from . import bake as bk
 from . import scene as sc
 from .properties import ANCHOR_TAG, JOINT_TYPES
+from .reporting import Base, errors
 
 ANCHOR_COLLECTION = "joint anchors"
-
-
-def _errors():
-    """Exceptions that become a report instead of a traceback."""
-    try:
-        return (sc.SceneError, sc.core().JointwiseError, OSError)
-    except ImportError:
-        return (sc.SceneError, OSError)
 
 
 def anchor_collection(scene):
@@ -97,24 +90,7 @@ class _Range:
                 row.prop(self, "value_to")
 
 
-class _Base:
-    bl_options = {'REGISTER', 'UNDO'}
-
-    def fail(self, message):
-        self.report({'ERROR'}, sc.message_core_to_host(message))
-        return {'CANCELLED'}
-
-    def execute(self, context):  # noqa: D401
-        """Runs ``run``; an unexpected exception becomes a report, not a traceback."""
-        try:
-            return self.run(context)
-        except Exception as exc:  # last resort: the user sees a message, the console the details
-            import traceback
-            traceback.print_exc()
-            return self.fail(f"{self.bl_label}: unexpected problem ({type(exc).__name__}: {exc})")
-
-
-class JOINTWISE_OT_mechanism_import(_Base, bpy.types.Operator, ImportHelper):
+class JOINTWISE_OT_mechanism_import(Base, bpy.types.Operator, ImportHelper):
     """Read a mechanism file, bind its links to scene objects and make the joint anchors"""
     bl_idname = "jointwise.mechanism_import"
     bl_label = "Import Mechanism"
@@ -129,21 +105,21 @@ class JOINTWISE_OT_mechanism_import(_Base, bpy.types.Operator, ImportHelper):
             mech = jw.load(path)
             objects = files.validate_file_objects(scene, mech)
             files.import_mechanism(scene, mech, objects, anchor_collection(scene))
-        except _errors() as exc:
-            return self.fail(f"cannot import {os.path.basename(path)}: {exc}")
+        except errors() as exc:
+            return self.fail_on(context, f"cannot import {os.path.basename(path)}", exc)
         try:
             m = sc.mechanism_from_scene(scene)
             posing.set_status(scene, message=f"imported {os.path.basename(path)}",
                           mobility=posing.mobility_of(m))
-        except _errors() as exc:
-            posing.set_status(scene, converged=False, message=sc.message_core_to_host(str(exc), scene))
-            self.report({'WARNING'}, f"imported, but the scene's mechanism does not build: {exc}")
-        self.report({'INFO'}, f"imported mechanism with {len(mech.links)} links and "
+        except errors() as exc:
+            why = posing.error_text(scene, exc)
+            posing.set_status(scene, converged=False, message=why)
+            self.report({'WARNING'}, f"imported, but the scene's mechanism does not build: {why}")
+        return self.done(f"imported mechanism with {len(mech.links)} links and "
                               f"{len(mech.joints)} joints")
-        return {'FINISHED'}
 
 
-class JOINTWISE_OT_mechanism_export(_Base, bpy.types.Operator, ExportHelper):
+class JOINTWISE_OT_mechanism_export(Base, bpy.types.Operator, ExportHelper):
     """Write the scene's mechanism as a mechanism file (TOML)"""
     bl_idname = "jointwise.mechanism_export"
     bl_label = "Export Mechanism"
@@ -155,13 +131,12 @@ class JOINTWISE_OT_mechanism_export(_Base, bpy.types.Operator, ExportHelper):
         try:
             data = files.export_dict(context.scene)
             tomlwrite.write(self.filepath, data)
-        except _errors() + (ValueError, TypeError) as exc:
-            return self.fail(f"cannot export to {os.path.basename(self.filepath)}: {exc}")
-        self.report({'INFO'}, f"wrote {self.filepath}")
-        return {'FINISHED'}
+        except errors() + (ValueError, TypeError) as exc:
+            return self.fail_on(context, f"cannot export to {os.path.basename(self.filepath)}", exc)
+        return self.done(f"wrote {self.filepath}")
 
 
-class JOINTWISE_OT_bake(_Range, _Base, bpy.types.Operator):
+class JOINTWISE_OT_bake(_Range, Base, bpy.types.Operator):
     """Solve every frame of the range from the animated joint values (or a ramp) and key the link objects"""
     bl_idname = "jointwise.bake"
     bl_label = "Bake Motion"
@@ -186,19 +161,19 @@ class JOINTWISE_OT_bake(_Range, _Base, bpy.types.Operator):
         try:
             count, t_solve, t_write = bk.bake(scene, self.frame_start, self.frame_end, self.drive,
                                               a, b, progress=wm.progress_update)
-        except _errors() as exc:
-            posing.set_status(scene, converged=False, message=sc.message_core_to_host(f"bake failed: {exc}", scene))
-            return self.fail(f"bake failed: {exc}")  # fail() puts it in display units
+        except errors() as exc:
+            msg = f"bake failed: {posing.error_text(scene, exc)}"
+            posing.set_status(scene, converged=False, message=msg)
+            return self.fail(msg)
         finally:
             wm.progress_end()
         msg = (f"baked {count} objects over frames {self.frame_start}-{self.frame_end} "
                f"(solve {t_solve:.2f} s, write {t_write:.2f} s); the keys play")
         posing.set_status(scene, message=msg)
-        self.report({'INFO'}, msg)
-        return {'FINISHED'}
+        return self.done(msg)
 
 
-class JOINTWISE_OT_bake_clear(_Base, bpy.types.Operator):
+class JOINTWISE_OT_bake_clear(Base, bpy.types.Operator):
     """Remove the baked motion of the link objects"""
     bl_idname = "jointwise.bake_clear"
     bl_label = "Clear Baked Motion"
@@ -213,11 +188,10 @@ class JOINTWISE_OT_bake_clear(_Base, bpy.types.Operator):
         measures.clear_keys(scene)
         msg = f"cleared baked motion of {n} objects"
         posing.set_status(scene, message=msg)
-        self.report({'INFO'}, msg)
-        return {'FINISHED'}
+        return self.done(msg)
 
 
-class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
+class JOINTWISE_OT_home_set(Base, bpy.types.Operator):
     """Take the current placement of every link and joint anchor as home"""
     bl_idname = "jointwise.home_set"
     bl_label = "Set Home"
@@ -232,8 +206,8 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
             for item in jw.joints:
                 if item.type != "fixed" and not sc.object_alive(scene, item.anchor):
                     raise sc.SceneError(f"joint {item.joint!r}: its anchor object is missing")
-        except _errors() as exc:
-            return self.fail(str(exc))
+        except errors() as exc:
+            return self.fail(posing.error_text(context.scene, exc))
         old = ([tuple(l.home) for l in jw.links], [(it.home, tuple(it.anchor_home)) for it in jw.joints])
         for link, obj in links:
             if obj is not None:
@@ -245,18 +219,18 @@ class JOINTWISE_OT_home_set(_Base, bpy.types.Operator):
         try:
             sc.clear_cache()
             mech = sc.mechanism_from_scene(scene)
-        except _errors() as exc:
+        except errors() as exc:
             for link, h in zip(jw.links, old[0]):
                 link.home = h
             for item, (h, mh) in zip(jw.joints, old[1]):
                 item.home, item.anchor_home = h, mh
             sc.clear_cache()
-            return self.fail(f"cannot set home here: {exc}")
+            return self.fail_on(context, "cannot set home here", exc)
         posing.set_status(scene, message="home set: the links' placements and joint values now are home", mobility=posing.mobility_of(mech))
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
+class JOINTWISE_OT_home_restore(Base, bpy.types.Operator):
     """Put every link back at home and every joint value at its home value"""
     bl_idname = "jointwise.home_restore"
     bl_label = "Return to Home"
@@ -267,8 +241,8 @@ class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
         try:
             disp = {link.name: np.eye(4) for link in jw.links}
             sc.apply_displacements(scene, disp)
-        except _errors() as exc:
-            return self.fail(str(exc))
+        except errors() as exc:
+            return self.fail(posing.error_text(context.scene, exc))
         sc.write_values(scene, {it.name: it.home for it in jw.joints})
         for it in jw.joints:  # anchors on the world (not parented to a link) go back too
             m = it.anchor
@@ -278,7 +252,7 @@ class JOINTWISE_OT_home_restore(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_pose(_Base, bpy.types.Operator):
+class JOINTWISE_OT_pose(Base, bpy.types.Operator):
     """Solve the mechanism for the current joint values and move the links"""
     bl_idname = "jointwise.pose"
     bl_label = "Solve Now"
@@ -290,7 +264,7 @@ class JOINTWISE_OT_pose(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_live_toggle(_Base, bpy.types.Operator):
+class JOINTWISE_OT_live_toggle(Base, bpy.types.Operator):
     """Switch following the animation on or off (on: pose from the animated values at once)"""
     bl_idname = "jointwise.live_toggle"
     bl_label = "Follow Animation"
@@ -303,7 +277,7 @@ class JOINTWISE_OT_live_toggle(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_value_key(_Base, bpy.types.Operator):
+class JOINTWISE_OT_value_key(Base, bpy.types.Operator):
     """Key this joint value at the current frame"""
     bl_idname = "jointwise.value_key"
     bl_label = "Key Joint Value"
@@ -351,7 +325,7 @@ def _ensure_link(jw, obj):
     return name
 
 
-class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
+class JOINTWISE_OT_joint_add(Base, bpy.types.Operator):
     """Add a joint: the active object is the child, the other selected object the parent
     (none: the ground). Add joints with the mechanism at home"""
     bl_idname = "jointwise.joint_add"
@@ -451,11 +425,10 @@ class JOINTWISE_OT_joint_add(_Base, bpy.types.Operator):
                     it.anchor_home = convert.matrix_core_to_stored(frame)
         jw.joint_index = len(jw.joints) - 1
         sc.clear_cache()
-        self.report({'INFO'}, f"added {self.type} joint {name!r} ({parent} -> {childname})")
-        return {'FINISHED'}
+        return self.done(f"added {self.type} joint {name!r} ({parent} -> {childname})")
 
 
-class JOINTWISE_OT_joint_remove(_Base, bpy.types.Operator):
+class JOINTWISE_OT_joint_remove(Base, bpy.types.Operator):
     """Remove the active joint (its coordinates, anchor and animation of its values)"""
     bl_idname = "jointwise.joint_remove"
     bl_label = "Remove Joint"
@@ -500,7 +473,7 @@ class JOINTWISE_OT_joint_remove(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_coupling_add(_Base, bpy.types.Operator):
+class JOINTWISE_OT_coupling_add(Base, bpy.types.Operator):
     """Couple two coordinates: follower = ratio x leader + offset"""
     bl_idname = "jointwise.coupling_add"
     bl_label = "Add Coupling"
@@ -561,7 +534,7 @@ class JOINTWISE_OT_coupling_add(_Base, bpy.types.Operator):
         return {'FINISHED'}
 
 
-class JOINTWISE_OT_coupling_remove(_Base, bpy.types.Operator):
+class JOINTWISE_OT_coupling_remove(Base, bpy.types.Operator):
     """Remove the active coupling"""
     bl_idname = "jointwise.coupling_remove"
     bl_label = "Remove Coupling"
@@ -585,7 +558,7 @@ def _measure_search(self, context, edit_text):
     return [n for n in names if text in n.lower()] or names
 
 
-class JOINTWISE_OT_trace_add(_Range, _Base, bpy.types.Operator):
+class JOINTWISE_OT_trace_add(_Range, Base, bpy.types.Operator):
     """Draw the path of a point measure over a frame range as a curve object"""
     bl_idname = "jointwise.trace_add"
     bl_label = "Add Trace"
@@ -631,14 +604,13 @@ class JOINTWISE_OT_trace_add(_Range, _Base, bpy.types.Operator):
                 size = float(getattr(mech, "size", 1.0))
                 bevel = 0.006 * (size if size > 0 and math.isfinite(size) else 1.0)
             obj = trace.write_curve(scene, self.measure, xyz, bevel)
-        except _errors() as exc:
-            return self.fail(f"cannot trace {self.measure!r}: {sc.message_core_to_host(str(exc))}")
-        self.report({'INFO'}, f"traced {self.measure!r} over frames {self.frame_start}-"
-                              f"{self.frame_end} into {obj.name!r}")
-        return {'FINISHED'}
+        except errors() as exc:
+            return self.fail_on(context, f"cannot trace {self.measure!r}", exc)
+        return self.done(f"traced {self.measure!r} over frames {self.frame_start}-"
+                         f"{self.frame_end} into {obj.name!r}")
 
 
-class JOINTWISE_OT_handle_add(_Base, bpy.types.Operator):
+class JOINTWISE_OT_handle_add(Base, bpy.types.Operator):
     """Add a handle at a point measure: moving the handle drags that point, the mechanism follows"""
     bl_idname = "jointwise.handle_add"
     bl_label = "Add Handle"
@@ -653,10 +625,9 @@ class JOINTWISE_OT_handle_add(_Base, bpy.types.Operator):
             return self.fail("name the point measure to put a handle on")
         try:
             obj = drag.add_handle(scene, self.measure)
-        except _errors() as exc:
-            return self.fail(f"cannot add a handle for {self.measure!r}: {exc}")
-        self.report({'INFO'}, f"handle {obj.name!r} at {self.measure!r}: move it to drag the point")
-        return {'FINISHED'}
+        except errors() as exc:
+            return self.fail_on(context, f"cannot add a handle for {self.measure!r}", exc)
+        return self.done(f"handle {obj.name!r} at {self.measure!r}: move it to drag the point")
 
 
 CLASSES = (

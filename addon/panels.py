@@ -3,24 +3,24 @@ from __future__ import annotations
 
 import bpy
 
-from . import animation, convert
+from . import convert, posing
 from . import scene as sc
 from . import measures, trace
 from .convert import SceneError
 
 
-def _held_names(scene):
-    """Coordinates the solver holds: drives and keyed (animated) values."""
-    jw = scene.jointwise
-    keyed = set(animation.coordinate_fcurves(scene))
-    return keyed, {it.name for it in jw.joints if it.drive} | keyed
+def _marked(scene):
+    """(keyed, marked): the coordinates with keys, and those plus the Drive-ticked ones: the
+    marks the list shows. Which of them a solve holds the core decides (``posing.held_names``)."""
+    keyed = posing.animated_coordinates(scene)
+    return keyed, {it.name for it in scene.jointwise.joints if it.drive} | keyed
 
 
 class JOINTWISE_UL_joints(bpy.types.UIList):
     """One row per joint coordinate: name, value (animatable, display units), key, held mark."""
 
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
-        keyed, held = _held_names(context.scene)
+        keyed, held = _marked(context.scene)
         row = layout.row(align=True)
         row.label(text=item.name, icon='CON_PIVOT' if item.kind == "angle" else 'CON_LOCLIKE')
         if item.type == "fixed":
@@ -57,6 +57,19 @@ class JOINTWISE_UL_couplings(bpy.types.UIList):
             ratio = f"({convert.format_value(abs(item.per_turn), 'length', length)} per turn) x"
         off = convert.format_value(item.offset, fk, length)
         layout.label(text=f"{item.follower} = {ratio} {item.leader} + {off}")
+
+
+def _list_with_buttons(layout, jw, items, one, rows):
+    """The list ``jw.<items>`` (drawn by ``JOINTWISE_UL_<items>``, active ``jw.<one>_index``)
+    with its Add and Remove buttons (``jointwise.<one>_add`` / ``_remove``) beside it;
+    returns the active item, or None."""
+    row = layout.row()
+    row.template_list(f"JOINTWISE_UL_{items}", "", jw, items, jw, f"{one}_index", rows=rows)
+    col = row.column(align=True)
+    col.operator(f"jointwise.{one}_add", text="", icon='ADD')
+    col.operator(f"jointwise.{one}_remove", text="", icon='REMOVE')
+    coll, i = getattr(jw, items), getattr(jw, f"{one}_index")
+    return coll[i] if 0 <= i < len(coll) else None
 
 
 class _Tab:
@@ -98,15 +111,10 @@ class JOINTWISE_PT_joints(_Tab, bpy.types.Panel):
     def draw(self, context):
         jw = context.scene.jointwise
         layout = self.layout
-        row = layout.row()
-        row.template_list("JOINTWISE_UL_joints", "", jw, "joints", jw, "joint_index", rows=4)
-        col = row.column(align=True)
-        col.operator("jointwise.joint_add", text="", icon='ADD')
-        col.operator("jointwise.joint_remove", text="", icon='REMOVE')
-        if not 0 <= jw.joint_index < len(jw.joints):
+        it = _list_with_buttons(layout, jw, "joints", "joint", 4)
+        if it is None:
             return
-        it = jw.joints[jw.joint_index]
-        keyed, held = _held_names(context.scene)
+        keyed, held = _marked(context.scene)
         box = layout.box()
         box.label(text=f"{it.type} joint {it.joint!r}: {it.parent} -> {it.child}")
         if it.name in held:
@@ -158,14 +166,9 @@ class JOINTWISE_PT_couplings(_Tab, bpy.types.Panel):
 
     def draw(self, context):
         jw = context.scene.jointwise
-        row = self.layout.row()
-        row.template_list("JOINTWISE_UL_couplings", "", jw, "couplings", jw, "coupling_index", rows=2)
-        col = row.column(align=True)
-        col.operator("jointwise.coupling_add", text="", icon='ADD')
-        col.operator("jointwise.coupling_remove", text="", icon='REMOVE')
-        if not 0 <= jw.coupling_index < len(jw.couplings):
+        c = _list_with_buttons(self.layout, jw, "couplings", "coupling", 2)
+        if c is None:
             return
-        c = jw.couplings[jw.coupling_index]
         box = self.layout.box()
         box.prop_search(c, "leader", jw, "joints", icon='VIEWZOOM')
         box.prop_search(c, "follower", jw, "joints", icon='VIEWZOOM')
@@ -203,7 +206,7 @@ class JOINTWISE_PT_traces(_Tab, bpy.types.Panel):
         try:
             names = sorted(trace.point_measures(scene))
         except SceneError as exc:
-            layout.label(text=sc.message_core_to_host(str(exc)))
+            layout.label(text=str(exc))
             return
         if not names:
             layout.label(text="No point measures in the mechanism file")
@@ -238,25 +241,11 @@ class JOINTWISE_PT_measures(_Tab, bpy.types.Panel):
     def draw(self, context):
         jw = context.scene.jointwise
         layout = self.layout
-        row = layout.row()
-        row.template_list("JOINTWISE_UL_measures", "", jw, "measures", jw, "measure_index", rows=3)
-        col = row.column(align=True)
-        col.operator("jointwise.measure_add", text="", icon='ADD')
-        col.operator("jointwise.measure_remove", text="", icon='REMOVE')
-        if not 0 <= jw.measure_index < len(jw.measures):
+        m = _list_with_buttons(layout, jw, "measures", "measure", 3)
+        if m is None:
             return
-        m = jw.measures[jw.measure_index]
         box = layout.box()
-        box.prop(m, "kind")
-        if m.kind == 'RATE':
-            box.prop_search(m, "of", jw, "joints")
-            box.prop_search(m, "per", jw, "joints")
-        else:
-            box.prop_search(m, "link_a", jw, "links")
-            box.prop(m, "axis_a" if m.kind == 'ANGLE' else "at_a")
-            if m.kind != 'POINT':
-                box.prop_search(m, "link_b", jw, "links")
-                box.prop(m, "axis_b" if m.kind == 'ANGLE' else "at_b")
+        measures.draw_fields(box, m, jw)
         if m.problem:
             box.label(text=m.problem, icon='ERROR')
 

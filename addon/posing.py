@@ -96,36 +96,24 @@ def set_status(scene, *, converged=True, error=0.0, singular=False, message="", 
     jw.converged = bool(converged)
     jw.closure_error = float(error) if error is not None and math.isfinite(error) else 0.0
     jw.singular = bool(singular)
-    jw.message = message  # final text: core messages go through sc.message_core_to_host first
+    jw.message = message  # final text: core failures worded by error_text
     if mobility is not None:
         jw.mobility = int(mobility)
 
 
 def mobility_of(mech):
     """Numeric mobility of the mechanism's structure (at home), or None when the core cannot
-    say. Worked out once per structure: the scene's mechanism is rebuilt (a new object) only
-    when joints, links or couplings are added, edited or removed, so a value change reads
-    the count kept with it."""
-    cached = getattr(mech, "_jointwise_mobility", False)
-    if cached is not False:
-        return cached
+    say: the core's ``Mechanism.mobility()``, which works it out once per structure and keeps
+    it (the scene's mechanism is rebuilt, a new object, only when joints, links or couplings
+    are added, edited or removed), so a value change reads the kept count."""
     try:
         m = mech.mobility()
     except Exception:  # the core's mobility is an extra; never let it break a solve
-        m = None
-    if isinstance(m, dict):
-        m = m.get("numeric", m.get("kutzbach"))
-    elif hasattr(m, "numeric"):
-        m = m.numeric
+        return None
     try:
-        m = int(m)
-    except (TypeError, ValueError):
-        m = None
-    try:
-        mech._jointwise_mobility = m
-    except AttributeError:
-        pass
-    return m
+        return int(m["numeric"])
+    except (KeyError, TypeError, ValueError):
+        return None
 
 
 def _or_unknown(m):
@@ -213,12 +201,26 @@ def reachable_text(scene, mech, name):
     return f"reachable from {_value_text(scene, name, lo)} to {_value_text(scene, name, hi)}"
 
 
+def _limits(scene, name):
+    item = scene.jointwise.joints.get(name)
+    if item is None or not item.use_limits:
+        return None
+    return float(item.limit_min), float(item.limit_max)
+
+
 def error_text(scene, exc):
-    """A core failure in the extension's own words and display units: from the error's
-    structured reason where it has one; otherwise (a file or scene problem, text only) the
-    core's text with its units put into display units."""
-    text = convert.reason_text(getattr(exc, "reason", None), lambda n, v: _value_text(scene, n, v))
-    return text if text is not None else sc.message_core_to_host(convert.describe_error(exc), scene)
+    """A failure for the user, in the extension's own words and display units.
+
+    A core failure with a structured reason (``exc.reason``: kind, joint, loop, value,
+    bounds) is worded from those fields (:func:`convert.reason_text`); a file problem
+    (``SpecError``) is shown as written, saying that its numbers are the file's; anything
+    else (the scene's own problems; a core failure whose reason lacks the fields its kind
+    needs) as written, with the loop or joint it names."""
+    if isinstance(exc, sc.core().SpecError):
+        return convert.spec_text(exc)
+    text = convert.reason_text(getattr(exc, "reason", None), lambda n, v: _value_text(scene, n, v),
+                               lambda n: _limits(scene, n))
+    return text if text is not None else convert.describe_error(exc)
 
 
 def failure_text(scene, exc, asked):

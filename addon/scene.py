@@ -64,23 +64,16 @@ def value_factor_file_to_host(scene, kind, length_unit, angle_unit):
     return convert.angle_file_to_host(angle_unit)
 
 
+#: the units of the scene mechanism's numbers, as a file problem about it quotes them
+SCENE_UNITS = "numbers in radians and scene units"
+
+
 def display_length_of(scene):
     """(label, factor) turning scene lengths (BU) into the scene's display unit."""
     if scene is None:
         return "BU", 1.0
     us = scene.unit_settings
     return display_length(us.system, us.length_unit, us.scale_length)
-
-
-def message_core_to_host(msg, scene=None):
-    """The core's message for the UI: angles in degrees, lengths in the scene's display unit."""
-    if scene is None:
-        try:
-            import bpy
-            scene = bpy.context.scene
-        except (ImportError, AttributeError):
-            scene = None
-    return convert.message_core_to_host(msg, display_length_of(scene))
 
 
 # -- objects and links -----------------------------------------------------------------
@@ -339,17 +332,9 @@ def mechanism_from_scene(scene):
     try:
         mech = core().from_dict(data, source=f"scene {scene.name!r}")
     except core().SpecError as exc:
-        raise SceneError(str(exc)) from None
+        raise SceneError(convert.spec_text(exc, SCENE_UNITS)) from None
     _CACHE[key] = (data, mech, fp)
     return mech
-
-
-def loop_joints(mech):
-    out = set()
-    for loop in getattr(mech, "loops", []):
-        for step in loop.steps:
-            out.add(step[0])
-    return out
 
 
 # -- core -> scene --------------------------------------------------------------------------

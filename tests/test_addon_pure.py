@@ -122,9 +122,6 @@ def test_units_and_messages():
     assert convert.length_file_to_host("in", 1.0) == pytest.approx(0.0254)  # 1 in = 25.4 mm (exact, 1959)
     assert convert.display_length("METRIC", "MILLIMETERS", 1.0) == ("mm", 1000.0)
     assert convert.display_length("NONE", "MILLIMETERS", 1.0) == ("BU", 1.0)
-    msg = convert.message_core_to_host("c = 1.5707963 rad outside [-1, 1] rad; slide 0.25 m",
-                                       ("mm", 1000.0))
-    assert "90 deg" in msg and "[-57.296, 57.296] deg" in msg and "slide 250 mm" in msg
     assert convert.format_value(math.radians(51.6), "angle") == "51.6°"
     assert convert.format_value(0.0125, "length", ("mm", 1000.0)) == "12.5 mm"
     # many turns in full, as typed (not 4.5e+04°)
@@ -178,3 +175,44 @@ def test_failure_words_from_the_structured_reason():
         "the loop closed by joint 'pin_c' cannot close with crank there")
     assert convert.reason_text(Reason("unreachable"), deg) is None
     assert convert.reason_text(None, deg) is None
+
+
+def test_failure_words_in_display_units_from_the_fields():
+    """Angles in degrees and lengths in the display unit, from the reason's fields (the
+    scene mechanism's radians and scene units), never from the core's text; hand-worked:
+    1.5707963 rad = 90°, 1 rad = 57.2958°, 0.25 BU at 1000 mm per BU = 250 mm."""
+    from jointwise.errors import LimitError, Reason
+    kinds = {"c": "angle", "slide": "length"}
+    text = lambda name, v: convert.format_value(v, kinds[name], ("mm", 1000.0))  # noqa: E731
+    assert convert.reason_text(Reason("limit", joint="c", value=1.5707963, bounds=(-1.0, 1.0), unit="rad"),
+                               text) == "c = 90° lies outside its limits [-57.3°, 57.3°]"
+    assert convert.reason_text(Reason("limit", joint="slide", value=0.25, bounds=(-0.048, 0.008), unit="m"),
+                               text) == "slide = 250 mm lies outside its limits [-48 mm, 8 mm]"
+    far = Reason("unreachable", joint="slide", loop="nut", bounds=(0.0, 0.0125), unit="m", error=1e-3)
+    assert convert.reason_text(far, text) == (
+        "the loop closed by joint 'nut' cannot close; slide keeps it closed only up to about 12.5 mm")
+    # a solved coordinate stopped at its limit on the way (the core's value is the limit)
+    stop = Reason("limit", joint="slide", value=0.06, bounds=(-0.01, 0.06), unit="m", held=False)
+    assert convert.reason_text(stop, text) == (
+        "on the way there slide reaches its limit 60 mm (limits [-10 mm, 60 mm])")
+    # a limit failure naming the coordinate but not its numbers: bounds from the scene's limits
+    bare = LimitError("the core's text in radians", joint="c").reason
+    assert convert.reason_text(bare, text) is None
+    assert convert.reason_text(bare, text, lambda name: (-1.0, 1.0)) == (
+        "the closed placement puts c outside its limits [-57.3°, 57.3°]")
+    assert convert.reason_text(bare, text, lambda name: None) is None
+    # a failure whose reason names only a coordinate (no loop, no numbers): the core's text
+    assert convert.reason_text(Reason("unreachable", joint="c"), text) is None
+    assert convert.reason_text(Reason("span", joint="c"), text) is None
+
+
+def test_file_problems_are_shown_as_written_with_their_units_named():
+    from jointwise.errors import SpecError
+    plain = SpecError("axis has zero length", source="vise2.toml", key="joints.screw.axis")
+    assert convert.spec_text(plain) == "vise2.toml: joints.screw.axis: axis has zero length"
+    numbers = SpecError("lower limit 30 is above upper 10", source="vise.toml", key="joints.a.limits")
+    assert convert.spec_text(numbers) == ("vise.toml: joints.a.limits: lower limit 30 is above upper 10 "
+                                          "(numbers as in the file, in its own units)")
+    assert convert.spec_text(numbers, "numbers in radians and scene units").endswith(
+        "upper 10 (numbers in radians and scene units)")
+    assert not hasattr(convert, "message_core_to_host")  # no rewriting of the core's text

@@ -40,6 +40,7 @@ ADDON_LAYERS = [
     {"scene"},
     {"animation"},
     {"posing"},
+    {"reporting"},
     {"bake", "measures", "edit"},
     {"live", "trace", "files", "axes"},
     {"drag"},

@@ -156,6 +156,8 @@ def test_axes_tidy_unlocks_a_tilted_sample(installed, tmp_path):
     assert not jw.converged  # locked by the tilt
     with pytest.raises(RuntimeError, match=r"rocker_pivot.*0\.17.*tolerance of 0\.1"):
         bpy.ops.jointwise.axes_tidy(tolerance=math.radians(0.1))
+    with pytest.raises(RuntimeError, match=r"0\.1°; nothing changed \(raise the angle tolerance"):
+        bpy.ops.jointwise.axes_tidy(tolerance=math.radians(0.1))  # worded from the tilts' fields
     assert bpy.ops.jointwise.axes_tidy() == {"FINISHED"}
     assert "rocker_pivot turned 0.17°" in jw.message
     mech = jointwise.load(os.path.join(SAMPLES, "wagtail_rocker.toml"))

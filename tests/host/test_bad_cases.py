@@ -153,20 +153,84 @@ def test_empty_scene_operators_report(fresh, tmp_path):
         bpy.ops.jointwise.bake(frame_start=5, frame_end=2)
 
 
-def test_core_messages_show_degrees_in_the_ui(installed):
-    import importlib
-    scene_mod = importlib.import_module(installed + ".scene")
-    import bpy
-    scene = bpy.context.scene
+def _vise_in_mm(scene, tmp_path):
+    """The Corbel vise (screw Tr16x4, jaw slide limited to [-10, 60] mm) in a scene shown in
+    millimetres (1 BU = 1 mm): the scene mechanism works in radians and BU."""
     scene.unit_settings.system = "METRIC"
     scene.unit_settings.length_unit = "MILLIMETERS"
-    scene.unit_settings.scale_length = 0.001  # 1 BU = 1 mm; the core labels BU as "m"
-    msg = scene_mod.message_core_to_host(
-        "c = 1.22173 rad lies outside its limits [-1.0472, 1.0472] rad; up to about 0.817031 rad "
-        "(radians or mechanism sizes), slide = 10 m outside [-48, 8] m", scene)
-    assert "1.22173 rad" not in msg and " rad" not in msg.replace("radians", "")
-    assert "70 deg" in msg and "[-60, 60] deg" in msg and "46.812 deg" in msg
-    assert "slide = 10 mm outside [-48, 8] mm" in msg
-    scene.unit_settings.length_unit = "METERS"
-    assert "slide = 0.01 m outside [-0.048, 0.008] m" in scene_mod.message_core_to_host(
-        "slide = 10 m outside [-48, 8] m", scene)
+    scene.unit_settings.scale_length = 0.001
+    ws.make_vise_objects(1.0)
+    path = ws.vise_file(tmp_path)
+    assert bpy.ops.jointwise.mechanism_import(filepath=str(path)) == {"FINISHED"}
+    return scene.jointwise
+
+
+def test_a_refused_value_is_worded_in_display_units(fresh, tmp_path):
+    """A value change the core refuses: the message is worded from the failure's fields in
+    the scene's display units (the core computed in radians and BU), the scene unchanged.
+    The vise's lead is 4 mm a turn (ISO 2904 Tr16x4): 20 turns ask 80 mm of the slide."""
+    jw = _vise_in_mm(fresh, tmp_path)
+    jw.live = True
+    jw.joints["feed"].value = 2 * math.pi * 3  # 12 mm of jaw travel: fine
+    assert jw.converged, jw.message
+    before, values = placements(), {it.name: it.value for it in jw.joints}
+    jw.joints["feed"].value = 2 * math.pi * 20  # 80 mm: past the slide's 60 mm
+    assert not jw.converged
+    assert "feed cannot reach 7200° here" in jw.message, jw.message
+    assert "slide reaches its limit 60 mm (limits [-10 mm, 60 mm])" in jw.message, jw.message
+    assert " rad" not in jw.message and " m " not in jw.message, jw.message
+    assert same(before, placements())
+    assert {it.name: it.value for it in jw.joints} == pytest.approx(values, abs=1e-7)
+    fresh.unit_settings.length_unit = "CENTIMETERS"  # the words follow the display unit
+    jw.joints["feed"].value = 2 * math.pi * 20
+    assert "[-1 cm, 6 cm]" in jw.message, jw.message
+
+
+def test_a_refused_angle_is_worded_in_degrees(fresh, tmp_path):
+    reach = _rocker_reach(tmp_path)
+    clamp(tmp_path, drive="d")
+    jw = fresh.jointwise
+    jw.live = True
+    jw.joints["d"].value = math.radians(reach + 20)
+    assert not jw.converged
+    assert f"d cannot reach {reach + 20}° here" in jw.message, jw.message
+    assert " rad" not in jw.message, jw.message
+
+
+def test_a_refused_bake_frame_is_worded_in_display_units(fresh, tmp_path):
+    jw = _vise_in_mm(fresh, tmp_path)
+    before = placements()
+    with pytest.raises(RuntimeError) as info:  # 20 turns over 21 frames: 4 mm a frame, past 60 mm
+        bpy.ops.jointwise.bake(frame_start=1, frame_end=21, drive="feed", value_from=0.0,
+                               value_to=2 * math.pi * 20)
+    text = str(info.value)
+    assert "slide" in text and "[-10 mm, 60 mm]" in text, text
+    assert "no keys were written" in text and " rad" not in text, text
+    assert "[-10 mm, 60 mm]" in jw.message and not jw.converged, jw.message
+    assert same(before, placements())
+
+
+def test_a_refused_drag_is_worded_in_display_units(fresh, tmp_path, monkeypatch):
+    """A drag the core refuses for a limit (its reason in the scene mechanism's BU): the
+    message gives the slide's numbers in the display unit. The refusal is made by the test
+    (a drag toward a limit stops at it), so the wording path itself is what is checked."""
+    import jointwise
+    from jointwise.errors import LimitError, Reason
+    from mathutils import Matrix
+    jw = _vise_in_mm(fresh, tmp_path)
+    jw.joints["feed"].value = 2 * math.pi  # posed once: the drag knows where it put the jaw
+
+    def refuse(*a, **k):
+        raise LimitError(reason=Reason("limit", joint="slide", value=72.5, bounds=(-10.0, 60.0), unit="m",
+                                       held=False))
+    monkeypatch.setattr(jointwise.Mechanism, "pose", refuse)
+    jaw = bpy.data.objects["Jaw"]
+    before = placements()
+    m = ws.world(jaw)
+    m[0, 3] += 5.0
+    jaw.matrix_world = Matrix(m.tolist())
+    bpy.context.view_layer.update()  # the drag handler sees the moved link
+    assert jw.message == ("dragging jaw: the closed placement puts slide at 72.5 mm, outside its "
+                          "limits [-10 mm, 60 mm]"), jw.message
+    assert not jw.converged
+    assert same(before, placements())
