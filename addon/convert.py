@@ -148,18 +148,21 @@ def format_value(v, kind, length=("BU", 1.0), digits=4):
 
 # -- messages --------------------------------------------------------------------------
 
-def reason_text(reason, value_text, limits=None):
+def reason_text(reason, value_text, limits=None, length_text=None):
     """The extension's own words for a core failure, built from its structured reason
-    (``jointwise.errors.Reason``: kind, joint, loop, value, bounds) instead of rewriting the
-    core's text. ``value_text(name, v)`` formats a value of coordinate ``name`` in display
-    units (the scene mechanism's radians or scene units); ``limits(name)`` gives the
-    coordinate's (lo, hi) limits in the same units, or None, for a limit reason that names
-    the coordinate but not its bounds. None for a reason without the fields its kind needs
-    (the caller shows the core's text as written: such texts carry no unit numbers)."""
+    (``jointwise.errors.Reason``: kind, joint, loop, value, bounds, ...) instead of rewriting
+    the core's text.
+
+    ``value_text(name, v)`` formats a value of coordinate ``name`` in display units (the
+    scene mechanism's radians or scene units); ``limits(name)`` gives the coordinate's
+    (lo, hi) limits in the same units, or None, for a limit reason that names the coordinate
+    but not its bounds; ``length_text(v)`` formats a length (a gap at home). None for a
+    reason without the fields its kind needs (the caller shows the core's text as written)."""
     if reason is None:
         return None
-    j, v, b = reason.joint, reason.value, reason.bounds
-    if reason.kind == "limit" and j is not None:
+    kind, j, v, b = reason.kind, reason.joint, reason.value, reason.bounds
+    loop, other = reason.loop, getattr(reason, "other", None)
+    if kind == "limit" and j is not None:
         if b is None and limits is not None:
             b = limits(j)
         if b is None:
@@ -169,16 +172,45 @@ def reason_text(reason, value_text, limits=None):
             return f"the closed placement puts {j} outside its limits {span}"
         if getattr(reason, "held", True):
             return f"{j} = {value_text(j, v)} lies outside its limits {span}"
-        if any(abs(v - x) <= 1e-9 * max(1.0, abs(x)) for x in b):  # stopped at the limit
+        if getattr(reason, "on_path", False):
             return f"on the way there {j} reaches its limit {value_text(j, v)} (limits {span})"
         return f"the closed placement puts {j} at {value_text(j, v)}, outside its limits {span}"
-    if reason.kind == "unreachable" and reason.loop:
-        text = f"the loop closed by joint {reason.loop!r} cannot close"
+    if kind == "unreachable" and loop:
+        text = f"the loop closed by joint {loop!r} cannot close"
         if j is not None and b is not None:
             text += f"; {j} keeps it closed only up to about {value_text(j, b[1])}"
         elif j is not None:
             text += f" with {j} there"
         return text
+    if kind == "coupling" and j is not None:
+        coupling = getattr(reason, "coupling", None)
+        if coupling is not None and v is not None and b is not None:
+            where = f"; it feeds the loop closed by joint {loop!r}" if loop else ""
+            return (f"coupling {coupling!r} does not hold at home: {j} is off by {value_text(j, v)} "
+                    f"(assembly tolerance {value_text(j, b[1])}){where}")
+        if other is not None and b is None:
+            return f"{j} follows a motion law and cannot be held; hold its leader {other} instead"
+        if other is not None and v is not None:
+            return (f"the held values of {j} and {other} contradict their coupling: {j} = "
+                    f"{value_text(j, v)} asked, the coupling gives {value_text(j, b[0])}")
+        if other is not None:
+            return f"the held values of {j} and {other} contradict their coupling"
+        return None
+    if kind == "home" and loop:
+        if v is None:
+            return f"the loop closed by joint {loop!r} could not be settled at home"
+        angle = getattr(reason, "angle", None)
+        if length_text is None or b is None or angle is None:
+            return None
+        return (f"the loop closed by joint {loop!r} does not close at home: gap {length_text(v)} and "
+                f"{number_text(angle[0], 3)}° (assembly tolerance {length_text(b[1])}, "
+                f"{number_text(angle[1], 3)}°)")
+    if kind == "span" and j is not None and v is not None and b is not None:
+        return (f"{j} = {value_text(j, v)} is too far from the placement shown to follow in one "
+                f"move (from there: {value_text(j, b[0])} to {value_text(j, b[1])}); set it in steps")
+    if kind == "singular" and j is not None and v is not None and b is not None:
+        return (f"{j} reaches a dead point at {value_text(j, v)} (reachable from "
+                f"{value_text(j, b[0])} to {value_text(j, b[1])})")
     return None
 
 

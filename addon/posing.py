@@ -218,8 +218,10 @@ def error_text(scene, exc):
     needs) as written, with the loop or joint it names."""
     if isinstance(exc, sc.core().SpecError):
         return convert.spec_text(exc)
+    length = sc.display_length_of(scene)
     text = convert.reason_text(getattr(exc, "reason", None), lambda n, v: _value_text(scene, n, v),
-                               lambda n: _limits(scene, n))
+                               lambda n: _limits(scene, n),
+                               lambda v: convert.format_value(v, "length", length))
     return text if text is not None else convert.describe_error(exc)
 
 

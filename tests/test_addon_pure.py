@@ -192,7 +192,8 @@ def test_failure_words_in_display_units_from_the_fields():
     assert convert.reason_text(far, text) == (
         "the loop closed by joint 'nut' cannot close; slide keeps it closed only up to about 12.5 mm")
     # a solved coordinate stopped at its limit on the way (the core's value is the limit)
-    stop = Reason("limit", joint="slide", value=0.06, bounds=(-0.01, 0.06), unit="m", held=False)
+    stop = Reason("limit", joint="slide", value=0.06, bounds=(-0.01, 0.06), unit="m", held=False,
+                  on_path=True)
     assert convert.reason_text(stop, text) == (
         "on the way there slide reaches its limit 60 mm (limits [-10 mm, 60 mm])")
     # a limit failure naming the coordinate but not its numbers: bounds from the scene's limits
@@ -204,6 +205,43 @@ def test_failure_words_in_display_units_from_the_fields():
     # a failure whose reason names only a coordinate (no loop, no numbers): the core's text
     assert convert.reason_text(Reason("unreachable", joint="c"), text) is None
     assert convert.reason_text(Reason("span", joint="c"), text) is None
+
+
+def test_every_kind_of_failure_worded_from_its_fields():
+    """Home, coupling, span and dead-point failures in display units from the fields (values
+    in the scene mechanism's radians and scene units; the home angle in degrees, as the core
+    gives it); hand-worked: 0.0021 BU at 1000 mm per BU = 2.1 mm."""
+    from jointwise.errors import Reason
+    kinds = {"c": "angle", "slide": "length"}
+    text = lambda name, v: convert.format_value(v, kinds[name], ("mm", 1000.0))  # noqa: E731
+    length = lambda v: convert.format_value(v, "length", ("mm", 1000.0))  # noqa: E731
+    home = Reason("home", loop="d", value=0.0021, bounds=(0.0, 1e-3), unit="m", angle=(0.5, 0.0573))
+    assert convert.reason_text(home, text, length_text=length) == (
+        "the loop closed by joint 'd' does not close at home: gap 2.1 mm and 0.5° "
+        "(assembly tolerance 1 mm, 0.0573°)")
+    assert convert.reason_text(home, text) is None  # no length words given: the core's text
+    assert convert.reason_text(Reason("home", loop="d", error=0.1), text) == (
+        "the loop closed by joint 'd' could not be settled at home")
+    off = Reason("coupling", coupling="gear", joint="c", value=math.radians(2.0),
+                 bounds=(0.0, math.radians(0.01)), unit="rad", loop="d")
+    assert convert.reason_text(off, text) == ("coupling 'gear' does not hold at home: c is off by 2° "
+                                              "(assembly tolerance 0.01°); it feeds the loop closed by joint 'd'")
+    assert convert.reason_text(Reason("coupling", joint="c", other="slide"), text) == (
+        "c follows a motion law and cannot be held; hold its leader slide instead")
+    both = Reason("coupling", joint="c", other="slide", value=math.radians(30.0),
+                  bounds=(math.radians(20.0), math.radians(20.0)), unit="rad")
+    assert convert.reason_text(both, text) == (
+        "the held values of c and slide contradict their coupling: c = 30° asked, the coupling gives 20°")
+    far = Reason("span", joint="c", value=math.radians(7200.0),
+                 bounds=(math.radians(-100.0), math.radians(500.0)), unit="rad")
+    assert convert.reason_text(far, text) == (
+        "c = 7200° is too far from the placement shown to follow in one move (from there: -100° to "
+        "500°); set it in steps")
+    dead = Reason("singular", joint="slide", value=0.04578, bounds=(-0.01526, 0.04578), unit="m")
+    assert convert.reason_text(dead, text) == (
+        "slide reaches a dead point at 45.78 mm (reachable from -15.26 mm to 45.78 mm)")
+    assert convert.reason_text(Reason("singular", joint="c"), text) is None
+    assert convert.reason_text(Reason("coupling"), text) is None
 
 
 def test_file_problems_are_shown_as_written_with_their_units_named():
