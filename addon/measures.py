@@ -406,9 +406,7 @@ def format_measure(scene, it):
     if it.problem:
         return f"— ({it.problem})"
     if it.kind == 'POINT':
-        label, f = length
-        x, y, z = (v * f for v in it.location)
-        return f"({convert.number_text(x, 4)}, {convert.number_text(y, 4)}, {convert.number_text(z, 4)}) {label}"
+        return convert.point_text(it.location, length)
     if it.kind == 'DISTANCE':
         return convert.format_value(it.value, "length", length)
     if it.kind == 'ANGLE':

@@ -34,17 +34,21 @@ class JOINTWISE_UL_joints(bpy.types.UIList):
         row.prop(item, "drive", text="", icon='AUTO' if item.drive else 'DOT', emboss=False)
 
 
+def _law_name(coupling):
+    """The motion law of a coupling item (program, geneva, table)."""
+    import json
+    try:
+        return str(json.loads(coupling.law_json).get("law", "law"))
+    except (ValueError, AttributeError):
+        return "law"
+
+
 class JOINTWISE_UL_couplings(bpy.types.UIList):
     """One row per coupling: follower = ratio x leader + offset, in display units."""
 
     def draw_item(self, context, layout, data, item, icon, active_data, active_propname, index):
         if item.law_json:  # a motion law (program, geneva, table): named, not a ratio
-            import json
-            try:
-                law = json.loads(item.law_json).get("law", "law")
-            except (ValueError, AttributeError):
-                law = "law"
-            layout.label(text=f"{item.follower} = {law}({item.leader})")
+            layout.label(text=f"{item.follower} = {_law_name(item)}({item.leader})")
             return
         jw = context.scene.jointwise
         length = sc.display_length_of(context.scene)
@@ -172,6 +176,9 @@ class JOINTWISE_PT_couplings(_Tab, bpy.types.Panel):
         box = self.layout.box()
         box.prop_search(c, "leader", jw, "joints", icon='VIEWZOOM')
         box.prop_search(c, "follower", jw, "joints", icon='VIEWZOOM')
+        if c.law_json:  # a motion law: ratio and offset are not its parameters
+            box.label(text=f"motion law {_law_name(c)}: its parameters come from the mechanism file")
+            return
         lead, fol = jw.joints.get(c.leader), jw.joints.get(c.follower)
         lk = lead.kind if lead else "angle"
         fk = fol.kind if fol else "angle"

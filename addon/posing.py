@@ -233,6 +233,8 @@ def failure_text(scene, exc, asked):
     name = next((e for e in asked if e in jw.joints), None)
     if name is None or not isinstance(exc, sc.core().AssemblyError):
         return detail
+    if getattr(getattr(exc, "reason", None), "kind", None) in ("coupling", "home"):
+        return detail  # not a matter of reach: a held motion-law follower, a home that does not close
     asked = asked[name]
     head = f"{name} cannot reach {_value_text(scene, name, asked)} here"
     try:

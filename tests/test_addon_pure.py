@@ -244,6 +244,14 @@ def test_every_kind_of_failure_worded_from_its_fields():
     assert convert.reason_text(Reason("coupling"), text) is None
 
 
+def test_point_text_drops_noise_below_the_digits_shown():
+    # 80 mm in float32 carries about 5e-6 mm of rounding: a 2.9e-7 mm coordinate beside it is 0
+    assert convert.point_text((0.08, 2.914e-10, 0.008), ("mm", 1000.0)) == "(80, 0, 8) mm"
+    assert convert.point_text((0.001, -0.0025, 0.0), ("mm", 1000.0)) == "(1, -2.5, 0) mm"
+    assert convert.point_text((12.0, 0.0011, 0.0)) == "(12, 0.0011, 0) BU"  # 1e-4 of 12: kept
+    assert convert.point_text((12.0, 0.0005, 0.0)) == "(12, 0, 0) BU"      # below half a digit
+
+
 def test_file_problems_are_shown_as_written_with_their_units_named():
     from jointwise.errors import SpecError
     plain = SpecError("axis has zero length", source="vise2.toml", key="joints.screw.axis")

@@ -234,3 +234,20 @@ def test_a_refused_drag_is_worded_in_display_units(fresh, tmp_path, monkeypatch)
                           "limits [-10 mm, 60 mm]"), jw.message
     assert not jw.converged
     assert same(before, placements())
+
+
+def test_a_held_motion_law_follower_is_refused_in_plain_words(installed):
+    """Typing a value into a motion law's follower (the kittiwake sample's Geneva wheel) is
+    refused with the reason only: it is not a matter of reach, so no "cannot reach" lead."""
+    import os
+    root = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    bpy.ops.wm.open_mainfile(filepath=os.path.join(root, "blend_samples", "kittiwake_index.blend"))
+    assert bpy.ops.jointwise.bake_clear() == {"FINISHED"}
+    jw = bpy.context.scene.jointwise
+    before, values = placements(), {it.name: it.value for it in jw.joints}
+    jw.joints["table_spindle"].value += math.radians(20.0)
+    assert not jw.converged
+    assert jw.message == ("table_spindle follows a motion law and cannot be held; hold its leader "
+                          "drive_shaft instead"), jw.message
+    assert same(before, placements())
+    assert {it.name: it.value for it in jw.joints} == pytest.approx(values, abs=1e-7)

@@ -79,3 +79,18 @@ def test_panels_draw_without_a_mechanism(fresh):
     for name in ("JOINTWISE_PT_mechanism", "JOINTWISE_PT_joints", "JOINTWISE_PT_links",
                  "JOINTWISE_PT_couplings", "JOINTWISE_PT_bake"):
         getattr(bpy.types, name).draw(types.SimpleNamespace(layout=Recorder([])), bpy.context)
+
+
+def test_a_motion_law_coupling_shows_no_ratio(installed):
+    """The kittiwake sample's Geneva coupling: its box names the law and offers no ratio or
+    offset fields (they are not its parameters, and editing them would do nothing)."""
+    import os
+    root = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    bpy.ops.wm.open_mainfile(filepath=os.path.join(root, "blend_samples", "kittiwake_index.blend"))
+    jw = bpy.context.scene.jointwise
+    jw.coupling_index = next(i for i, c in enumerate(jw.couplings) if c.follower == "table_spindle")
+    log = []
+    bpy.types.JOINTWISE_PT_couplings.draw(types.SimpleNamespace(layout=Recorder(log)), bpy.context)
+    assert ("label", "table_spindle = geneva(drive_shaft)") in log
+    assert ("label", "motion law geneva: its parameters come from the mechanism file") in log
+    assert not {("prop", n) for n in ("ratio", "per_turn", "offset_angle", "offset_length")} & set(log)
