@@ -434,7 +434,10 @@ class Evaluator:
             j = m.joints[jn]
             sl = m.slices[jn]
             d = np.stack(parts, axis=-1)
-            Rn = joint_rotations(self.prims[jn], Q[:, sl], turn=d)
+            if Q.shape[0] == 1:  # one state (an anchor's corrector): plain floats
+                Rn = (rotation_one(d[0]) @ joint_rotation_one(self.prims[jn], Q[0, sl]))[None]
+            else:
+                Rn = joint_rotations(self.prims[jn], Q[:, sl], turn=d)
             Q[:, sl] = j.coordinates_from_transform(Rn, near=Q[:, sl])
 
 

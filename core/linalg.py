@@ -38,6 +38,24 @@ def chol_factor(G):
     fro = np.sqrt((G * G).sum(axis=(1, 2)))
     scale = np.maximum(fro, 1e-300)
     mu = 1e-13
+    if B == 1:  # one matrix (an anchor's corrector): the same steps in plain floats
+        Gs = (G[0] / scale[0]).tolist()
+        L = [[0.0] * g for _ in range(g)]
+        cert = 1.0
+        for i in range(g):
+            Li = L[i]
+            for k in range(i + 1):
+                Lk = L[k]
+                acc = 0.0
+                for j in range(k):
+                    acc += Li[j] * Lk[j]
+                acc = Gs[i][k] - acc
+                if i == k:
+                    Li[i] = math.sqrt(max(acc + mu, mu))
+                    cert *= Li[i] * Li[i]
+                else:
+                    Li[k] = acc / Lk[k]
+        return np.array(L).reshape(1, g, g), scale, np.array([cert])
     if g > SOA_MAX_ORDER or B < SOA_MIN_STACK:
         Gs = G / scale[:, None, None]
         L = np.zeros_like(Gs)
@@ -69,6 +87,27 @@ def chol_factor(G):
 def chol_apply(factor, b):
     """Solve ``G x = b`` (b (B, g, k)) with the factors of :func:`chol_factor`; x (B, g, k)."""
     L, scale, _ = factor
+    if isinstance(L, np.ndarray) and L.shape[0] == 1:  # one matrix: plain floats
+        g = L.shape[1]
+        Ll = L[0].tolist()
+        s = float(scale[0])
+        cols = (b[0] / s).T.tolist()  # per right-hand side
+        out = []
+        for bs in cols:
+            y = [0.0] * g
+            for i in range(g):
+                acc = 0.0
+                for j in range(i):
+                    acc += Ll[i][j] * y[j]
+                y[i] = (bs[i] - acc) / Ll[i][i]
+            x = [0.0] * g
+            for i in reversed(range(g)):
+                acc = 0.0
+                for j in range(i + 1, g):
+                    acc += Ll[j][i] * x[j]
+                x[i] = (y[i] - acc) / Ll[i][i]
+            out.append(x)
+        return np.array(out, dtype=float).T.reshape(b.shape)
     if isinstance(L, np.ndarray):  # stacked factors
         g = L.shape[1]
         y = np.zeros_like(b)
@@ -164,12 +203,17 @@ def tmul(A, Bm):
         return np.swapaxes(A, 1, 2) @ Bm
     Ac = np.ascontiguousarray(np.moveaxis(A, 0, -1))  # (m, k, B)
     Bc = Ac if same else np.ascontiguousarray(np.moveaxis(Bm, 0, -1))
+    # rows that are zero over the whole stack add nothing (a planar loop's three
+    # out-of-plane rows): skipped, which leaves every sum as it was
+    live = [r for r in range(m) if Ac[r].any() and (same or Bc[r].any())]
     out = np.zeros((k, c, B))
+    tmp = np.empty(B)
     for i in range(k):
         for j in range(i + 1 if same else c):
             acc = out[i, j]
-            for r in range(m):
-                acc += Ac[r, i] * Bc[r, j]
+            for r in live:
+                np.multiply(Ac[r, i], Bc[r, j], out=tmp)
+                acc += tmp
             if same:
                 out[j, i] = acc
     return np.moveaxis(out, -1, 0)
