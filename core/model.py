@@ -425,11 +425,22 @@ class Model:
             out[link] = e.copy() if up is None and forward else (e if up is None else out[up] @ e)
         return {name: out[name] for name in self.links}
 
-    def _link_poses_stack(self, q):
+    def link_poses_into(self, q, into):
+        """:meth:`link_poses` of a stack ``q`` (B, n) written into ``into`` ({link: (B, 4, 4)}
+        arrays, e.g. slices of a longer result); returns ``into``."""
+        q = np.asarray(q, dtype=float)
+        if q.shape[0] > 8 and q.shape[1]:
+            return self._link_poses_stack(q, into)
+        for name, mat in self.link_poses(q).items():
+            into[name][...] = mat
+        return into
+
+    def _link_poses_stack(self, q, into=None):
         """:meth:`link_poses` of a stack (B, n), computed component-first (each entry of
         the transforms a row over the stack: elementwise products instead of many tiny
         4x4 ones): one product of the coefficient rows with the stacked powers gives every
-        primitive's exponential (:func:`spatial.exp_unit`), then the joints and the tree."""
+        primitive's exponential (:func:`spatial.exp_unit`), then the joints and the tree.
+        ``into``: arrays to write the results in (:meth:`link_poses_into`)."""
         powers = self._screw_powers()
         B = q.shape[0]
         th = (q - self.home).T  # (n, B)
@@ -458,8 +469,9 @@ class Model:
                          else spatial.compose_soa(out[j.child], spatial.inverse_soa(t)))
         res = {}
         for name in self.links:
-            mat = np.zeros((B, 4, 4))
+            mat = np.empty((B, 4, 4)) if into is None else into[name]
             mat[:, :3, :] = np.moveaxis(out[name], -1, 0)
+            mat[:, 3, :3] = 0.0
             mat[:, 3, 3] = 1.0
             res[name] = mat
         return res

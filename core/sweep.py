@@ -957,7 +957,8 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
     degenerate = np.zeros(N, bool)
     for k0 in range(0, len(idx), CHUNK):  # the Jacobian of each row evaluated once
         sel = idx[k0:k0 + CHUNK]
-        rows = np.union1d(sel - 1, sel)
+        run = sel[-1] - sel[0] == len(sel) - 1  # consecutive rows (the usual case): no search
+        rows = np.arange(sel[0] - 1, sel[-1] + 1) if run else np.union1d(sel - 1, sel)
         if kept is None:
             Js = _scaled_jacobian(ev, Q[rows])
         else:
@@ -967,8 +968,13 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
             Js[have] = kept[1][at[have]]
             if not have.all():
                 Js[~have] = _scaled_jacobian(ev, Q[rows[~have]])
-        pa, pb = np.searchsorted(rows, sel - 1), np.searchsorted(rows, sel)
-        cert[sel], orient[sel], degenerate[sel] = _certify_pairs(ev, Q[sel - 1], Q[sel], Js[pa], Js[pb])
+        if run:
+            Qr = Q[rows[0]:rows[-1] + 1]
+            parts = _certify_pairs(ev, Qr[:-1], Qr[1:], Js[:-1], Js[1:])
+        else:
+            pa, pb = np.searchsorted(rows, sel - 1), np.searchsorted(rows, sel)
+            parts = _certify_pairs(ev, Q[sel - 1], Q[sel], Js[pa], Js[pb])
+        cert[sel], orient[sel], degenerate[sel] = parts
     # Rows whose step from the row before is certified need nothing more: their flag is
     # set here, all at once; the loop below visits only the others (the first closed row,
     # rows after a gap, uncertified steps), in order, with the closed rows before them.
@@ -1051,12 +1057,11 @@ def _finish(mech, drive, values, Q, conv, sing, resid, reasons, held_m):
 
 def link_poses(mech, Q):
     """Displacements from home of every link, stacked over states Q (N, n): link -> (N, 4, 4);
-    :meth:`Mechanism.link_poses` in chunks."""
+    :meth:`Mechanism.link_poses_into` in chunks, written into the result."""
     N = Q.shape[0]
     res = {name: np.empty((N, 4, 4)) for name in mech.links}
     for k0 in range(0, N, CHUNK):
-        for name, mats in mech.link_poses(Q[k0:k0 + CHUNK]).items():
-            res[name][k0:k0 + CHUNK] = mats
+        mech.link_poses_into(Q[k0:k0 + CHUNK], {name: v[k0:k0 + CHUNK] for name, v in res.items()})
     return res
 
 
