@@ -344,15 +344,20 @@ def log_soa(T):
     c = (r[0, 0] + r[1, 1] + r[2, 2] - 1.0) / 2.0
     ang = np.arctan2(s, c)
     small = ang < 1e-4
-    f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(s > 0, s, 1.0))
-    w = np.stack([k0 * f, k1 * f, k2 * f])
-    far = ang > 2.5
-    if far.any():  # near pi: the skew part vanishes; the axis comes from the symmetric part
-        w[:, far] = log3(np.moveaxis(r[:, :3][:, :, far], -1, 0)).T
-        ang = np.sqrt((w * w).sum(axis=0))
-        small = ang < 1e-4
-    a_ = np.where(small, 1.0, ang)
-    coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
+    if small.all():  # every loop near closure (the usual case): the series terms alone
+        f = 1.0 + ang * ang / 6.0
+        w = np.stack([k0 * f, k1 * f, k2 * f])
+        coef = 1 / 12 + ang ** 2 / 720
+    else:
+        f = np.where(small, 1.0 + ang * ang / 6.0, ang / np.where(s > 0, s, 1.0))
+        w = np.stack([k0 * f, k1 * f, k2 * f])
+        far = ang > 2.5
+        if far.any():  # near pi: the skew part vanishes; the axis comes from the symmetric part
+            w[:, far] = log3(np.moveaxis(r[:, :3][:, :, far], -1, 0)).T
+            ang = np.sqrt((w * w).sum(axis=0))
+            small = ang < 1e-4
+        a_ = np.where(small, 1.0, ang)
+        coef = np.where(small, 1 / 12 + ang ** 2 / 720, (1 - (a_ / 2) / np.tan(a_ / 2)) / (a_ * a_))
     p = r[:, 3]
     wp0 = w[1] * p[2] - w[2] * p[1]
     wp1 = w[2] * p[0] - w[0] * p[2]
