@@ -30,10 +30,10 @@ class Base:
         self.report({'INFO'}, message)
         return {'FINISHED'}
 
-    def fail_on(self, context, head, exc, tail=""):
+    def fail_on(self, context, head, exc):
         """Report ``exc`` (a scene, file or core failure) after ``head``, in the extension's
         words: :func:`posing.error_text`."""
-        return self.fail(f"{head}: {posing.error_text(context.scene, exc)}{tail}")
+        return self.fail(f"{head}: {posing.error_text(context.scene, exc)}")
 
     def execute(self, context):  # noqa: D401
         """Runs ``run``; an unexpected exception becomes a report, not a traceback."""
