@@ -614,24 +614,24 @@ def loop_plan(s, block, cols, rot, coupled=True):
     src_pos = np.array(src_pos, dtype=int)
     tw = np.array(src_tw, dtype=float).reshape(-1, 6)
     powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))  # (P + 1, 3, 4, 4)
+    points = np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4)
     at_pos = []  # per position 0..kmax: (sources there, their loops)
     for k in range(kmax + 1):
         sel = np.flatnonzero(src_pos == k)
         at_pos.append((sel, src_loop[sel]) if len(sel) else None)
     return {
-        "p16": powers.reshape(-1, 3, 16), "coef": np.empty((len(screws), 1, 3)),
         "p12": np.ascontiguousarray(powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1)),
         "pidx": np.array(pidx + [0], dtype=int), "phome": np.array(phome + [0.0]),
         "psign": np.array(psign + [0.0]), "fidx": fidx, "kmax": kmax, "nl": nl,
         "cut": (np.array(cut_pos, dtype=int), np.arange(nl)), "cut_pos": cut_pos,
-        "points": np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4),
+        "points": points,
         "src_loop": src_loop, "src_pos": src_pos, "at_pos": at_pos,
-        "src_wv": np.stack([tw[:, :3], tw[:, 3:]], axis=-1), "src_tw": tw,
+        "src_tw": tw,
         "src_sign": np.array(src_sign)[:, None], "W": W, "weights": weights, "varying": varying,
         "scatter": ((6 * src_loop[:, None] + np.arange(6)[None, :]).ravel(), np.repeat(np.arange(ns), 6)),
         "ncols": len(cols),
         "one": _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, np.array(src_sign), W,
-                               src_loop, src_pos),
+                               src_loop, src_pos, points),
     }
 
 
@@ -659,7 +659,7 @@ for _k in range(3):
 _BRACKET_OF_OUTER = _BRACKET_OF_OUTER.reshape(36, 6)
 
 
-def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W, src_loop, src_pos):
+def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W, src_loop, src_pos, points):
     """What :func:`eval_one` reads: the factors in product slots (loop, position), padding
     slots the zero screw; each slot's powers with the identity after them, so that one product
     of the rows ``(t, 1 - cos t, t - sin t, 1)`` with them gives the slot's exponential; per
@@ -677,7 +677,7 @@ def _one_state_plan(fidx, pidx, phome, psign, powers, nl, kmax, tw, sign, W, src
     pidx = np.array(pidx + [0], dtype=int)[f]
     same = src_loop[:, None] == src_loop[None, :]
     return {"pidx": pidx, "phome": np.array(phome + [0.0])[f], "psign": np.array(psign + [0.0])[f],
-            "p16": p16, "Y": Y, "sW": sign[:, None] * W, "sign": sign,
+            "p16": p16, "Y": Y, "sW": sign[:, None] * W, "sign": sign, "points": points.tolist(),
             # one loop whose sources are its factors in order: their prefixes are pre[:ns, 0]
             "in_order": nl == 1 and np.array_equal(src_pos, np.arange(ns)),
             # source a's twist left of source b (same loop, earlier in the product)
@@ -734,17 +734,21 @@ def eval_one(s, plan, q, jac=True, sources=False):
         pre[1] = ex[:, 0]
     for k in range(1, kmax):
         np.matmul(pre[k], ex[:, k], out=pre[k + 1])
-    lw = spatial.log_rows(pre[kmax, 0].tolist()) if nl == 1 else None
-    if lw is not None:  # one loop near closure: plain floats
-        x, y, z, _ = plan["points"][0].tolist()
-        c0, c1, c2, _ = pre[plan["cut_pos"][0], 0].tolist()
-        s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
-                      c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
-        w0, w1, w2, v0, v1, v2 = lw
-        v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
-        r = np.array([w0, w1, w2, v0, v1, v2])
-        errs = np.array([max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * s.pos_weight)])
-        site4 = np.array([s0, s1, s2, 0.0])
+    # every loop near closure: plain floats, loop by loop (spatial.log_rows); else stacked
+    lws = [spatial.log_rows(t) for t in pre[kmax].tolist()]
+    if None not in lws:
+        cuts = [pre[plan["cut_pos"][0], 0].tolist()] if nl == 1 else pre[plan["cut"]].tolist()
+        r, errs, sites = [], [], []
+        pw = s.pos_weight
+        for (w0, w1, w2, v0, v1, v2), (c0, c1, c2, _), (x, y, z, _) in zip(lws, cuts, one["points"]):
+            s0, s1, s2 = (c0[0] * x + c0[1] * y + c0[2] * z + c0[3], c1[0] * x + c1[1] * y + c1[2] * z + c1[3],
+                          c2[0] * x + c2[1] * y + c2[2] * z + c2[3])
+            v0, v1, v2 = v0 + w1 * s2 - w2 * s1, v1 + w2 * s0 - w0 * s2, v2 + w0 * s1 - w1 * s0
+            r += (w0, w1, w2, v0, v1, v2)
+            errs.append(max(abs(w0), abs(w1), abs(w2), max(abs(v0), abs(v1), abs(v2)) * pw))
+            sites.append((s0, s1, s2, 0.0))
+        r, errs = np.array(r), np.array(errs)
+        site4 = np.array(sites[0] if nl == 1 else sites)
     else:
         site = pre[plan["cut"]] @ plan["points"][:, :, None]  # (nl, 4, 1)
         site = site[:, :3, 0]

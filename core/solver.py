@@ -44,7 +44,7 @@ from . import kinematics, spatial
 from .errors import AssemblyError, LimitError, Reason
 from .linalg import det_rows, det_small, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
-                    JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
+                    CURVE_FROM, JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
                     MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
 
 __all__ = ["Solver", "TOLERANCE", "SINGULAR_RATIO", "MAX_STEP"]
@@ -608,7 +608,7 @@ class Solver:
                     svd_here = _state_info(J_here[:, :nu] * rs[:, None] * cs[None, :])
                 rate = _solve_at(svd_here, -(J_here[:, nu:] @ dfull) * rs)
                 rmax = _absmax(rate)
-                if st.curved and rmax > 0:
+                if st.curved and min(rmax * (1.0 - t), limit) >= CURVE_FROM:
                     # second-order term: J_u u'' = -J_dot q' (kinematics.bias_one), exact at a closed
                     # state; it moves the corrector's start only (the tests below read the
                     # first-order prediction)

@@ -62,6 +62,12 @@ MAX_ITER = 30
 #: Held values farther than this from the start (dimensionless: radians, about 1600 turns,
 #: or mechanism sizes) are refused rather than followed for minutes.
 MAX_SPAN = 1e4
+#: A continuation sub-step whose first-order prediction moves the solved coordinates at
+#: least this far (dimensionless) starts its corrector from the second-order prediction
+#: (the tangent's curvature from J-dot q-dot); shorter ones close in one Newton step from
+#: the first-order prediction already (its error, about half the curvature times the
+#: squared step, stays near or below the square root of the tolerance).
+CURVE_FROM = 1e-3
 #: Jacobians of this many recent closed states are kept for warm starts from them.
 JACOBIAN_MEMORY = 256
 #: Evaluation plans (index arrays per block and column layout) kept; oldest dropped first.
