@@ -264,20 +264,21 @@ def lstsq_small(a, b, rcond):
 
 def normal_factor(a, g=None):
     """The normal equations of one tall matrix ``a`` (m, k), 1 <= k <= 3, solved once for
-    many right-hand sides: ``(k, adjugate rows of G, det G)``, ``G = a^T a`` (``g`` if the
-    caller has it), where ``det(G) >= NORMAL_CERT |G|_F^k`` (:func:`lstsq_small`'s
+    many right-hand sides: ``(k, adjugate rows of G, det G, det G / |G|_F^k)``, ``G = a^T a``
+    (``g`` if the caller has it), where ``det(G) >= NORMAL_CERT |G|_F^k`` (:func:`lstsq_small`'s
     certificate; for one column ``G > 0``), else None."""
     k = a.shape[1]
     if k == 1:
         g00 = float(a[:, 0] @ a[:, 0])
-        return (1, None, g00) if g00 > 0 else None
+        return (1, None, g00, 1.0) if g00 > 0 else None
     if g is None:
         g = a.T @ a
     if k == 2:
         (g00, g01), (_, g11) = g.tolist()
         det = g00 * g11 - g01 * g01
-        if det >= NORMAL_CERT * (g00 * g00 + 2 * g01 * g01 + g11 * g11):
-            return 2, (g00, g01, g11), det
+        fro2 = g00 * g00 + 2 * g01 * g01 + g11 * g11
+        if det >= NORMAL_CERT * fro2:
+            return 2, (g00, g01, g11), det, det / fro2
         return None
     (g00, g01, g02), (_, g11, g12), (_, _, g22) = g.tolist()
     c00, c01, c02 = g11 * g22 - g12 * g12, g02 * g12 - g01 * g22, g01 * g12 - g02 * g11
@@ -285,13 +286,13 @@ def normal_factor(a, g=None):
     fro = math.sqrt(g00 * g00 + g11 * g11 + g22 * g22 + 2 * (g01 * g01 + g02 * g02 + g12 * g12))
     if det >= NORMAL_CERT * fro * fro * fro:
         c11, c12, c22 = g00 * g22 - g02 * g02, g01 * g02 - g00 * g12, g00 * g11 - g01 * g01
-        return 3, (c00, c01, c02, c11, c12, c22), det
+        return 3, (c00, c01, c02, c11, c12, c22), det, det / (fro * fro * fro)
     return None
 
 
 def normal_solve(fac, a, b):
     """The least-squares solution of ``a x = b`` from ``a``'s :func:`normal_factor`."""
-    k, c, det = fac
+    k, c, det, _ = fac
     if k == 1:
         return np.array([float(a[:, 0] @ b) / det])
     if k == 2:

@@ -26,10 +26,14 @@ modelled in 3D, or redundant constraints, converge and coordinates no constraint
 determines keep their previous values.  A step that raises the residual is halved.
 Free spherical joints move by rotation increments, so they keep three freedoms at
 every orientation.  Held values are reached by continuation: a tangent predictor
-and a Newton corrector over sub-steps of at most ``MAX_STEP`` (dimensionless).  A
-sub-step is accepted only when its corrector contracts (it fails within a few
-iterations otherwise, so an unreachable target fails fast), moves no more than the
-prediction allows, and keeps the orientation of the solved block; else it is halved.
+and a Newton corrector over sub-steps of at most ``MAX_STEP`` (dimensionless); the
+corrector of a sub-step that moves at least ``CURVE_FROM`` starts from the second-order
+prediction (the tangent's curvature from J-dot q-dot, :func:`kinematics.bias_one`), so a
+short warm-started step closes in one Newton step (the tests below read the first-order
+prediction, as before).  A sub-step is accepted only when its corrector contracts (it
+fails within a few iterations otherwise, so an unreachable target fails fast), moves no
+more than the prediction allows, and keeps the orientation of the solved block; else it
+is halved.
 Where halving reaches the smallest step and the orientation still changes, the path
 passes a singular point and the result is flagged singular.  The argument and its
 sources are under "branch continuity" in :mod:`jointwise.linalg`.
@@ -42,7 +46,7 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, LimitError, Reason
-from .linalg import det_rows, det_small, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
+from .linalg import det_small, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     CURVE_FROM, JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
                     MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
@@ -111,13 +115,12 @@ def _state_info(js):
     else ``("svd", (u, s, vt))`` its thin SVD.  :func:`_solve_at` solves with it."""
     m, k = js.shape
     if k and m:
-        g = js.T @ js if k <= m else js @ js.T
-        if len(g) <= 3:  # plain floats: det_small of g / |g|_F
-            rows = g.tolist()
-            fro = math.sqrt(sum(x * x for row in rows for x in row))
-            if fro > 0 and det_rows([[x / fro for x in row] for row in rows]) >= FULL_CERT:
-                return "full", js, (normal_factor(js, g) if k <= m else None)
+        if k <= min(m, 3):  # plain floats: the normal equations' factor carries the certificate
+            fac = normal_factor(js)
+            if fac is not None and fac[3] >= FULL_CERT:
+                return "full", js, fac
         else:
+            g = js.T @ js if k <= m else js @ js.T
             fro = math.sqrt(float((g * g).sum()))
             if fro > 0 and det_small(g / fro) >= FULL_CERT:
                 return "full", js, None
