@@ -188,7 +188,8 @@ def _run(mech, explicit, N, q0, release):
             u = mech.unit_scale(i)
             reasons[int(k)] = Note(f"limit of joint {j.name}" + (f" ({c})" if c != j.name else ""),
                                    Reason("limit", joint=c, value=float(Q[k, i] / u),
-                                          bounds=(lim[0] / u, lim[1] / u), unit=mech.unit_name(i), held=False))
+                                          bounds=(lim[0] / u, lim[1] / u), unit=mech.unit_name(i),
+                                          held=int(ct.master[i]) in target))
         lim_bad |= bad
     conv = good & ~lim_bad
     # singular flags on the solved states

@@ -89,6 +89,22 @@ def test_sweep_status_limit_rows_name_joint_and_bounds():
         assert not lo <= r.value <= hi
 
 
+def test_sweep_limit_of_a_held_coordinate_says_it_was_asked():
+    # the rocker driven past its own limit: the value was asked (held), not found by closing
+    # the loop, so its reason says held (its text reads "rocker = V lies outside its limits")
+    lo, hi = 50.0, 100.0
+    m = load(fourbar_toml(limits=[lo, hi]))
+    vals = np.linspace(60.0, 110.0, 51)
+    sw = m.sweep("rocker", vals)
+    past = vals > hi + 1e-9
+    assert (sw.status[past] == "limit").all() and (sw.status[~past] != "limit").all()
+    for i in np.flatnonzero(past):
+        r = sw.failures[int(i)]
+        assert (r.kind, r.joint, r.held) == ("limit", "rocker", True)
+        assert r.value == pytest.approx(vals[i])
+        assert r.message().startswith(f"rocker = {vals[i]:g} deg lies outside its limits")
+
+
 def test_sweep_status_singular_rows():
     m = load(fourbar_toml(a=40, b=100, c=40, d=100, theta2=60.0))  # parallelogram
     vals = np.linspace(60, 300, 481)
