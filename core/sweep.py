@@ -281,13 +281,15 @@ def _idle_tangents(ev, Q, Hm, known, ok, Tall):
     Tall[mid, :, 0] = T * cs[None, :]
 
 
-def _newton(ev, Q, idx, iters=BATCH_ITER, first=None):
+def _newton(ev, Q, idx, iters=BATCH_ITER, first=None, final=None):
     """Batched Gauss-Newton on rows ``idx`` of Q (in place).  Returns err per row of idx.
     ``first``: the evaluation ``(r, e, J)`` of those rows (rotation-increment columns), if
-    already made."""
+    already made.  ``final`` (len(idx), rows, columns): filled with the Jacobian at each
+    row's last state where it closed (every evaluation then carries the Jacobian)."""
     if len(idx) > CHUNK:
         return np.concatenate([_newton(ev, Q, idx[k:k + CHUNK], iters,
-                                       None if first is None else tuple(x[k:k + CHUNK] for x in first))
+                                       None if first is None else tuple(x[k:k + CHUNK] for x in first),
+                                       None if final is None else final[k:k + CHUNK])
                                for k in range(0, len(idx), CHUNK)])
     cols = ev.cols_rot
     cs = ev._cscale(cols)
@@ -299,13 +301,17 @@ def _newton(ev, Q, idx, iters=BATCH_ITER, first=None):
         last = it == iters
         if it == 0 and first is not None:
             r, e, J = first
-        elif it == 0 or last:
-            r, e, J = ev.eval(sub, None if last else cols)
+        elif it == 0 or final is not None:
+            r, e, J = ev.eval(sub, cols)
+        elif last:
+            r, e, J = ev.eval(sub)
         else:  # residuals first: rows that closed need no Jacobian
             r, e, _ = ev.eval(sub)
             J = None
         errs[active] = e
         keep = e > TOLERANCE
+        if final is not None and J is not None:
+            final[active[~keep]] = J[~keep]
         if last or not keep.any() or not cols:
             break
         sub_a = sub[keep]
@@ -541,10 +547,17 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             if not len(sel):
                 continue
         before = Q[sel].copy()
-        e = _newton(ev, Q, sel, first=first)
+        final = None if first is None else np.empty_like(first[2])
+        e = _newton(ev, Q, sel, first=first, final=final)
         moved = _distance(ev, before, Q[sel])
         good = (e <= TOLERANCE) & (moved <= np.maximum(0.1 * spacing, 1e-6))
         ok[sel[good]] = True
+        if final is not None and good.any():  # their Jacobians join the kept ones
+            Jg = final[good]
+            Jg *= ev.rs[None, :, None]
+            Jg *= ev._cscale(ev.cols_rot)[None, None, :]
+            kept[0][sel[good]] = len(kept[1]) + np.arange(len(Jg))
+            kept = (kept[0], np.concatenate([kept[1], Jg]))
         err[sel] = e
         gs = sel[good]
         if stepsize > 0 and len(gs) and ev.cols_coord:
