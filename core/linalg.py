@@ -352,7 +352,10 @@ def lstsq_svd(svd, b, rcond):
 #    h <= 1/2 with the estimate's factor-two margin.  A new state that closes the loops and
 #    lies within 2 |d0| of x0 (row-space part: idle freedoms such as a coupler's spin
 #    between two balls are not part of the branch) is therefore *the* Newton limit from
-#    x0, i.e. the continuation of the previous state, not a state of another branch.
+#    x0.  That it also continues the previous state does not follow from the theorem
+#    alone (the unique zero near x0 need not be joined to the previous state as the held
+#    value moves); it follows where the orientation (point 2) agrees, and a certified
+#    step whose orientation turns is decided by point 4.
 # 2. Orientation.  The solved block J_u of the dimensionless Jacobian (generic rank r) is
 #    regular along a branch between singular points, so the sign of det(U_r^T J_u V_r),
 #    with U_r, V_r the leading singular vectors at the previous state (where the
@@ -377,6 +380,16 @@ def lstsq_svd(svd, b, rcond):
 #    four) and measures the distance by an upper bound.  An orientation change cannot
 #    pass: det(J_a^+ J_b) < 0 gives J_a^+ J_b a negative eigenvalue, so |J_a^+ J_b - I| > 1.
 #    Steps the chord test does not pass get the Newton test of point 1.
+# 4. What the tests are.  theta estimates h from below (Deuflhard's a-posteriori
+#    estimate) and the Lipschitz constant of point 3 is a secant through two points, a
+#    lower bound of the true one; both tests are therefore well-founded estimates with
+#    margins (factor two, factor four), not proofs.  What keeps a sweep from a silent
+#    switch where an estimate is wrong is the orientation: a certified step whose
+#    orientation turns (a coarse step of a crank-rocker can land near its mirrored
+#    assembly, where the Newton test passes) is solved again from the row before by the
+#    single-pose continuation, which halves its sub-steps before it accepts a turn; the
+#    batched row is kept (and flagged singular) only where that path passes a singular
+#    point or a state as near one as the singular flag reads, else it is replaced.
 #
 # A step failing either test is halved.  Where halving reaches the smallest step and the
 # orientation still changes, the path truly passes a singular point (a change point or

@@ -186,6 +186,7 @@ class Solver:
         self._home_notes = []
         self._rot_twists = {}
         self._crossed = False
+        self._near = False  # a pose's path passed an accepted state near a singular point
         #: after a failed continuation: the farthest closed state it reached (for ``reach``)
         self.last_closed = None
         self.is_length = np.array([k == "length" for k in mech.kinds], dtype=bool)
@@ -516,6 +517,7 @@ class Solver:
         singular = False
         worst = 0.0
         self._crossed = False
+        self._near = False
         for b in self.blocks:
             held_b = {g: target[g] for g in b.groups if g in target}
             idx = self._block_coordinates(b)
@@ -529,9 +531,12 @@ class Solver:
             worst = max(worst, err)
             singular = singular or sing
         self._check_passive_limits(q, set(target))
+        if self._near and not self._crossed:
+            notes.append("on the way the mechanism passed close to a singular position; past such a "
+                         "point it may continue on another assembly branch: check the result")
         return q, {"converged": worst <= TOLERANCE, "residual": float(worst),
                    "singular": bool(singular), "notes": notes,
-                   "crossed_singular": bool(self._crossed)}
+                   "crossed_singular": bool(self._crossed), "passed_near_singular": bool(self._near)}
 
     def _block_coordinates(self, b):
         """Indices of every coordinate of block ``b``'s joints (kept per block)."""
@@ -621,6 +626,11 @@ class Solver:
                 rate, rmax = np.zeros(0), 0.0
             if cols and frame is None:
                 frame = self._orientation(b, svd_here, cols)
+                if t > 0.0 and not isinstance(frame[0], str) and frame[2] < SINGULAR_RATIO:
+                    # an accepted state on the way lies as near a singular point as the
+                    # singular flag reads: past it, the branch that keeps the orientation
+                    # may be another assembly branch (a change point), so the pose says so
+                    self._near = True
             remaining = 1.0 - t
             dt = remaining
             if rmax * dt > limit:

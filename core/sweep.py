@@ -409,7 +409,10 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             else:
                 out = qn, None
         if info:
-            return out + ((out[0] is not None and bool(inf.get("crossed_singular"))),)
+            # the continuation passed a singular point, or an accepted state as near one as the
+            # singular flag reads, or ends at one
+            return out + ((out[0] is not None and bool(inf.get("crossed_singular") or inf["singular"] or
+                                                     inf.get("passed_near_singular"))),)
         return out
 
     # -- 1. anchors, one after another -----------------------------------------------
@@ -993,7 +996,10 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
     # set here, all at once; the loop below visits only the others (the first closed row,
     # rows after a gap, uncertified steps), in order, with the closed rows before them.
     trivial = np.zeros(N, bool)
-    trivial[1:] = ok[1:] & ok[:-1] & cert[1:]
+    # a certified step whose orientation turns is not trivial: the tests prove a unique closed
+    # state near the prediction, not that it continues the row before (a coarse step of a
+    # crank-rocker can land on the mirrored assembly); the loop below decides it
+    trivial[1:] = ok[1:] & ok[:-1] & cert[1:] & (orient[1:] | degenerate[1:])
     crossed[trivial] = ~orient[trivial]
     prev_ok = np.concatenate([[-1], np.maximum.accumulate(np.where(ok, np.arange(N), -1))[:-1]])
     todo = [int(i) for i in np.flatnonzero(ok & ~trivial)]
@@ -1021,9 +1027,19 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
             # the step starts at a singular point, where neither test is defined: prove
             # it from the closed row before that point instead
             good, same, _ = (bool(x[0]) for x in _certify_pairs(ev, Q[before:before + 1], Q[i:i + 1]))
-        crossed[i] = good and not same  # continuous through a singular point: flag it
-        if not good:
+        turned = good and not same
+        crossed[i] = turned
+        if not good or (turned and not degen):
+            # solved again from the row before by Solver.pose, whose continuation halves its
+            # sub-steps before it accepts a turn: where that path passes a singular point (or
+            # as near one as the singular flag reads), the batched row continues through it
+            # and is kept, flagged; where it does not, the batched row was a jump to another
+            # assembly branch and is replaced (the rows after it solved again)
             qn, why, sing = pose_one(i, Q[last].copy(), info=True)
+            if turned and qn is not None and sing:
+                last_s, before_s = i, last
+                continue
+            crossed[i] = False
             if qn is None:
                 ok[i] = False
                 reasons[i] = why

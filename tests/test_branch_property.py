@@ -121,3 +121,55 @@ def test_labels_see_a_switch():
     sw.joints["rocker"][k + 1:] = ref[1 - lab[k], k + 1:]
     assert np.isfinite(other)
     assert B.check_sweep(case, sw)[0] >= 1
+
+
+def _rocker_side(a, b, c, d, crank_deg, rocker_deg):
+    """Which side of the line crank pin -> rocker pivot the rocker pin lies on (+1 / -1):
+    the two assemblies of a four-bar at one crank angle are mirror images about that line
+    (circle intersection, Norton sec. 4.5), so a Grashof crank-rocker turned by its crank,
+    which has no singular position, keeps its side all turn long."""
+    t2, t4 = np.radians(crank_deg), np.radians(rocker_deg)
+    ax, ay = a * np.cos(t2), a * np.sin(t2)
+    bx, by = d + c * np.cos(t4), c * np.sin(t4)
+    return np.sign((d - ax) * (by - ay) - (0.0 - ay) * (bx - ax))
+
+
+@pytest.mark.parametrize("a, b, c, rows, start", [
+    (49.9, 100.0, 50.5, 25, 137.0),  # a coarse step (15 deg) from 167 lands near the mirror
+    (49.9, 100.0, 50.5, 5, 60.0),
+    (40.19, 75.92, 64.33, 5, 107.4),
+    (42.82, 99.32, 43.71, 17, 30.6),
+])
+def test_coarse_sweep_of_a_grashof_crank_rocker_keeps_its_assembly(a, b, c, rows, start):
+    # Grashof: shortest + longest <= the other two, crank shortest (common practice): the
+    # crank turns fully with no dead point, so no row may change side and none is singular;
+    # a step certified near the prediction but with the Jacobian's orientation turned is a
+    # jump to the mirrored assembly and must be solved again from the row before
+    from sweep_fixtures import fourbar_toml, load
+    d = 100.0
+    links = sorted([a, b, c, d])
+    assert links[0] == a and links[0] + links[3] <= links[1] + links[2]
+    m = load(fourbar_toml(a, b, c, d, theta2=start))
+    vals = np.linspace(start, start + 360.0, rows)
+    sw = m.sweep("crank", vals)
+    assert sw.converged.all()
+    side = _rocker_side(a, b, c, d, vals, sw.joints["rocker"])
+    assert (side == side[0]).all(), np.flatnonzero(side != side[0])
+    assert not sw.singular.any()
+
+
+def test_a_pose_past_a_change_point_says_so():
+    # parallelogram four-bar (a = c, b = d): at crank 180 deg the parallelogram and the
+    # antiparallelogram assemblies meet (a change point, Grashof's equality case); a pose from
+    # 150 to 210 deg passes it, and past it the orientation-keeping assembly is the other one,
+    # so the pose must say that its path passed close to a singular position; a pose that
+    # stays clear of it (150 -> 170, rocker = crank on the parallelogram) says nothing
+    from sweep_fixtures import fourbar_toml, load
+    m = load(fourbar_toml(40, 100, 40, 100, theta2=150.0))
+    start = m.pose({"crank": 150.0})
+    past = m.pose({"crank": 210.0}, start=start)
+    assert past.converged
+    assert any("passed close to a singular position" in n for n in past.notes)
+    clear = m.pose({"crank": 170.0}, start=start)
+    assert abs(clear.joints["rocker"] - 170.0) < 1e-6
+    assert not any("singular position" in n for n in clear.notes)
