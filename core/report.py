@@ -451,7 +451,10 @@ def plot_sweep(mech, sw, drive, path):
         for hh, ll in zip(h, lab):
             seen.setdefault(ll, hh)
         if seen:
-            ax.legend(seen.values(), seen.keys(), fontsize="small", loc="best")
+            # above the panel, outside the curves (a legend inside would hide some of them)
+            ax.legend(seen.values(), seen.keys(), fontsize="small", loc="lower left",
+                      bbox_to_anchor=(0.0, 1.0), frameon=False, borderaxespad=0.2,
+                      ncol=2 if max(len(k) for k in seen) <= 40 else 1)
         ax.grid(True, alpha=0.3)
     if not moving:
         axes[-1].set_xlabel(f"{drive} [{du}]")
