@@ -1027,6 +1027,9 @@ def _prove_branch(ev, Q, ok, err, reasons, pose_one, kept=None):
             # the step starts at a singular point, where neither test is defined: prove
             # it from the closed row before that point instead
             good, same, _ = (bool(x[0]) for x in _certify_pairs(ev, Q[before:before + 1], Q[i:i + 1]))
+            # past a singular point the assembly taken is a choice (at a change point both
+            # branches go on with either orientation): the row says so
+            same = False
         turned = good and not same
         crossed[i] = turned
         if not good or (turned and not degen):

@@ -173,3 +173,19 @@ def test_a_pose_past_a_change_point_says_so():
     clear = m.pose({"crank": 170.0}, start=start)
     assert abs(clear.joints["rocker"] - 170.0) < 1e-6
     assert not any("singular position" in n for n in clear.notes)
+
+
+@pytest.mark.parametrize("rows, start", [(4, 60.0), (5, 90.0), (9, 90.0)])
+def test_a_coarse_step_from_a_change_point_is_flagged_or_stays(rows, start):
+    # parallelogram four-bar sampled exactly at its change point (crank 180 deg) with long
+    # steps: past that row the sweep may go on as parallelogram (rocker = crank) or as
+    # antiparallelogram, but the first row that leaves the parallelogram must be flagged
+    from sweep_fixtures import fourbar_toml, load
+    m = load(fourbar_toml(40, 100, 40, 100, theta2=start))
+    vals = np.linspace(start, start + 360.0, rows)
+    sw = m.sweep("crank", vals)
+    para = np.abs((sw.joints["rocker"] - vals + 180.0) % 360.0 - 180.0) < 1e-6
+    at_change = np.minimum(vals % 180.0, 180.0 - vals % 180.0) < 1e-9  # crank 0 or 180 deg
+    left = np.flatnonzero(sw.converged & ~para & ~at_change)
+    if left.size:
+        assert sw.singular[left[0]], (left, np.flatnonzero(sw.singular))
