@@ -719,10 +719,16 @@ def _singular_flags(ev, Q, conv):
             svs.append(np.linalg.svd(Js, compute_uv=False))
         sv = np.concatenate(svs)
         top = np.maximum(sv[:, :1], 1e-300)
+        # the generic rank from this sweep's own rows: the suspects and a spread sample of its
+        # closed rows (almost surely regular), so the flags depend on nothing seen before
+        closed = np.flatnonzero(conv)
+        spread = closed[np.linspace(0, len(closed) - 1, min(len(closed), 8)).astype(int)]
+        _, Jr = _certificate(ev, Q[spread]) if len(spread) else (None, np.zeros((0,) + Js.shape[1:]))
+        svr = np.linalg.svd(Jr, compute_uv=False) if len(Jr) else sv[:0]
         rank = int((sv > 1e-9 * top).sum(axis=1).max())
-        key = ("sweep", ev.block.index, tuple(ev.cols_rot))
-        rank = max(rank, ev.s._generic_rank.get(key, 0), 1)
-        ev.s._generic_rank[key] = rank
+        if len(svr):
+            rank = max(rank, int((svr > 1e-9 * np.maximum(svr[:, :1], 1e-300)).sum(axis=1).max()))
+        rank = max(rank, 1)
         flag[idx] = sv[:, rank - 1] / top[:, 0] < SINGULAR_RATIO
         full_rank = rank == sv.shape[1]
     # dead points crossed between samples: V-shaped minimum of sqrt(certificate)

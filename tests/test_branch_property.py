@@ -189,3 +189,17 @@ def test_a_coarse_step_from_a_change_point_is_flagged_or_stays(rows, start):
     left = np.flatnonzero(sw.converged & ~para & ~at_change)
     if left.size:
         assert sw.singular[left[0]], (left, np.flatnonzero(sw.singular))
+
+
+def test_singular_flags_do_not_depend_on_earlier_sweeps():
+    # the same sweep asked twice of one mechanism, with another sweep between, flags the
+    # same rows, and the rows exactly at the parallelogram's change points (crank 180 and
+    # 360 deg, where its two assemblies meet and the Jacobian loses rank) are among them
+    from sweep_fixtures import fourbar_toml, load
+    m = load(fourbar_toml(40, 100, 40, 100, theta2=90.0))
+    vals = np.linspace(90.0, 450.0, 5)
+    first = m.sweep("crank", vals).singular.copy()
+    m.sweep("crank", np.linspace(170.0, 179.99, 4))  # ends close to, not at, the change point
+    second = m.sweep("crank", vals).singular
+    assert (first == second).all()
+    assert first[1] and first[3]
