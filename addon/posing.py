@@ -190,7 +190,12 @@ def reachable_text(scene, mech, name):
     try:
         from jointwise.sweep import reach
         r = reach(mech, name)
-    except Exception:  # an extra for the message only; never let it hide the failure
+    except Exception as exc:  # an extra for the message only; never let it hide the failure
+        why = getattr(exc, "reason", None)
+        if getattr(why, "kind", None) == "singular" and why.bounds and why.bounds[0] == why.bounds[1]:
+            # a fold for this coordinate (a dead point on both sides): it moves only as
+            # another joint turns the mechanism away from here
+            return "it cannot move on its own from here (a dead point on both sides); move another joint first"
         return ""
     spans = r.get("intervals") or []
     item = scene.jointwise.joints.get(name)

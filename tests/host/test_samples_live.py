@@ -106,3 +106,27 @@ def test_the_lift_screw_past_its_end_poses_at_the_end(installed):
     want = jointwise.load(os.path.join(SAMPLES, "plover_lift.toml")).pose({"screw_bearing": 44999.99})
     foot = jw.joints["foot_slide"].value / scene.unit_settings.scale_length * 1e-3  # mm
     assert foot == pytest.approx(want.joints["foot_slide"], abs=1e-3)
+
+
+def test_a_cross_angle_at_its_fold_says_to_move_another_joint(installed):
+    # heron_shaft at home: the cross's angle cross.1 is at a turning point (it runs from 0 to
+    # -60 deg and back as the input turns; reach says locked by a dead point on both sides),
+    # so a value for it alone is refused with what to do instead, and the scene keeps its
+    # pose; once the input has turned (90 deg) the same value poses
+    import bpy
+    import jointwise
+    scene = _open("heron_shaft")
+    jw = scene.jointwise
+    assert bpy.ops.jointwise.bake_clear() == {"FINISHED"}
+    jw.live = False
+    before = {o.name: [list(r) for r in o.matrix_world] for o in scene.objects}
+    jw.joints["cross.1"].value = math.radians(-20.0)
+    assert not jw.converged
+    assert "cannot move on its own from here" in jw.message and "move another joint first" in jw.message
+    assert abs(jw.joints["cross.1"].value) < 1e-9
+    assert {o.name: [list(r) for r in o.matrix_world] for o in scene.objects} == before
+    jw.joints["input_bearing"].value = math.radians(90.0)
+    jw.joints["cross.1"].value = math.radians(-20.0)
+    assert jw.converged, jw.message
+    want = jointwise.load(os.path.join(SAMPLES, "heron_shaft.toml")).pose({"input_bearing": 90.0})
+    assert want.converged
