@@ -164,8 +164,10 @@ class Solver:
         #   _steps    (block, held masters in order) -> _Step (columns, scales, plan); PLAN_MEMORY
         #   _kept     (given coordinates, drive flags) -> drives kept held; PLAN_MEMORY
         #   _tangent_cols (block, held masters, moving master) -> column lists; PLAN_MEMORY
-        #   _lastJ    (block, state bytes) -> Jacobian, _state_info and Jacobian sources of a
-        #             closed state; JACOBIAN_MEMORY
+        #   _lastJ    (block, bytes of the block's state: its joints' coordinates and its
+        #             masters, all its equations read) -> Jacobian, _state_info and Jacobian
+        #             sources of a closed state; JACOBIAN_MEMORY per block (keyed by the
+        #             block's own state, so other blocks moving after it do not miss it)
         #   _row_scales  loop count -> row scale; _rot_twists  joint -> twists (structure)
         #   _generic_rank (purpose, block, columns) -> largest rank seen (one per layout)
         #   _settled  block -> (its coordinates' bytes and held values as a pose left them,
@@ -539,12 +541,14 @@ class Solver:
                    "crossed_singular": bool(self._crossed), "passed_near_singular": bool(self._near)}
 
     def _block_coordinates(self, b):
-        """Indices of every coordinate of block ``b``'s joints (kept per block)."""
+        """Indices of every coordinate block ``b``'s equations read: its joints' coordinates
+        and the masters of their coupling groups (a motion law's slope reads its leader),
+        kept per block."""
         idx = self._block_idx.get(b.index)
         if idx is None:
             m = self.m
-            idx = self._block_idx[b.index] = np.array(
-                [i for jn in b.joints for i in range(m.slices[jn].start, m.slices[jn].stop)], dtype=int)
+            own = {i for jn in b.joints for i in range(m.slices[jn].start, m.slices[jn].stop)}
+            idx = self._block_idx[b.index] = np.array(sorted(own | set(b.groups)), dtype=int)
         return idx
 
     def kept_drives(self, explicit):
@@ -602,7 +606,7 @@ class Solver:
         src_here = None
         while t < 1.0:
             if J_here is None:
-                key = (b.index, q.tobytes())
+                key = (b.index, q[self._block_coordinates(b)].tobytes())
                 cached = self._lastJ.pop(key, None)
                 if cached is not None and cached[0] is allcols:
                     J_here, svd_here, src_here = cached[1], cached[2], cached[3]
@@ -699,12 +703,12 @@ class Solver:
         if cols and J is not None and J.size:
             svd_here = _state_info(Jsc)
         if J_here is not None:
-            if len(self._lastJ) >= JACOBIAN_MEMORY:  # keep the most recent closed states
+            if len(self._lastJ) >= JACOBIAN_MEMORY * len(self.blocks):  # the most recent closed states
                 self._lastJ.pop(next(iter(self._lastJ)))
             # key: block and the closed state's bytes; value: its column layout, Jacobian, how
             # its scaled solved part reads (_state_info: tangent and orientation next time) and
             # its Jacobian sources (kinematics.bias_one: the second-order term next time)
-            self._lastJ[(b.index, q.tobytes())] = (allcols, J_here, svd_here, src_here)
+            self._lastJ[(b.index, q[self._block_coordinates(b)].tobytes())] = (allcols, J_here, svd_here, src_here)
         return err, crossed or self._singular(b, J, cols, rs, cs, svd_here)
 
     def _solve_overheld(self, b, q, held_b, source):
