@@ -828,11 +828,56 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
     fac = linalg.chol_factor(G)
     degenerate = fac[2] < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
     same = (linalg.det_stack(M) > 0) | degenerate
+    parts = _independent_parts(ev, Jsa)
+    if len(parts) > 1:
+        # the block's determinant is the product of its independent parts': two parts that
+        # turn together (two four-bars on one driven crank both flipping to their mirrored
+        # assemblies in one step) keep its sign, so each part's orientation is read on its own
+        for rows, cls in parts:
+            a, b = Jsa[:, rows][:, :, cls], Jsb[:, rows][:, :, cls]
+            if rank != k:
+                a, b = np.swapaxes(a, 1, 2), np.swapaxes(b, 1, 2)
+            same &= (linalg.det_stack(linalg.tmul(a, b)) > 0) | degenerate
     ok = _chord_certified(ev, Qa, Qb, Jsa, Jsb, fac, M, rank == k) & ~degenerate
     if not ok.all():
         slow = np.flatnonzero(~ok)
         ok[slow] = _newton_certified(ev, Qa[slow], Qb[slow], rank, k)
     return ok, same, degenerate
+
+
+def _independent_parts(ev, Js):
+    """The parts of the solved block that share no unknown once the held values are fixed,
+    as (rows, columns) index arrays; one part where everything is joined.  Read from where
+    the scaled Jacobians ``Js`` (B, 6 nl, k) have entries: a column (a joint twist, never
+    zero) has entries in the rows of exactly the loops whose walk passes its joint.  Kept on
+    the evaluator (one sweep's columns)."""
+    parts = getattr(ev, "_parts", None)
+    if parts is None:
+        nl = Js.shape[1] // 6
+        used = (np.abs(Js) > 0).any(axis=0).reshape(nl, 6, -1).any(axis=1)  # (loops, columns)
+        parent = list(range(nl))
+
+        def find(x):
+            while parent[x] != x:
+                parent[x] = parent[parent[x]]
+                x = parent[x]
+            return x
+
+        for c in range(used.shape[1]):
+            loops = np.flatnonzero(used[:, c])
+            for li in loops[1:]:
+                parent[find(int(li))] = find(int(loops[0]))
+        groups = {}
+        for li in range(nl):
+            groups.setdefault(find(li), []).append(li)
+        parts = []
+        for lis in groups.values():
+            rows = np.concatenate([np.arange(6 * li, 6 * li + 6) for li in lis])
+            cls = np.flatnonzero(used[lis].any(axis=0))
+            if len(cls):
+                parts.append((rows, cls))
+        ev._parts = parts
+    return parts
 
 
 def _predictor(ev, Qa, Qb):

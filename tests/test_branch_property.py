@@ -203,3 +203,28 @@ def test_singular_flags_do_not_depend_on_earlier_sweeps():
     second = m.sweep("crank", vals).singular
     assert (first == second).all()
     assert first[1] and first[3]
+
+
+def test_two_crank_rockers_on_one_crank_keep_their_assemblies():
+    # two Grashof crank-rockers on one crank arm are one block (they share the crank joint);
+    # with the crank held they are independent, and the block's Jacobian determinant is the
+    # product of theirs, so a coarse step that lands both on their mirrored assemblies keeps
+    # its sign: each part's orientation must be read on its own.  Reference: each loop's
+    # two assemblies by circle intersection (tests/mechanisms.four_bar_positions).
+    import mechanisms as M
+    a, b, c, d, home = 49.9, 100.0, 50.5, 100.0, 60.0
+    data = M.four_bar(a, b, c, d, home, "open")
+    data["links"]["coupler2"] = {}
+    data["links"]["rocker_arm2"] = {}
+    (ax, ay), (bx, by), th4 = M.four_bar_positions(a, b, c, d, home, "open")
+    data["joints"]["pin_a2"] = M.revolute("crank_arm", "coupler2", (ax, ay))
+    data["joints"]["pin_b2"] = M.revolute("coupler2", "rocker_arm2", (bx, by))
+    data["joints"]["rocker2"] = M.revolute("frame", "rocker_arm2", (d, 0), home=th4)
+    m = B._mech(data)
+    vals = home + np.linspace(0.0, 360.0, 5)
+    sw = m.sweep("crank", vals)
+    assert sw.converged.all() and not sw.singular.any()
+    for name in ("rocker", "rocker2"):
+        for t, r in zip(vals, sw.joints[name]):
+            want = M.four_bar_positions(a, b, c, d, float(t), "open")[2]
+            assert abs((r - want + 180.0) % 360.0 - 180.0) < 1e-6, (name, t, r, want)
