@@ -716,6 +716,21 @@ def bias_one(plan, sources, rates):
     return (outer.reshape(-1, 36) @ _BRACKET_OF_OUTER).ravel()
 
 
+def loop_incidence(plan, ncols=None):
+    """Which loops read which of a plan's first ``ncols`` columns (default all): a bool array
+    (loops, columns), from the plan's structure (coupling weights and motion-law slopes), not
+    from values, so a slope that is zero at some state (a dwell) still joins its loops."""
+    ncols = plan["ncols"] if ncols is None else ncols
+    used = np.zeros((plan["nl"], ncols), bool)
+    src_loop, W = plan["src_loop"], plan["W"]
+    for k in range(len(src_loop)):
+        used[src_loop[k]] |= W[k, :ncols] != 0
+    for k, c, _i, _g in plan["varying"]:
+        if c < ncols:
+            used[src_loop[k], c] = True
+    return used
+
+
 def eval_one(s, plan, q, jac=True, sources=False):
     """Residual (6 nl), per-loop errors (nl) and Jacobian (6 nl, ncols) at one state ``q``.
 

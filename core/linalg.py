@@ -395,6 +395,36 @@ def lstsq_svd(svd, b, rcond):
 # orientation still changes, the path truly passes a singular point (a change point or
 # bifurcation): the step is taken and the state is flagged singular.
 
+def independent_parts(used):
+    """The parts of a loop system that share no unknown: ``used`` (loops, columns) says which
+    loop reads which column; returns (rows, columns) index arrays per part (6 rows a loop),
+    loops joined where they read a common column.  With the held values fixed, the Jacobian
+    is block-diagonal in these parts and its orientation is the product of theirs, so a
+    branch test reads each part (two parts flipping together keep the product's sign)."""
+    nl = used.shape[0]
+    parent = list(range(nl))
+
+    def find(x):
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for c in range(used.shape[1]):
+        loops = np.flatnonzero(used[:, c])
+        for li in loops[1:]:
+            parent[find(int(li))] = find(int(loops[0]))
+    groups = {}
+    for li in range(nl):
+        groups.setdefault(find(li), []).append(li)
+    parts = []
+    for lis in groups.values():
+        cols = np.flatnonzero(used[lis].any(axis=0))
+        if len(cols):
+            parts.append((np.concatenate([np.arange(6 * li, 6 * li + 6) for li in lis]), cols))
+    return parts
+
+
 def orientation_frame(Js, rank):
     """Leading singular vectors (U_r, V_r) of scaled Jacobians ``Js`` (..., m, k), and the
     relative r-th singular value (how well the orientation is defined there)."""

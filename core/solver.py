@@ -46,7 +46,7 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, LimitError, Reason
-from .linalg import det_small, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
+from .linalg import det_small, independent_parts, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     CURVE_FROM, JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
                     MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
@@ -99,6 +99,8 @@ class _Step:
         self.gscale = s.cscale[self.gidx] if self.plain else None
         self.derived = [c[1] for c in cols if c[0] == "m" and len(s.m.coupling_table.members[c[1]]) > 1]
         self.curved = self.plain and not self.plan["varying"] and bool(cols)
+        #: the parts the held values leave independent (the orientation test reads each)
+        self.parts = independent_parts(kinematics.loop_incidence(self.plan, self.nu))
 
 
 #: A closed state's scaled solved Jacobian counts as proven regular where ``det(G) / |G|_F^g``
@@ -139,14 +141,36 @@ def _solve_at(info, rhs):
     return lstsq_svd(info[1], rhs, 1e-6)
 
 
-def _agrees(frame, js):
+def _agrees(frame, js, parts=(), ja=None):
     """The orientation test of :func:`jointwise.linalg.orientation_agrees` for one state.  For
     a frame ``("full", J_a)`` (full rank proven) ``det(U^T J_b V) > 0`` equals ``det(J_a^T
-    J_b) > 0`` (tall) or ``det(J_a J_b^T) > 0`` (wide), since ``J_a = U S V^T``."""
+    J_b) > 0`` (tall) or ``det(J_a J_b^T) > 0`` (wide), since ``J_a = U S V^T``.  Where the
+    block has independent ``parts`` (:func:`jointwise.linalg.independent_parts`), whose
+    orientations multiply to the block's, each part is read as well, on ``ja`` (the scaled
+    Jacobian of the frame's state)."""
     if isinstance(frame[0], str):  # ("full", J_a)
         ja = frame[1]
-        return det_small(ja.T @ js if ja.shape[1] <= ja.shape[0] else ja @ js.T) > 0
-    return orientation_agrees(frame, js)
+        if det_small(ja.T @ js if ja.shape[1] <= ja.shape[0] else ja @ js.T) <= 0:
+            return False
+    elif not orientation_agrees(frame, js):
+        return False
+    return ja is None or len(parts) < 2 or _parts_agree(ja, js, parts)
+
+
+def _parts_agree(ja, js, parts):
+    """Every independent part keeps its orientation, where it is defined (its own Gram
+    certificate reaches ``FULL_CERT``; a part near its own singular point is left to the
+    block's test and the singular flag)."""
+    for rows, cols in parts:
+        a, b = ja[np.ix_(rows, cols)], js[np.ix_(rows, cols)]
+        tall = a.shape[1] <= a.shape[0]
+        g = a.T @ a if tall else a @ a.T
+        fro = math.sqrt(float((g * g).sum()))
+        if fro == 0 or det_small(g / fro) < FULL_CERT:
+            continue
+        if det_small(a.T @ b if tall else a @ b.T) <= 0:
+            return False
+    return True
 
 
 class Solver:
@@ -630,6 +654,10 @@ class Solver:
                 rate, rmax = np.zeros(0), 0.0
             if cols and frame is None:
                 frame = self._orientation(b, svd_here, cols)
+                frame_ja = None  # the scaled Jacobian here, for the parts' own orientation
+                if len(st.parts) > 1:
+                    frame_ja = (svd_here[1] if svd_here[0] == "full" else
+                                (svd_here[1][0] * svd_here[1][1]) @ svd_here[1][2])
                 if t > 0.0 and not isinstance(frame[0], str) and frame[2] < SINGULAR_RATIO:
                     # an accepted state on the way lies as near a singular point as the
                     # singular flag reads: past it, the branch that keeps the orientation
@@ -671,7 +699,7 @@ class Solver:
                 J = Jall[:, :nu]
                 Jsc = J * st.rcs
                 if ok and moved <= 0.5 * rmax * h + JUMP_SLACK:
-                    if frame is None or _agrees(frame, Jsc):
+                    if frame is None or _agrees(frame, Jsc, st.parts, frame_ja):
                         break
                     if dt * max(held_rate, 1e-12) < 1e-7:
                         crossed = self._crossed = True  # the path passes a singular point: flag it

@@ -828,7 +828,7 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
     fac = linalg.chol_factor(G)
     degenerate = fac[2] < 1e-10  # about (s_min / s_max)^2 < 1e-10 (the solve floors it near 1e-13)
     same = (linalg.det_stack(M) > 0) | degenerate
-    parts = _independent_parts(ev, Jsa)
+    parts = _independent_parts(ev)
     if len(parts) > 1:
         # the block's determinant is the product of its independent parts': two parts that
         # turn together (two four-bars on one driven crank both flipping to their mirrored
@@ -845,38 +845,13 @@ def _certify_pairs(ev, Qa, Qb, Jsa=None, Jsb=None):
     return ok, same, degenerate
 
 
-def _independent_parts(ev, Js):
-    """The parts of the solved block that share no unknown once the held values are fixed,
-    as (rows, columns) index arrays; one part where everything is joined.  Read from where
-    the scaled Jacobians ``Js`` (B, 6 nl, k) have entries: a column (a joint twist, never
-    zero) has entries in the rows of exactly the loops whose walk passes its joint.  Kept on
-    the evaluator (one sweep's columns)."""
+def _independent_parts(ev):
+    """:func:`jointwise.linalg.independent_parts` of the evaluator's solved columns (from the
+    loop plan's structure), kept on the evaluator (one sweep's columns)."""
     parts = getattr(ev, "_parts", None)
     if parts is None:
-        nl = Js.shape[1] // 6
-        used = (np.abs(Js) > 0).any(axis=0).reshape(nl, 6, -1).any(axis=1)  # (loops, columns)
-        parent = list(range(nl))
-
-        def find(x):
-            while parent[x] != x:
-                parent[x] = parent[parent[x]]
-                x = parent[x]
-            return x
-
-        for c in range(used.shape[1]):
-            loops = np.flatnonzero(used[:, c])
-            for li in loops[1:]:
-                parent[find(int(li))] = find(int(loops[0]))
-        groups = {}
-        for li in range(nl):
-            groups.setdefault(find(li), []).append(li)
-        parts = []
-        for lis in groups.values():
-            rows = np.concatenate([np.arange(6 * li, 6 * li + 6) for li in lis])
-            cls = np.flatnonzero(used[lis].any(axis=0))
-            if len(cls):
-                parts.append((rows, cls))
-        ev._parts = parts
+        plan = ev.s._plan(ev.block, ev.cols_rot, ev.rotj)
+        parts = ev._parts = linalg.independent_parts(kinematics.loop_incidence(plan))
     return parts
 
 

@@ -228,3 +228,28 @@ def test_two_crank_rockers_on_one_crank_keep_their_assemblies():
         for t, r in zip(vals, sw.joints[name]):
             want = M.four_bar_positions(a, b, c, d, float(t), "open")[2]
             assert abs((r - want + 180.0) % 360.0 - 180.0) < 1e-6, (name, t, r, want)
+
+
+def test_a_single_pose_of_two_crank_rockers_on_one_crank_keeps_their_assemblies():
+    # the same for one pose: a 72-degree step of two different crank-rockers on one crank
+    # arm (the second a scaled, slightly changed copy) flipped both loops, whose product kept
+    # the block's orientation; each loop's own orientation is read now
+    import mechanisms as M
+    g1 = (21.390848604473696, 90.53072917737052, 30.992484215676487, 100.0)
+    g2 = (33.40587846255194, 141.4781653564241, 48.42485853000294, 156.19697279479254)
+    home = 192.3577516804799
+    data = M.four_bar(*g1, home, "open")
+    data["links"]["coupler2"] = {}
+    data["links"]["rocker_arm2"] = {}
+    (ax, ay), (bx, by), th4 = M.four_bar_positions(*g2, home, "open")
+    data["joints"]["pin_a2"] = M.revolute("crank_arm", "coupler2", (ax, ay))
+    data["joints"]["pin_b2"] = M.revolute("coupler2", "rocker_arm2", (bx, by))
+    data["joints"]["rocker2"] = M.revolute("frame", "rocker_arm2", (g2[3], 0), home=th4)
+    m = B._mech(data)
+    before = m.pose({"crank": home + 288.0})
+    after = m.pose({"crank": home + 360.0}, start=before)
+    for p, t in ((before, home + 288.0), (after, home + 360.0)):
+        assert p.converged
+        for name, g in (("rocker", g1), ("rocker2", g2)):
+            want = M.four_bar_positions(*g, t, "open")[2]
+            assert abs((p.joints[name] - want + 180.0) % 360.0 - 180.0) < 1e-6, (name, t)
