@@ -111,12 +111,6 @@ _tangent = kinematics.tangent
 _least_norm = linalg.least_norm
 
 
-def _derive(s, Q, masters):
-    """Set the coupled members of ``masters`` from them in states ``Q`` (the model's
-    coupling table; ``s`` the solver)."""
-    s.m.coupling_table.derive(Q, masters)
-
-
 # ---------------------------------------------------------------------------------------
 # the continuation engine
 # ---------------------------------------------------------------------------------------
@@ -161,7 +155,7 @@ def _run(mech, explicit, N, q0, release):
     Q = np.tile(q0, (N, 1))
     for g, v in target.items():
         Q[:, g] = v
-    _derive(s, Q, list(target))
+    mech.coupling_table.derive(Q, list(target))
     conv = np.ones(N, bool)
     resid = np.zeros(N)
     reasons = {}
@@ -368,8 +362,8 @@ def _hermite(ev, Q, Hm, path, a, b, idx, Ta, Tb):
     qb[:, ang] = qa[:, ang] + est + (qb[:, ang] - qa[:, ang] - est + np.pi) % (2 * np.pi) - np.pi
     out = h00[:, None] * qa + h10[:, None] * ma + h01[:, None] * qb + h11[:, None] * mb
     Q[np.ix_(idx, ci)] = out
-    _derive(ev.s, Q, ci)
-    _derive(ev.s, Q, ev.held)
+    ev.m.coupling_table.derive(Q, ci)
+    ev.m.coupling_table.derive(Q, ev.held)
 
 
 def _run_block(ctx, ev, Q, target, q0, explicit, release):
@@ -438,7 +432,7 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
             trial[0, :] = Q[prev_i]
             for g in ev.held:
                 trial[0, g] = Q[i, g]
-            _derive(s, trial, ev.held)
+            ev.m.coupling_table.derive(trial, ev.held)
             if prev_T is not None and ev.cols_coord:
                 ci = [c[1] for c in ev.cols_coord]
                 trial[0, ci] += prev_T[0] @ (Hm[i] - Hm[prev_i])
@@ -450,7 +444,7 @@ def _run_block_once(ctx, ev, Q, target, q0, explicit, release):
                     bend = back * (ds1 / ds0) ** 2
                     if np.all(np.isfinite(bend)):
                         trial[0, ci] += bend
-                _derive(s, trial, ci)
+                ev.m.coupling_table.derive(trial, ci)
             before = trial.copy()
             e = _newton(ev, trial, np.array([0]), iters=10)
             moved = _distance(ev, before, trial)[0]
@@ -860,7 +854,7 @@ def _predictor(ev, Qa, Qb):
     X0 = Qa.copy()
     if ev.held:
         X0[:, ev.held] = Qb[:, ev.held]
-        _derive(ev.s, X0, ev.held)
+        ev.m.coupling_table.derive(X0, ev.held)
     return X0
 
 
