@@ -141,36 +141,40 @@ def _solve_at(info, rhs):
     return lstsq_svd(info[1], rhs, 1e-6)
 
 
-def _agrees(frame, js, parts=(), ja=None):
+def _agrees(frame, js, part_frames=()):
     """The orientation test of :func:`jointwise.linalg.orientation_agrees` for one state.  For
     a frame ``("full", J_a)`` (full rank proven) ``det(U^T J_b V) > 0`` equals ``det(J_a^T
     J_b) > 0`` (tall) or ``det(J_a J_b^T) > 0`` (wide), since ``J_a = U S V^T``.  Where the
-    block has independent ``parts`` (:func:`jointwise.linalg.independent_parts`), whose
-    orientations multiply to the block's, each part is read as well, on ``ja`` (the scaled
-    Jacobian of the frame's state)."""
+    block has independent parts, whose orientations multiply to the block's, each part is
+    read as well (``part_frames``: :func:`_part_frames` of the frame's state)."""
     if isinstance(frame[0], str):  # ("full", J_a)
         ja = frame[1]
         if det_small(ja.T @ js if ja.shape[1] <= ja.shape[0] else ja @ js.T) <= 0:
             return False
     elif not orientation_agrees(frame, js):
         return False
-    return ja is None or len(parts) < 2 or _parts_agree(ja, js, parts)
-
-
-def _parts_agree(ja, js, parts):
-    """Every independent part keeps its orientation, where it is defined (its own Gram
-    certificate reaches ``FULL_CERT``; a part near its own singular point is left to the
-    block's test and the singular flag)."""
-    for rows, cols in parts:
-        a, b = ja[np.ix_(rows, cols)], js[np.ix_(rows, cols)]
-        tall = a.shape[1] <= a.shape[0]
-        g = a.T @ a if tall else a @ a.T
-        fro = math.sqrt(float((g * g).sum()))
-        if fro == 0 or det_small(g / fro) < FULL_CERT:
-            continue
+    for rows, cols, a, tall in part_frames:
+        b = js[np.ix_(rows, cols)]
         if det_small(a.T @ b if tall else a @ b.T) <= 0:
             return False
     return True
+
+
+def _part_frames(ja, parts):
+    """Each independent part (:func:`jointwise.linalg.independent_parts`) of the scaled
+    Jacobian ``ja`` whose orientation is defined (its own Gram certificate reaches
+    ``FULL_CERT``; a part near its own singular point is left to the block's test and the
+    singular flag), as ``(rows, cols, part of ja, tall)``: worked out once per state, read by
+    every trial step from it."""
+    out = []
+    for rows, cols in parts if len(parts) > 1 else ():
+        a = ja[np.ix_(rows, cols)]
+        tall = a.shape[1] <= a.shape[0]
+        g = a.T @ a if tall else a @ a.T
+        fro = math.sqrt(float((g * g).sum()))
+        if fro > 0 and det_small(g / fro) >= FULL_CERT:
+            out.append((rows, cols, a, tall))
+    return out
 
 
 class Solver:
@@ -654,10 +658,10 @@ class Solver:
                 rate, rmax = np.zeros(0), 0.0
             if cols and frame is None:
                 frame = self._orientation(b, svd_here, cols)
-                frame_ja = None  # the scaled Jacobian here, for the parts' own orientation
+                part_frames = ()  # the independent parts' own orientation frames here
                 if len(st.parts) > 1:
-                    frame_ja = (svd_here[1] if svd_here[0] == "full" else
-                                (svd_here[1][0] * svd_here[1][1]) @ svd_here[1][2])
+                    part_frames = _part_frames(svd_here[1] if svd_here[0] == "full" else
+                                               (svd_here[1][0] * svd_here[1][1]) @ svd_here[1][2], st.parts)
                 if t > 0.0 and not isinstance(frame[0], str) and frame[2] < SINGULAR_RATIO:
                     # an accepted state on the way lies as near a singular point as the
                     # singular flag reads: past it, the branch that keeps the orientation
@@ -699,7 +703,7 @@ class Solver:
                 J = Jall[:, :nu]
                 Jsc = J * st.rcs
                 if ok and moved <= 0.5 * rmax * h + JUMP_SLACK:
-                    if frame is None or _agrees(frame, Jsc, st.parts, frame_ja):
+                    if frame is None or _agrees(frame, Jsc, part_frames):
                         break
                     if dt * max(held_rate, 1e-12) < 1e-7:
                         crossed = self._crossed = True  # the path passes a singular point: flag it
@@ -843,14 +847,14 @@ class Solver:
         if not cols or J is None or not J.size:
             return False
         if info is not None and info[0] == "full":
-            key = (b.index, tuple(cols))
+            key = ("singular", b.index, tuple(cols))
             self._generic_rank[key] = max(self._generic_rank.get(key, 0), min(info[1].shape))
             return False
         s = np.linalg.svd(J * rs[:, None] * cs[None, :], compute_uv=False) if info is None else info[1][1]
         if s.size == 0 or s[0] == 0:
             return False
         rank = int((s > 1e-9 * s[0]).sum())
-        key = (b.index, tuple(cols))
+        key = ("singular", b.index, tuple(cols))
         generic = max(self._generic_rank.get(key, 0), rank)
         self._generic_rank[key] = generic
         return bool(s[generic - 1] < SINGULAR_RATIO * s[0]) if generic > 0 else False
