@@ -535,8 +535,6 @@ _EYE4 = np.eye(4)
 _EYE3 = np.eye(3)
 #: Stacks of at most this many states are evaluated one state at a time (:func:`eval_one`).
 SMALL_STACK = 8
-_I1 = np.array([1, 2, 0])  # cross products a x b = a[_I1] b[_I2] - a[_I2] b[_I1]
-_I2 = np.array([2, 0, 1])
 
 
 def loop_plan(s, block, cols, rot, coupled=True):
@@ -624,17 +622,13 @@ def loop_plan(s, block, cols, rot, coupled=True):
     tw = np.array(src_tw, dtype=float).reshape(-1, 6)
     powers = spatial.screw_powers(np.array(screws).reshape(-1, 6))  # (P + 1, 3, 4, 4)
     points = np.array([np.append(m.joints[lp.name].point, 1.0) for lp in block.loops]).reshape(nl, 4)
-    at_pos = []  # per position 0..kmax: (sources there, their loops)
-    for k in range(kmax + 1):
-        sel = np.flatnonzero(src_pos == k)
-        at_pos.append((sel, src_loop[sel]) if len(sel) else None)
     return {
         "p12": np.ascontiguousarray(powers[:, :, :3, :].reshape(-1, 3, 12).transpose(0, 2, 1)),
         "pidx": np.array(pidx + [0], dtype=int), "phome": np.array(phome + [0.0]),
         "psign": np.array(psign + [0.0]), "fidx": fidx, "kmax": kmax, "nl": nl,
         "cut": (np.array(cut_pos, dtype=int), np.arange(nl)), "cut_pos": cut_pos,
         "points": points,
-        "src_loop": src_loop, "src_pos": src_pos, "at_pos": at_pos,
+        "src_loop": src_loop, "src_pos": src_pos,
         "src_tw": tw,
         "src_sign": np.array(src_sign)[:, None], "W": W, "weights": weights, "varying": varying,
         "scatter": ((6 * src_loop[:, None] + np.arange(6)[None, :]).ravel(), np.repeat(np.arange(ns), 6)),

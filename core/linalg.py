@@ -395,12 +395,9 @@ def lstsq_svd(svd, b, rcond):
 # orientation still changes, the path truly passes a singular point (a change point or
 # bifurcation): the step is taken and the state is flagged singular.
 
-def independent_parts(used):
-    """The parts of a loop system that share no unknown: ``used`` (loops, columns) says which
-    loop reads which column; returns (rows, columns) index arrays per part (6 rows a loop),
-    loops joined where they read a common column.  With the held values fixed, the Jacobian
-    is block-diagonal in these parts and its orientation is the product of theirs, so a
-    branch test reads each part (two parts flipping together keep the product's sign)."""
+def loop_groups(used):
+    """Loops joined where they read a common column: ``used`` (loops, columns) bool; returns
+    lists of loop indices, each in order, the lists ordered by their first loop."""
     nl = used.shape[0]
     parent = list(range(nl))
 
@@ -417,8 +414,17 @@ def independent_parts(used):
     groups = {}
     for li in range(nl):
         groups.setdefault(find(li), []).append(li)
+    return list(groups.values())
+
+
+def independent_parts(used):
+    """The parts of a loop system that share no unknown: ``used`` (loops, columns) says which
+    loop reads which column; returns (rows, columns) index arrays per part (6 rows a loop),
+    the loops of :func:`loop_groups`.  With the held values fixed, the Jacobian is
+    block-diagonal in these parts and its orientation is the product of theirs, so a branch
+    test reads each part (two parts flipping together keep the product's sign)."""
     parts = []
-    for lis in groups.values():
+    for lis in loop_groups(used):
         cols = np.flatnonzero(used[lis].any(axis=0))
         if len(cols):
             parts.append((np.concatenate([np.arange(6 * li, 6 * li + 6) for li in lis]), cols))

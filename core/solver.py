@@ -46,7 +46,7 @@ import numpy as np
 
 from . import kinematics, spatial
 from .errors import AssemblyError, LimitError, Reason
-from .linalg import det_small, independent_parts, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
+from .linalg import det_small, independent_parts, loop_groups, lstsq_small, lstsq_svd, normal_factor, normal_solve, orientation_agrees
 from .units import (ASSEMBLY_TOLERANCE, CLOSE_POSITION, CONTRACT_FLOOR, CORRECTOR_ITER, CORRECTOR_RATIO,
                     CURVE_FROM, JACOBIAN_MEMORY, JUMP_SLACK, MAX_HELD_STEP, MAX_ITER, MAX_LINEAR_MOTION, MAX_MOTION,
                     MAX_SPAN, MAX_STEP, NORMAL_CERT, PLAN_MEMORY, SINGULAR_RATIO, TOLERANCE)
@@ -233,29 +233,14 @@ class Solver:
     def _blocks(self):
         m = self.m
         ct = m.coupling_table
-        parent = list(range(len(m.loops)))
-
-        def find(x):
-            while parent[x] != x:
-                parent[x] = parent[parent[x]]
-                x = parent[x]
-            return x
-
-        owner = {}
+        used = np.zeros((len(m.loops), len(m.coordinates)), bool)  # loop -> masters it reads
         for li, loop in enumerate(m.loops):
             for jname, _ in loop.steps:
-                for i in range(m.slices[jname].start, m.slices[jname].stop):
-                    g = int(ct.master[i])
-                    if g in owner:
-                        parent[find(li)] = find(owner[g])
-                    else:
-                        owner[g] = li
-        groups = {}
-        for li in range(len(m.loops)):
-            groups.setdefault(find(li), []).append(li)
+                used[li, ct.master[m.slices[jname]]] = True
+        groups = loop_groups(used)
         self.blocks = []
         self.block_of_master = {}
-        for bi, lis in enumerate(groups.values()):
+        for bi, lis in enumerate(groups):
             loops = [m.loops[i] for i in lis]
             joints = []
             for loop in loops:
