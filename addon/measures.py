@@ -423,10 +423,6 @@ def format_measure(scene, it):
 
 # -- operators -------------------------------------------------------------------------------
 
-def _link_items(self, context):
-    return [(l.name, l.name, "") for l in context.scene.jointwise.links] or [("", "(no links)", "")]
-
-
 def draw_fields(layout, owner, jw, places=True):
     """The fields that define a measure, for the Measures panel (``owner``: the active list
     item) and the Add Measure dialog (the operator): its kind, then ``of`` and ``per`` for a

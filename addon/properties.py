@@ -344,10 +344,6 @@ def unregister_scene_property():
         del bpy.types.Scene.jointwise
 
 
-def is_finite(*xs):
-    return all(math.isfinite(x) for x in xs)
-
-
 def upgrade_scene(scene):
     """Bring a scene saved by an earlier version up to date (idempotent): the joint's
     ``marker`` becomes ``anchor``, ``marker_home`` ``anchor_home``, the stored ``value``

@@ -179,10 +179,6 @@ def first_items(jw):
     return out
 
 
-def joint_items(jw, joint):
-    return [it for it in jw.joints if it.joint == joint]
-
-
 def items_by_joint(jw):
     out = {}
     for it in jw.joints:
